@@ -1,0 +1,893 @@
+"""Graphs for the equivalence-class rung: PC-stable skeleton, v-structures,
+Meek rules, CPDAGs, background orientations and user-supplied graphs.
+
+Encoding (used by every function here): a graph on p nodes is an int8
+``(p, p)`` matrix ``G``.
+
+* ``G[i, j] = 1`` and ``G[j, i] = 0``: a directed edge ``i -> j``;
+* ``G[i, j] = G[j, i] = 1``: an undirected edge ``i - j``;
+* ``G[i, j] = G[j, i] = 0``: ``i`` and ``j`` are not adjacent.
+
+The diagonal is always zero.  A DAG is a PDAG without undirected edges and
+without directed cycles.  A CPDAG (the essential graph of a Markov
+equivalence class) has a directed edge where every DAG of the class agrees on
+the direction and an undirected edge where they disagree (Verma and Pearl
+1990; Meek 1995; Andersson, Madigan and Perlman 1997).
+
+Everything here is deterministic: pairs, subsets and nodes are visited in
+increasing index order, and where several orientations conflict the rule
+that settles it is stated in the function's docstring.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import itertools
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Iterable, Iterator, Mapping, NamedTuple, Sequence
+
+import numpy as np
+
+from preflight.checks._validate import as_matrix
+from preflight.errors import InputError
+
+EdgeStatus = str
+"""One of ``"i->j"``, ``"j->i"``, ``"undirected"`` (i is the smaller index)."""
+
+_MEEK_RULES = (1, 2, 3, 4)
+
+
+# ---------------------------------------------------------------------------
+# validation helpers
+
+
+def _as_pdag(G, name: str = "G") -> np.ndarray:
+    """Return ``G`` as a fresh int8 (p, p) 0/1 matrix with a zero diagonal."""
+    arr = np.asarray(G)
+    if arr.ndim != 2 or arr.shape[0] != arr.shape[1]:
+        raise InputError(f"{name} must be a square matrix, got shape {arr.shape}")
+    out = arr.astype(np.int8)
+    if arr.size and arr.dtype != bool:
+        if arr.dtype.kind not in "iu" and not np.array_equal(out, arr):
+            raise InputError(f"{name} must contain only 0 and 1")
+        if arr.min() < 0 or arr.max() > 1:
+            raise InputError(f"{name} must contain only 0 and 1")
+    diagonal = np.flatnonzero(np.diagonal(out))
+    if diagonal.size:
+        raise InputError(f"{name} has a self-loop on node {int(diagonal[0])}")
+    return out
+
+
+def _as_adjacency(adjacency, name: str = "adjacency") -> np.ndarray:
+    A = _as_pdag(adjacency, name).astype(bool)
+    if not np.array_equal(A, A.T):
+        raise InputError(f"{name} must be symmetric (an undirected skeleton)")
+    return A
+
+
+def _as_dag(dag, name: str = "dag") -> np.ndarray:
+    D = _as_pdag(dag, name)
+    both = (D == 1) & (D.T == 1)
+    if both.any():
+        i, j = np.argwhere(both)[0]
+        raise InputError(f"{name} has an undirected edge {int(i)} - {int(j)}; a DAG needs every edge directed")
+    cycle = None if _acyclic(D) else find_cycle(D)
+    if cycle is not None:
+        raise InputError(f"{name} has a cycle: {' -> '.join(str(k) for k in cycle + [cycle[0]])}")
+    return D
+
+
+def _parts(G: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Directed, undirected, adjacent, and non-adjacent-distinct boolean masks of a PDAG."""
+    Gb = G.astype(bool)
+    directed = Gb & ~Gb.T
+    undirected = Gb & Gb.T
+    adjacent = Gb | Gb.T
+    nonadjacent = ~adjacent
+    np.fill_diagonal(nonadjacent, False)
+    return directed, undirected, adjacent, nonadjacent
+
+
+# ---------------------------------------------------------------------------
+# conditional-independence test
+
+
+class FisherZTest(NamedTuple):
+    """Fisher z test of one partial correlation; unpacks as ``(statistic, p_value)``."""
+
+    statistic: float
+    p_value: float
+
+
+def _correlation_from(cov_or_corr, name: str = "cov_or_corr") -> np.ndarray:
+    C = np.asarray(cov_or_corr, dtype=np.float64)
+    if C.ndim != 2 or C.shape[0] != C.shape[1]:
+        raise InputError(f"{name} must be a square matrix, got shape {C.shape}")
+    if not np.all(np.isfinite(C)):
+        raise InputError(f"{name} contains NaN or infinite values")
+    if not np.allclose(C, C.T, rtol=1e-10, atol=1e-12):
+        raise InputError(f"{name} must be symmetric")
+    d = np.diagonal(C).copy()
+    if np.any(d <= 0):
+        raise InputError(f"{name} has a zero or negative variance on node {int(np.flatnonzero(d <= 0)[0])}")
+    s = np.sqrt(d)
+    corr = C / s[:, None] / s[None, :]
+    corr = np.clip((corr + corr.T) / 2.0, -1.0, 1.0)
+    np.fill_diagonal(corr, 1.0)
+    return corr
+
+
+def _partial_correlations(corr: np.ndarray, i: int, j: int, conditioning: np.ndarray) -> np.ndarray:
+    """Partial correlations of i and j given each row of ``conditioning`` (m, l), from one batched inverse."""
+    m, size = conditioning.shape
+    if size == 0:
+        return np.full(m, corr[i, j])
+    idx = np.empty((m, size + 2), dtype=np.intp)
+    idx[:, 0] = i
+    idx[:, 1] = j
+    idx[:, 2:] = conditioning
+    sub = corr[idx[:, :, None], idx[:, None, :]]
+    try:
+        precision = np.linalg.inv(sub)
+    except np.linalg.LinAlgError:
+        precision = np.linalg.pinv(sub, hermitian=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = -precision[:, 0, 1] / np.sqrt(precision[:, 0, 0] * precision[:, 1, 1])
+    # A variable that its conditioning set determines exactly is degenerate given it,
+    # hence independent of anything else given it: report zero partial correlation.
+    r = np.where(np.isfinite(r), r, 0.0)
+    return np.clip(r, -1.0, 1.0)
+
+
+def _fisher_z(r: np.ndarray, n: int, size: int) -> tuple[np.ndarray, np.ndarray]:
+    from scipy.special import ndtr
+
+    with np.errstate(divide="ignore"):
+        z = np.sqrt(n - size - 3.0) * np.arctanh(r)
+    return z, 2.0 * ndtr(-np.abs(z))
+
+
+def partial_correlation(cov_or_corr, i: int, j: int, cond: Iterable[int] = ()) -> float:
+    """Partial correlation of variables i and j given ``cond``, from the inverse of the sub-matrix on {i, j} + cond."""
+    corr = _correlation_from(cov_or_corr)
+    i, j, cond_t = _test_indices(corr.shape[0], i, j, cond)
+    return float(_partial_correlations(corr, i, j, np.array([cond_t], dtype=np.intp).reshape(1, len(cond_t)))[0])
+
+
+def _test_indices(p: int, i, j, cond) -> tuple[int, int, tuple[int, ...]]:
+    i, j = _whole_number(i, "node index i"), _whole_number(j, "node index j")
+    try:
+        members = list(cond)
+    except TypeError:
+        raise InputError(f"the conditioning set must be a collection of node indices, got {cond!r}") from None
+    cond_t = tuple(_whole_number(k, "a conditioning node index") for k in members)
+    for k in (i, j, *cond_t):
+        if not 0 <= k < p:
+            raise InputError(f"node index {k} is out of range 0..{p - 1}")
+    if i == j:
+        raise InputError(f"i and j must differ, both are {i}")
+    if i in cond_t or j in cond_t:
+        raise InputError("the conditioning set must not contain i or j")
+    if len(set(cond_t)) != len(cond_t):
+        raise InputError("the conditioning set has repeated nodes")
+    return i, j, cond_t
+
+
+def partial_correlation_test(cov_or_corr, n: int, i: int, j: int, cond: Iterable[int] = ()) -> FisherZTest:
+    """Fisher z test that variables i and j are uncorrelated given ``cond``.
+
+    Null hypothesis: the partial correlation of i and j given ``cond`` is zero
+    (for Gaussian data: i and j are conditionally independent given ``cond``).
+    The partial correlation r comes from the inverse of the correlation
+    sub-matrix on {i, j} + cond; the statistic is
+    ``sqrt(n - |cond| - 3) * atanh(r)``, compared with the standard normal
+    distribution two-sided.
+
+    ``cov_or_corr`` may be a covariance or a correlation matrix (partial
+    correlation does not depend on scale); ``n`` is the number of rows it was
+    computed from.
+
+    Reference: Fisher (1924), "The distribution of the partial correlation
+    coefficient"; its use in the PC algorithm: Kalisch and Bühlmann (2007).
+    """
+    corr = _correlation_from(cov_or_corr)
+    i, j, cond_t = _test_indices(corr.shape[0], i, j, cond)
+    n = _sample_size(n)
+    if n - len(cond_t) - 3 < 1:
+        raise InputError(f"the Fisher z test needs n - |cond| - 3 >= 1, got n={n} with |cond|={len(cond_t)}")
+    r = _partial_correlations(corr, i, j, np.array(cond_t, dtype=np.intp).reshape(1, len(cond_t)))
+    z, pv = _fisher_z(r, n, len(cond_t))
+    return FisherZTest(float(z[0]), float(pv[0]))
+
+
+def _whole_number(value, what: str) -> int:
+    try:
+        ok = not isinstance(value, bool) and float(value).is_integer()
+    except (TypeError, ValueError, OverflowError):
+        ok = False
+    if not ok:
+        raise InputError(f"{what} must be a whole number, got {value!r}")
+    return int(value)
+
+
+def _sample_size(n) -> int:
+    return _whole_number(n, "n (the number of rows)")
+
+
+# ---------------------------------------------------------------------------
+# PC-stable skeleton
+
+
+@dataclass(frozen=True, eq=False)
+class Skeleton:
+    """Result of the skeleton phase of PC-stable.
+
+    Attributes
+    ----------
+    adjacency : bool (p, p) array
+        Symmetric; True where the pair was never found conditionally independent.
+    separating_sets : dict
+        ``(i, j)`` with ``i < j`` -> sorted tuple of the set that made the pair
+        independent, for every removed pair.  Order-dependent in general
+        (Colombo and Maathuis 2014 section 4): the first separating set in
+        index order is kept.
+    n_tests : int
+        Conditional-independence tests the search needed.
+    max_condition_size_reached : int
+        Largest conditioning-set size that was tested (0 when only marginal
+        tests ran; -1 when there were fewer than two variables).
+    stopped_by_limit : bool
+        True when ``max_condition_size`` (or the sample size, which caps the
+        set size at n - 4) stopped the search while some adjacent pair still
+        had enough neighbours for a larger set; the skeleton may then keep
+        edges a full search would remove.
+    max_p_values : float (p, p) array
+        Largest p-value over the tests run on each pair (NaN on the diagonal):
+        below alpha for kept pairs, the removing p-value for removed ones.
+    """
+
+    adjacency: np.ndarray
+    separating_sets: dict
+    n_tests: int
+    max_condition_size_reached: int
+    stopped_by_limit: bool
+    max_p_values: np.ndarray
+
+
+def pc_stable_skeleton(X, alpha: float = 0.05, max_condition_size: int | None = None) -> Skeleton:
+    """Order-independent skeleton of the PC algorithm with Fisher z tests.
+
+    Null hypothesis of each test: the partial correlation of the pair given
+    the conditioning set is zero; a pair is removed as soon as one test has
+    p >= alpha.  At each conditioning-set size l the adjacency sets are frozen
+    before any test of that level, so the skeleton does not depend on the
+    column order.  All tests use one correlation matrix
+    (:func:`correlation_matrix`), so the cost after it does not grow with the
+    number of rows.
+
+    Reference: Colombo and Maathuis (2014), "Order-independent
+    constraint-based causal structure learning", JMLR 15, algorithm 4.1;
+    Spirtes, Glymour and Scheines (2000) for PC.
+    """
+    X = as_matrix(X, name="X", min_n=4)
+    n, p = X.shape
+    if p == 0:
+        raise InputError("X has no columns")
+    corr = _block_correlation(X)
+    return pc_stable_skeleton_from_correlation(corr, n, alpha=alpha, max_condition_size=max_condition_size)
+
+
+def correlation_matrix(X, block_rows: int = 16384) -> np.ndarray:
+    """Pearson correlation matrix of the columns of X, the same numbers as ``np.corrcoef(X, rowvar=False)``.
+
+    Two passes (means, then centred cross-products accumulated over blocks of
+    rows) keep the accuracy of centring first without the full centred copy
+    of X that ``np.corrcoef`` makes, which is 800 MB at 10^6 rows and 100
+    columns.
+    """
+    return _block_correlation(as_matrix(X, name="X", min_n=2), block_rows)
+
+
+def _block_correlation(X: np.ndarray, block_rows: int = 16384) -> np.ndarray:
+    n, p = X.shape
+    means = X.mean(axis=0)
+    cross = np.zeros((p, p))
+    for start in range(0, n, block_rows):
+        block = X[start:start + block_rows] - means
+        cross += block.T @ block
+    scale = np.sqrt(np.diagonal(cross))
+    # The mean of a constant column can be off by an ulp, leaving round-off "variance"; check such columns exactly.
+    suspicious = np.flatnonzero(scale <= 1e-12 * np.sqrt(n) * np.maximum(np.abs(means), 1.0))
+    bad = [k for k in suspicious.tolist() if np.ptp(X[:, k]) == 0]
+    if bad:
+        raise InputError(f"column {int(bad[0])} of X is constant; drop it before the skeleton search")
+    corr = cross / scale[:, None] / scale[None, :]
+    corr = np.clip((corr + corr.T) / 2.0, -1.0, 1.0)
+    np.fill_diagonal(corr, 1.0)
+    return corr
+
+
+def pc_stable_skeleton_from_correlation(corr, n: int, alpha: float = 0.05,
+                                        max_condition_size: int | None = None) -> Skeleton:
+    """PC-stable skeleton from a correlation (or covariance) matrix of n rows; see :func:`pc_stable_skeleton`."""
+    corr = _correlation_from(corr, "corr")
+    n = _sample_size(n)
+    if n < 4:
+        raise InputError(f"the skeleton search needs at least 4 rows, got {n}")
+    try:
+        alpha_ok = 0.0 < float(alpha) < 1.0
+    except (TypeError, ValueError):
+        alpha_ok = False
+    if not alpha_ok:
+        raise InputError(f"alpha must lie in (0, 1), got {alpha!r}")
+    alpha = float(alpha)
+    if max_condition_size is not None:
+        max_condition_size = _whole_number(max_condition_size, "max_condition_size")
+        if max_condition_size < 0:
+            raise InputError(f"max_condition_size must be None or a whole number >= 0, got {max_condition_size}")
+    p = corr.shape[0]
+    # The Fisher z statistic needs n - l - 3 >= 1.
+    cap = n - 4 if max_condition_size is None else min(max_condition_size, n - 4)
+
+    adjacency = ~np.eye(p, dtype=bool)
+    separating: dict[tuple[int, int], tuple[int, ...]] = {}
+    max_p = np.full((p, p), np.nan)
+    n_tests = 0
+    reached = -1
+    stopped = False
+
+    if p >= 2:
+        rows, cols = np.triu_indices(p, 1)
+        _, pv = _fisher_z(corr[rows, cols], n, 0)
+        n_tests += rows.size
+        reached = 0
+        max_p[rows, cols] = max_p[cols, rows] = pv
+        gone = pv >= alpha
+        adjacency[rows[gone], cols[gone]] = adjacency[cols[gone], rows[gone]] = False
+        for i, j in zip(rows[gone].tolist(), cols[gone].tolist()):
+            separating[(i, j)] = ()
+
+    level = 1
+    while True:
+        frozen = [np.flatnonzero(adjacency[k]).tolist() for k in range(p)]
+        rows, cols = np.nonzero(np.triu(adjacency, 1))
+        candidates = [(i, j) for i, j in zip(rows.tolist(), cols.tolist())
+                      if len(frozen[i]) - 1 >= level or len(frozen[j]) - 1 >= level]
+        if not candidates:
+            break
+        if level > cap:
+            stopped = True
+            break
+        reached = level
+        for i, j in candidates:
+            left = [k for k in frozen[i] if k != j]
+            right = [k for k in frozen[j] if k != i]
+            found, used, pmax = _first_separating_set(corr, n, i, j, _subsets(left, right, level), level, alpha)
+            n_tests += used
+            if used:
+                max_p[i, j] = max_p[j, i] = max(max_p[i, j], pmax)
+            if found is not None:
+                adjacency[i, j] = adjacency[j, i] = False
+                separating[(i, j)] = found
+        level += 1
+
+    adjacency.flags.writeable = False
+    max_p.flags.writeable = False
+    return Skeleton(adjacency=adjacency, separating_sets=separating, n_tests=n_tests,
+                    max_condition_size_reached=reached, stopped_by_limit=stopped, max_p_values=max_p)
+
+
+def _subsets(left: list[int], right: list[int], size: int) -> Iterator[tuple[int, ...]]:
+    """Subsets of ``left`` then those of ``right`` not already seen, each in lexicographic order."""
+    yield from itertools.combinations(left, size)
+    left_set = set(left)
+    for subset in itertools.combinations(right, size):
+        if not left_set.issuperset(subset):
+            yield subset
+
+
+def _first_separating_set(corr, n, i, j, subsets, size, alpha):
+    """First subset (in the given order) with p >= alpha; tests run in growing batches to amortise numpy calls."""
+    used = 0
+    pmax = -np.inf
+    batch = 8
+    while True:
+        chunk = list(itertools.islice(subsets, batch))
+        if not chunk:
+            return None, used, pmax
+        r = _partial_correlations(corr, i, j, np.array(chunk, dtype=np.intp).reshape(len(chunk), size))
+        _, pv = _fisher_z(r, n, size)
+        hit = np.flatnonzero(pv >= alpha)
+        if hit.size:
+            first = int(hit[0])
+            used += first + 1
+            pmax = max(pmax, float(pv[: first + 1].max()))
+            return tuple(chunk[first]), used, pmax
+        used += len(chunk)
+        pmax = max(pmax, float(pv.max()))
+        batch = min(batch * 8, 4096)
+
+
+# ---------------------------------------------------------------------------
+# v-structures
+
+
+def _separating_set(separating_sets: Mapping, a: int, b: int) -> tuple[int, ...]:
+    found = separating_sets.get((a, b))
+    if found is None:
+        found = separating_sets.get((b, a))
+    if found is None:
+        raise InputError(f"no separating set for the non-adjacent pair ({a}, {b})")
+    return tuple(int(k) for k in found)
+
+
+def _collider_proposals(A: np.ndarray, separating_sets: Mapping):
+    """Unshielded triples a - k - b (a < b) whose middle node is outside sepset(a, b)."""
+    colliders = []
+    p = A.shape[0]
+    for k in range(p):
+        neighbours = np.flatnonzero(A[k]).tolist()
+        for a, b in itertools.combinations(neighbours, 2):
+            if A[a, b]:
+                continue
+            if k not in _separating_set(separating_sets, a, b):
+                colliders.append((a, k, b))
+    heads = {(a, k) for a, k, _ in colliders} | {(b, k) for _, k, b in colliders}
+    conflicted = {(min(x, y), max(x, y)) for x, y in heads if (y, x) in heads}
+    return colliders, conflicted
+
+
+def v_structure_conflicts(adjacency, separating_sets: Mapping) -> set[tuple[int, int]]:
+    """Edges (i < j) that two unshielded colliders would orient in opposite directions.
+
+    Such conflicts cannot arise from a faithful distribution and exact tests;
+    they signal test errors, unfaithfulness or hidden common causes.
+    """
+    A = _as_adjacency(adjacency)
+    return _collider_proposals(A, separating_sets)[1]
+
+
+def orient_v_structures(adjacency, separating_sets: Mapping) -> np.ndarray:
+    """Orient every unshielded triple i - k - j with k outside sepset(i, j) as i -> k <- j.
+
+    Conflict rule (conservative and order-independent): an edge that two
+    colliders would orient in opposite directions stays undirected, and every
+    collider that needs such an edge is left out whole; the remaining
+    colliders agree on every edge they share, so the order in which they are
+    applied does not matter.  Conflicting edges are listed by
+    :func:`v_structure_conflicts`; Meek's rules, run afterwards, may still
+    orient them from arrowheads elsewhere.
+
+    Reference: Spirtes, Glymour and Scheines (2000), the orientation step of
+    the PC algorithm; Verma and Pearl (1990) for unshielded colliders.
+    """
+    A = _as_adjacency(adjacency)
+    colliders, conflicted = _collider_proposals(A, separating_sets)
+    G = A.astype(np.int8)
+    for a, k, b in colliders:
+        if (min(a, k), max(a, k)) in conflicted or (min(b, k), max(b, k)) in conflicted:
+            continue
+        G[k, a] = 0
+        G[k, b] = 0
+    return G
+
+
+def v_structures(dag) -> set[tuple[int, int, int]]:
+    """All v-structures (i, k, j), i < j: i -> k <- j with i and j not adjacent.
+
+    Works on any PDAG and reads only its directed edges.  Reference: Verma and
+    Pearl (1990).
+    """
+    G = _as_pdag(dag, "dag")
+    directed, _, _, nonadjacent = _parts(G)
+    out = set()
+    for k in np.flatnonzero(directed.sum(axis=0) >= 2).tolist():
+        parents = np.flatnonzero(directed[:, k]).tolist()
+        out.update((i, k, j) for i, j in itertools.combinations(parents, 2) if nonadjacent[i, j])
+    return out
+
+
+# ---------------------------------------------------------------------------
+# Meek rules
+
+
+def _meek_closure(G: np.ndarray, rules: frozenset[int]) -> np.ndarray:
+    """Orient undirected edges of G (int8, modified in place) by the selected Meek rules until nothing changes.
+
+    Each pass finds every orientation the rules imply on the current graph and
+    applies them together; a pair that the rules would orient both ways in the
+    same pass (possible only for graphs that no DAG extends) is left
+    undirected.  Edges are never re-oriented, so the loop ends.
+    """
+    while True:
+        directed, undirected, adjacent, nonadjacent = _parts(G)
+        if not undirected.any():
+            return G
+        D = directed.astype(np.float64)
+        NA = nonadjacent.astype(np.float64)
+        two_step = (D @ D) > 0
+        orient = np.zeros(G.shape, dtype=bool)
+        if 1 in rules:
+            # R1: a -> b - c, a and c not adjacent  =>  b -> c (else a -> b <- c would be a new v-structure).
+            orient |= undirected & ((D.T @ NA) > 0)
+        if 2 in rules:
+            # R2: a -> b -> c and a - c  =>  a -> c (else a cycle).
+            orient |= undirected & two_step
+        # R3 needs a node with two parents, R4 a directed path of length two; skip the work otherwise.
+        use_r3 = 3 in rules and bool((directed.sum(axis=0) >= 2).any())
+        use_r4 = 4 in rules and bool(two_step.any())
+        if use_r3 or use_r4:
+            tails, heads = np.nonzero(undirected)
+            into_head = directed[:, heads].T  # [e, c]: c -> head
+            if use_r3:
+                # R3: a - c -> b, a - d -> b, c and d not adjacent, a - b  =>  a -> b
+                # (b -> a would force c -> a <- d, a new v-structure).
+                W = (undirected[tails, :] & into_head).astype(np.float64)
+                hit = ((W @ NA) * W).sum(axis=1) > 0
+                orient[tails[hit], heads[hit]] = True
+            if use_r4:
+                # R4: a - d -> c -> b, a adjacent to c, b and d not adjacent, a - b  =>  a -> b
+                # (b -> a would force c -> a, then d -> a <- b, a new v-structure).
+                L = adjacent[tails, :] & into_head
+                R = (undirected[tails, :] & nonadjacent[:, heads].T).astype(np.float64)
+                hit = ((R @ D) * L).sum(axis=1) > 0
+                orient[tails[hit], heads[hit]] = True
+        orient &= ~orient.T
+        if not orient.any():
+            return G
+        tails, heads = np.nonzero(orient)
+        G[heads, tails] = 0
+
+
+def _rule_set(rules) -> frozenset[int]:
+    chosen = frozenset(int(r) for r in rules)
+    if not chosen <= set(_MEEK_RULES):
+        raise InputError(f"Meek rules are numbered 1 to 4, got {sorted(chosen)}")
+    return chosen
+
+
+def apply_meek_rules(G, rules: Iterable[int] = _MEEK_RULES) -> np.ndarray:
+    """Apply Meek's orientation rules R1-R4 to a PDAG until no rule fires; return a new PDAG.
+
+    Only undirected edges are oriented; directed edges are kept as given.
+    ``rules`` selects a subset (for example ``(1, 2, 3)``, which suffices
+    without background knowledge).  Reference: Meek (1995), "Causal inference
+    and causal explanation with background knowledge", UAI, rules R1-R4.
+    """
+    return _meek_closure(_as_pdag(G), _rule_set(rules))
+
+
+def cpdag_from_skeleton(adjacency, separating_sets: Mapping) -> np.ndarray:
+    """CPDAG from a skeleton and its separating sets: v-structures, then Meek rules (Meek 1995)."""
+    return _meek_closure(orient_v_structures(adjacency, separating_sets), frozenset(_MEEK_RULES))
+
+
+def dag_to_cpdag(dag) -> np.ndarray:
+    """The CPDAG (essential graph) of a DAG: its skeleton and v-structures, completed by Meek's rules.
+
+    Reference: Meek (1995), theorem 3 (rules R1-R3 turn the pattern into the
+    CPDAG); Chickering (1995) and Andersson, Madigan and Perlman (1997) for
+    the characterisation.
+    """
+    D = _as_dag(dag)
+    directed, _, adjacent, nonadjacent = _parts(D)
+    # i -> k is compelled by a v-structure when k has another parent j not adjacent to i.
+    compelled = directed & ((nonadjacent.astype(np.float64) @ directed.astype(np.float64)) > 0)
+    G = adjacent.astype(np.int8)
+    tails, heads = np.nonzero(compelled)
+    G[heads, tails] = 0
+    # R4 never fires without background knowledge (Meek 1995), so it is not run here.
+    return _meek_closure(G, frozenset((1, 2, 3)))
+
+
+# ---------------------------------------------------------------------------
+# background orientations
+
+
+@dataclass(frozen=True)
+class OrientationConflict:
+    """A background orientation that ``orient_with_background`` did not apply.
+
+    ``kind`` is ``"not-adjacent"``, ``"contradicts-compelled"`` (the graph
+    given already had the opposite direction) or ``"contradicts-earlier"``
+    (orientations accepted before it, through Meek's rules, imply the
+    opposite direction).
+    """
+
+    edge: tuple[int, int]
+    kind: str
+    reason: str
+
+
+def consistent_extension(G) -> np.ndarray | None:
+    """A DAG with the PDAG's skeleton, directed edges and v-structures, or None if none exists.
+
+    Reference: Dor and Tarsi (1992), "A simple algorithm to construct a
+    consistent extension of a partially oriented graph".  The node removed
+    at each step is the smallest-index one that qualifies.
+    """
+    Gb = _as_pdag(G).astype(bool)
+    p = Gb.shape[0]
+    adjacent = Gb | Gb.T
+    dag = (Gb & ~Gb.T).astype(np.int8)
+    remaining = np.ones(p, dtype=bool)
+    for _ in range(p):
+        for x in np.flatnonzero(remaining).tolist():
+            if np.any(Gb[x] & ~Gb[:, x] & remaining):
+                continue  # x has a directed edge out: not a sink
+            neighbours = adjacent[x] & remaining
+            undirected = np.flatnonzero(Gb[x] & Gb[:, x] & remaining)
+            ok = True
+            for y in undirected.tolist():
+                others = neighbours.copy()
+                others[y] = False
+                if not np.all(adjacent[y, others]):
+                    ok = False
+                    break
+            if ok:
+                dag[undirected, x] = 1
+                remaining[x] = False
+                break
+        else:
+            return None
+    return dag
+
+
+def orient_with_background(G, oriented_edges: Iterable[tuple[int, int]]):
+    """Add known orientations ``(i, j)`` meaning ``i -> j`` to a CPDAG and propagate them with Meek's rules.
+
+    Orientations are taken one at a time in the order given (put the
+    best-supported first); after each, rules R1-R4 run to a fixpoint.  One
+    that contradicts the current graph is skipped and reported.  For a CPDAG
+    this is exactly the consistency test: by Meek (1995, theorem 4) a set of
+    orientations is consistent with the class when, and only when, adding
+    them one by one and closing under R1-R4 never meets an edge already
+    oriented the other way; the graph returned then has a DAG extension
+    (see :func:`consistent_extension`).  For a graph that is not a CPDAG
+    (for example a skeleton search that made errors) the same screen runs
+    but carries no such guarantee.
+
+    Returns ``(G, conflicts)``: the new PDAG and a tuple of
+    :class:`OrientationConflict`.
+
+    Reference: Meek (1995), "Causal inference and causal explanation with
+    background knowledge"; the orientations typically come from non-Gaussian
+    noise, Hoyer, Hyvärinen, Scheines, Spirtes, Ramsey, Lacerda and Shimizu
+    (2008), "Causal discovery of linear acyclic models with arbitrary
+    distributions".
+    """
+    rules = frozenset(_MEEK_RULES)
+    original = _as_pdag(G)
+    p = original.shape[0]
+    current = _meek_closure(original.copy(), rules)
+    conflicts: list[OrientationConflict] = []
+    seen: set[tuple[int, int]] = set()
+    for edge in oriented_edges:
+        try:
+            i, j = (int(k) for k in edge)
+        except (TypeError, ValueError):
+            raise InputError(f"each background orientation must be a pair (i, j), got {edge!r}") from None
+        if not (0 <= i < p and 0 <= j < p) or i == j:
+            raise InputError(f"background orientation {i} -> {j} is not an edge between two distinct nodes 0..{p - 1}")
+        if (i, j) in seen:
+            continue
+        seen.add((i, j))
+        forward, backward = bool(current[i, j]), bool(current[j, i])
+        if not (forward or backward):
+            conflicts.append(OrientationConflict((i, j), "not-adjacent", f"{i} and {j} are not adjacent"))
+        elif backward and not forward:
+            if original[j, i] and not original[i, j]:
+                conflicts.append(OrientationConflict((i, j), "contradicts-compelled",
+                                                     f"{i} -> {j} contradicts the compelled edge {j} -> {i}"))
+            else:
+                conflicts.append(OrientationConflict((i, j), "contradicts-earlier",
+                                                     f"{i} -> {j} contradicts {j} -> {i}, implied by earlier orientations"))
+        elif forward and backward:
+            current[j, i] = 0
+            current = _meek_closure(current, rules)
+    return current, tuple(conflicts)
+
+
+# ---------------------------------------------------------------------------
+# reading graphs
+
+
+def edge_status(cpdag) -> dict[tuple[int, int], EdgeStatus]:
+    """``(i, j)`` with i < j for every adjacent pair -> ``"i->j"``, ``"j->i"`` or ``"undirected"``."""
+    G = _as_pdag(cpdag, "cpdag")
+    out: dict[tuple[int, int], EdgeStatus] = {}
+    rows, cols = np.nonzero(np.triu(G | G.T, 1))
+    for i, j in zip(rows.tolist(), cols.tolist()):
+        if G[i, j] and G[j, i]:
+            out[(i, j)] = "undirected"
+        elif G[i, j]:
+            out[(i, j)] = "i->j"
+        else:
+            out[(i, j)] = "j->i"
+    return out
+
+
+def is_acyclic(dag) -> bool:
+    """Whether the matrix, read as a directed graph, has no directed cycle (an undirected edge counts as a 2-cycle)."""
+    return _acyclic(_as_pdag(dag, "dag"))
+
+
+def _acyclic(D: np.ndarray) -> bool:
+    # Transitive closure by repeated squaring: walks of every length up to p after log2(p) steps.
+    reach = D.astype(np.float64)
+    for _ in range(max(1, int(np.ceil(np.log2(max(D.shape[0], 2)))))):
+        reach = np.minimum(reach + reach @ reach, 1.0)
+    return not np.diagonal(reach).any()
+
+
+def find_cycle(dag) -> list[int] | None:
+    """Nodes of one directed cycle in order (first node not repeated), or None; depth-first from node 0 up."""
+    D = _as_pdag(dag, "dag")
+    p = D.shape[0]
+    children = [np.flatnonzero(D[k]).tolist() for k in range(p)]
+    state = [0] * p  # 0 unvisited, 1 on the current path, 2 finished
+    for start in range(p):
+        if state[start]:
+            continue
+        path = [start]
+        iters = [iter(children[start])]
+        state[start] = 1
+        while path:
+            nxt = next(iters[-1], None)
+            if nxt is None:
+                state[path.pop()] = 2
+                iters.pop()
+            elif state[nxt] == 1:
+                return path[path.index(nxt):]
+            elif state[nxt] == 0:
+                state[nxt] = 1
+                path.append(nxt)
+                iters.append(iter(children[nxt]))
+    return None
+
+
+def topological_order(dag) -> list[int]:
+    """Causal order of a DAG: every node after its parents, the smallest index first among ties (Kahn 1962)."""
+    import heapq
+
+    D = _as_pdag(dag, "dag")
+    indegree = D.sum(axis=0).astype(int).tolist()
+    heap = [k for k, d in enumerate(indegree) if d == 0]
+    heapq.heapify(heap)
+    order = []
+    while heap:
+        k = heapq.heappop(heap)
+        order.append(k)
+        for child in np.flatnonzero(D[k]).tolist():
+            indegree[child] -= 1
+            if indegree[child] == 0:
+                heapq.heappush(heap, child)
+    if len(order) < D.shape[0]:
+        cycle = find_cycle(D)
+        raise InputError(f"the graph has a cycle: {' -> '.join(str(k) for k in cycle + [cycle[0]])}")
+    return order
+
+
+def _brief(names: Sequence[str], limit: int = 8) -> str:
+    shown = ", ".join(names[:limit])
+    return shown if len(names) <= limit else f"{shown}, ... ({len(names)} in all)"
+
+
+def _clip_line(text: str, limit: int = 60) -> str:
+    text = text.strip()
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _unquote(name: str) -> str:
+    name = name.strip()
+    if len(name) >= 2 and name[0] == name[-1] and name[0] in "\"'":
+        return name[1:-1].strip()
+    return name
+
+
+def _first_content_line(lines: list[str]) -> str | None:
+    for raw in lines:
+        s = raw.strip()
+        if s and not s.startswith("#"):
+            return s
+    return None
+
+
+def _csv_edges(text: str, label: str) -> list[tuple[int, str, str]]:
+    reader = csv.reader(io.StringIO(text))
+    edges: list[tuple[int, str, str]] = []
+    header: list[str] | None = None
+    source_col = target_col = -1
+    try:
+        for row in reader:
+            line = reader.line_num
+            if not any(field.strip() for field in row):
+                continue
+            if header is None:
+                header = [field.strip().lower() for field in row]
+                if "source" not in header or "target" not in header:
+                    raise InputError(f"graph file {label} line {line}: the CSV header must name the columns "
+                                     f"source and target, found: {_clip_line(', '.join(header))}")
+                source_col, target_col = header.index("source"), header.index("target")
+                continue
+            if len(row) <= max(source_col, target_col):
+                raise InputError(f"graph file {label} line {line}: malformed row {_clip_line(','.join(row))!r}, "
+                                 f"expected {len(header)} fields")
+            source, target = row[source_col].strip(), row[target_col].strip()
+            if not source or not target:
+                raise InputError(f"graph file {label} line {line}: malformed row {_clip_line(','.join(row))!r}, "
+                                 "source and target must both be given")
+            edges.append((line, source, target))
+    except csv.Error as exc:
+        raise InputError(f"graph file {label} line {reader.line_num}: malformed CSV ({exc})") from None
+    return edges
+
+
+def _arrow_edges(lines: list[str], label: str) -> list[tuple[int, str, str]]:
+    edges = []
+    for line, raw in enumerate(lines, start=1):
+        s = raw.strip()
+        if not s or s.startswith("#"):
+            continue
+        parts = s.split("->")
+        if len(parts) != 2 or not _unquote(parts[0]) or not _unquote(parts[1]):
+            raise InputError(f"graph file {label} line {line}: malformed line {_clip_line(s)!r}, "
+                             "expected 'source -> target'")
+        edges.append((line, _unquote(parts[0]), _unquote(parts[1])))
+    return edges
+
+
+def read_graph_file(path, names: Sequence[str]) -> np.ndarray:
+    """Read a user's DAG over the variables ``names`` and return its int8 adjacency matrix.
+
+    Two formats: a CSV edge list whose header has the columns ``source`` and
+    ``target`` (any case, other columns ignored), or a text file with one
+    ``a -> b`` per line (blank lines and lines starting with ``#`` ignored;
+    names may be quoted).  A ``.csv`` suffix, or a first line that names
+    source and target, selects CSV.  Every problem raises
+    :class:`~preflight.errors.InputError` with a one-line message: a missing
+    file, an unknown variable, a self-loop, a malformed line (with its
+    number) or a cycle (with its nodes in order).
+    """
+    names = [str(name) for name in names]
+    index = {name: k for k, name in enumerate(names)}
+    if len(index) != len(names):
+        repeated = sorted({name for name in names if names.count(name) > 1})
+        raise InputError(f"variable names must be unique, repeated: {_brief(repeated)}")
+    path = Path(path)
+    label = str(path)
+    if not path.exists():
+        raise InputError(f"graph file not found: {label}")
+    if not path.is_file():
+        raise InputError(f"graph file {label} is not a regular file")
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError:
+        raise InputError(f"graph file {label} is not UTF-8 text") from None
+    except OSError as exc:
+        raise InputError(f"cannot read graph file {label}: {exc.strerror or exc}") from None
+    lines = text.splitlines()
+    first = _first_content_line(lines)
+    looks_csv = first is not None and "->" not in first and {"source", "target"} <= {
+        field.strip().lower() for field in first.split(",")}
+    if path.suffix.lower() == ".csv" or looks_csv:
+        edges = _csv_edges(text, label)
+    else:
+        edges = _arrow_edges(lines, label)
+
+    dag = np.zeros((len(names), len(names)), dtype=np.int8)
+    for line, source, target in edges:
+        for name in (source, target):
+            if name not in index:
+                raise InputError(f"graph file {label} line {line}: unknown variable {name!r}; "
+                                 f"known variables: {_brief(names)}")
+        if source == target:
+            raise InputError(f"graph file {label} line {line}: self-loop {source} -> {target}")
+        dag[index[source], index[target]] = 1
+    cycle = find_cycle(dag)
+    if cycle is not None:
+        chain = " -> ".join(names[k] for k in cycle + [cycle[0]])
+        raise InputError(f"graph file {label} has a cycle: {chain}")
+    return dag
