@@ -66,7 +66,9 @@ def ols(X: np.ndarray, y: np.ndarray, intercept: bool = True) -> LinearFit:
     if Xc.shape[1]:
         from scipy.linalg import lstsq
 
-        beta_scaled, _, rank, _ = lstsq(Xc / scale, yc, lapack_driver="gelsy", check_finite=False)
+        # A relative cutoff so exact collinearity (a binary column and its
+        # square) is seen as rank deficiency instead of fitted through round-off.
+        beta_scaled, _, rank, _ = lstsq(Xc / scale, yc, cond=1e-10, lapack_driver="gelsy", check_finite=False)
         beta = beta_scaled / scale
         fitted_c = Xc @ beta
     else:
@@ -166,7 +168,9 @@ def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     lo, hi = float(x.min()), float(x.max())
     if n_interior:
         interior = np.quantile(x, np.linspace(0, 1, n_interior + 2)[1:-1])
-        interior = np.unique(interior)
+        # Knots must lie strictly inside (lo, hi): with heavy ties a quantile
+        # can sit on an end, and the basis rows would stop summing to one.
+        interior = np.unique(interior[(interior > lo) & (interior < hi)])
     else:
         interior = np.array([])
     knots = np.concatenate([[lo] * (degree + 1), interior, [hi] * (degree + 1)])

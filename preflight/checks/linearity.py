@@ -1,0 +1,287 @@
+"""Linearity of y in x: Ramsey RESET, a regression-spline F-test, Harvey-Collier.
+
+Each check compares the straight-line least-squares fit of y on [1, x] with
+a richer alternative.  The caller has already partialled out any
+conditioning set, so x and y are plain 1-D arrays.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from preflight.checks._validate import as_vector, same_length
+from preflight.errors import InputError
+from preflight.fit import bspline_basis, ols, spline_df
+from preflight.results import CheckResult
+
+RAMSEY_RESET = "ramsey reset"
+SPLINE_F_TEST = "spline f-test"
+HARVEY_COLLIER = "harvey-collier"
+
+_R2_GAIN = "R-squared gain"
+
+
+def _pair(x, y, min_n: int) -> tuple[np.ndarray, np.ndarray]:
+    xv = as_vector(x, name="x", min_n=min_n)
+    yv = as_vector(y, name="y", min_n=min_n)
+    same_length(xv, yv, names=("x", "y"))
+    if np.ptp(xv) == 0:
+        raise InputError("x is constant; a regression on it is undefined")
+    if np.ptp(yv) == 0:
+        raise InputError("y is constant; there is nothing to explain")
+    return xv, yv
+
+
+def full_rank_columns(X: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
+    """The columns of X that are linearly independent of the intercept and of each other.
+
+    A pivoted QR of the centred, unit-norm columns keeps a column while its
+    pivot exceeds ``tolerance`` times the largest.  fit.ols's least-squares
+    driver does not detect exact collinearity (a binary regressor and its
+    square, a spline basis on tied x) and then returns a wrong RSS and rank,
+    so designs that can repeat a direction are screened here first.
+    """
+    from scipy.linalg import qr
+
+    X = np.asarray(X, dtype=np.float64)
+    if X.ndim == 1:
+        X = X[:, None]
+    centred = X - X.mean(axis=0)
+    norms = np.sqrt((centred**2).sum(axis=0))
+    scale = norms.max() if norms.size else 0.0
+    candidates = np.flatnonzero(norms > tolerance * max(scale, np.finfo(float).tiny))
+    if candidates.size == 0:
+        return X[:, :0]
+    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="economic", pivoting=True)
+    diagonal = np.abs(np.diag(r))
+    kept = pivots[: int(np.sum(diagonal > tolerance * diagonal[0]))]
+    return X[:, np.sort(candidates[kept])]
+
+
+def _nested_f(
+    rss_small: float, rank_small: int, rss_large: float, rank_large: int, n: int
+) -> tuple[float, float | None, int, int]:
+    """F statistic and p-value of a nested least-squares comparison."""
+    from scipy import stats
+
+    df_num = rank_large - rank_small
+    df_den = n - rank_large
+    if df_num <= 0 or df_den <= 0:
+        return math.nan, None, df_num, df_den
+    if rss_large <= 0.0:
+        # An exact fit of the larger model: any improvement is infinitely significant.
+        return (math.inf, 0.0, df_num, df_den) if rss_small > 0.0 else (math.nan, None, df_num, df_den)
+    # Round-off can make the larger model's RSS exceed the smaller one's by an ulp.
+    gain = max(rss_small - rss_large, 0.0)
+    f_stat = (gain / df_num) / (rss_large / df_den)
+    return f_stat, float(stats.f.sf(f_stat, df_num, df_den)), df_num, df_den
+
+
+def ramsey_reset(x, y, powers: tuple[int, ...] = (2, 3)) -> CheckResult:
+    """Ramsey's RESET: do powers of the fitted values improve the straight-line fit?
+
+    Null hypothesis: E[y | x] is linear in x (with homoscedastic Gaussian
+    errors the F statistic is then exactly F-distributed).  y is regressed on
+    [1, x] and on [1, x, yhat^p for p in powers].  The powers are not formed
+    raw: with s the fitted values standardised to mean 0 and sd 1 and
+    r = mean / sd of the fitted values, yhat^p / sd^p = sum_k C(p, k) r^(p-k) s^k,
+    and the k = 0, 1 terms lie in the span of [1, x] already, so the column
+    sum_{k>=2} C(p, k) r^(p-k) s^k spans the same model.  F is unchanged but
+    the columns stay well scaled however large the fitted values are.  For
+    powers (2, ..., p) the span is that of s^2, ..., s^p, which are used.  Reference:
+    Ramsey (1969).  Effect: the gain in R-squared.
+    """
+    powers = tuple(int(p) for p in powers)
+    if not powers or len(set(powers)) != len(powers) or min(powers) < 2:
+        raise InputError(f"powers must be distinct whole numbers of at least 2, got {powers}")
+    xv, yv = _pair(x, y, min_n=len(powers) + 3)
+    n = xv.shape[0]
+    linear = ols(xv, yv)
+    fitted = yv - linear.residuals
+    spread = fitted.std()
+    if spread <= 1e-12 * yv.std():
+        return CheckResult(name=RAMSEY_RESET, statistic=math.nan, p_value=None, effect=0.0, effect_name=_R2_GAIN,
+                           n=n, note="fitted values constant (zero slope): RESET has no alternative to test")
+    standardised = (fitted - fitted.mean()) / spread
+    if set(powers) == set(range(2, max(powers) + 1)):
+        columns = [standardised**p for p in powers]
+    else:
+        # A gap in the powers ties the span to the mean of the fitted values.
+        ratio = float(fitted.mean()) / spread
+        columns = [sum(math.comb(p, k) * ratio ** (p - k) * standardised**k for k in range(2, p + 1))
+                   for p in powers]
+    augmented = ols(full_rank_columns(np.column_stack([xv] + columns)), yv)
+    f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, augmented.rss, augmented.rank, n)
+    return CheckResult(name=RAMSEY_RESET, statistic=f_stat, p_value=p_value,
+                       effect=augmented.r_squared - linear.r_squared, effect_name=_R2_GAIN, n=n,
+                       note=(f"powers {', '.join(map(str, powers))} of the fitted values; "
+                             f"F({df_num}, {df_den})"))
+
+
+@dataclass(frozen=True)
+class SplineComparison:
+    """Least-squares fits of y on [1, x] and on a cubic regression spline in x."""
+
+    df: int
+    """Columns of the spline basis asked for (the spline model's parameters, intercept included)."""
+    n: int
+    rss_linear: float
+    rss_spline: float
+    rank_linear: int
+    rank_spline: int
+    tss: float
+    f_statistic: float
+    p_value: float | None
+    df_num: int
+    df_den: int
+    usable: bool
+    """False when x is too tied for the quantile-knot basis (it no longer sums to one)."""
+
+    @property
+    def r_squared_gain(self) -> float:
+        return (self.rss_linear - self.rss_spline) / self.tss if self.tss > 0 else 0.0
+
+    @property
+    def delta_bic(self) -> float:
+        """BIC(spline) - BIC(linear) with Gaussian likelihoods; negative favours the spline."""
+        if self.rss_spline <= 0 or self.rss_linear <= 0:
+            return -math.inf if self.rss_spline < self.rss_linear else math.nan
+        extra_parameters = self.rank_spline - self.rank_linear
+        return self.n * math.log(self.rss_spline / self.rss_linear) + extra_parameters * math.log(self.n)
+
+
+def spline_comparison(x, y, df: int | None = None, max_df: int = 10) -> SplineComparison:
+    """Fit the straight line and the regression spline that ``spline_f_test`` compares.
+
+    The spline basis is :func:`preflight.fit.bspline_basis` with its first
+    column dropped (the intercept stands in for it); it spans every cubic,
+    so the straight line is nested in it.
+    """
+    xv, yv = _pair(x, y, min_n=6)
+    n = xv.shape[0]
+    chosen = spline_df(n, max_df) if df is None else int(df)
+    if chosen < 4:
+        raise InputError(f"spline df must be at least 4 (a cubic), got {chosen}")
+    if n < chosen + 2:
+        raise InputError(f"the spline F-test with df={chosen} needs at least {chosen + 2} observations, got {n}")
+    linear = ols(xv, yv)
+    basis = bspline_basis(xv, chosen)
+    usable = bool(np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8))
+    if not usable:
+        return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=linear.rss, rank_linear=linear.rank,
+                                rank_spline=linear.rank, tss=linear.tss, f_statistic=math.nan, p_value=None,
+                                df_num=0, df_den=n - linear.rank, usable=False)
+    spline = ols(full_rank_columns(basis[:, 1:]), yv)
+    f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, spline.rss, spline.rank, n)
+    return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=min(spline.rss, linear.rss),
+                            rank_linear=linear.rank, rank_spline=spline.rank, tss=linear.tss, f_statistic=f_stat,
+                            p_value=p_value, df_num=df_num, df_den=df_den, usable=True)
+
+
+def spline_f_test(x, y, df: int | None = None, max_df: int = 10) -> CheckResult:
+    """Nested F-test of the straight line against a cubic regression spline.
+
+    Null hypothesis: E[y | x] is linear in x (exact F under homoscedastic
+    Gaussian errors).  The spline has ``df`` columns (default
+    :func:`preflight.fit.spline_df`, at most ``max_df``) with interior knots
+    at quantiles of x.  Reference: the extra-sum-of-squares F-test of nested
+    linear models (common practice), with regression splines after de Boor
+    (1978).  Effect: gain in R-squared.  The note records df and the change
+    in BIC (spline minus linear; negative favours the spline).
+    """
+    comparison = spline_comparison(x, y, df=df, max_df=max_df)
+    if not comparison.usable:
+        return CheckResult(name=SPLINE_F_TEST, statistic=math.nan, p_value=None, effect=0.0, effect_name=_R2_GAIN,
+                           n=comparison.n, note=f"df={comparison.df}; x is too tied for quantile knots, no test")
+    if comparison.p_value is None:
+        return CheckResult(name=SPLINE_F_TEST, statistic=math.nan, p_value=None, effect=0.0, effect_name=_R2_GAIN,
+                           n=comparison.n,
+                           note=(f"df={comparison.df}; the spline adds nothing to the line "
+                                 "(too few distinct x), no test"))
+    return CheckResult(name=SPLINE_F_TEST, statistic=comparison.f_statistic, p_value=comparison.p_value,
+                       effect=comparison.r_squared_gain, effect_name=_R2_GAIN, n=comparison.n,
+                       note=(f"df={comparison.df}; F({comparison.df_num}, {comparison.df_den}); "
+                             f"delta BIC (spline - linear) = {comparison.delta_bic:.6g}"))
+
+
+def recursive_residuals(x, y) -> np.ndarray:
+    """Standardised one-step-ahead prediction errors of the straight line, in the given order.
+
+    w_t = (y_t - a_{t-1} - b_{t-1} x_t) / sqrt(1 + 1/(t-1) + (x_t - mean_{t-1})^2 / Sxx_{t-1}),
+    where a, b, mean and Sxx come from the first t-1 observations.  The
+    running means and co-moments are Welford's updates written as cumulative
+    sums (O(n), no matrix inverse to drift).  The first residual is for the
+    first observation after two distinct x values have been seen; under a
+    correct linear model with iid N(0, s^2) errors the w_t are iid N(0, s^2).
+    Reference: Brown, Durbin & Evans (1975).
+    """
+    xv = as_vector(x, name="x", min_n=3)
+    yv = as_vector(y, name="y", min_n=3)
+    same_length(xv, yv, names=("x", "y"))
+    distinct = np.flatnonzero(xv != xv[0])
+    if distinct.size == 0:
+        raise InputError("x is constant; a regression on it is undefined")
+    first = int(distinct[0]) + 1  # first index predicted from a sample with two distinct x
+    # Centring removes the common offset so the cumulative sums carry no large constant.
+    xc = xv - xv.mean()
+    yc = yv - yv.mean()
+    counts = np.arange(1, xv.shape[0] + 1, dtype=np.float64)
+    mean_x = np.cumsum(xc) / counts
+    mean_y = np.cumsum(yc) / counts
+    prev_x = np.concatenate([[xc[0]], mean_x[:-1]])
+    sxx = np.cumsum((xc - prev_x) * (xc - mean_x))
+    sxy = np.cumsum((xc - prev_x) * (yc - mean_y))
+    # Quantities of the first t observations predict observation t (0-based).
+    t = np.arange(first, xv.shape[0])
+    before = t - 1
+    slope = sxy[before] / sxx[before]
+    offset = xc[t] - mean_x[before]
+    error = yc[t] - mean_y[before] - slope * offset
+    scale = np.sqrt(1.0 + 1.0 / t + offset * offset / sxx[before])
+    return error / scale
+
+
+def harvey_collier(x, y) -> CheckResult:
+    """Harvey-Collier test: do the recursive residuals, ordered by x, have mean zero?
+
+    Null hypothesis: E[y | x] is linear in x.  The observations are sorted by
+    x (stable sort, so ties keep their input order) so that curvature shows
+    as a drift in the one-step-ahead errors; the statistic is the one-sample
+    t of the n - 2 recursive residuals, on n - 3 degrees of freedom.
+    Reference: Harvey & Collier (1977).  Effect: mean / sd of the recursive
+    residuals (the t statistic over sqrt(n - 2)).
+
+    statsmodels' ``linear_harvey_collier`` drops the first three entries
+    whatever the number of regressors, so with [1, x] it leaves out one
+    residual more than this function does.
+    """
+    from scipy import stats
+
+    xv, yv = _pair(x, y, min_n=5)
+    order = np.argsort(xv, kind="stable")
+    residuals = recursive_residuals(xv[order], yv[order])
+    m = residuals.shape[0]
+    n = xv.shape[0]
+    if m < 3 or np.ptp(residuals) == 0:
+        return CheckResult(name=HARVEY_COLLIER, statistic=math.nan, p_value=None, effect=None,
+                           effect_name="standardised mean recursive residual", n=n,
+                           note=f"{m} recursive residuals, too few or all equal: no test")
+    mean = float(residuals.mean())
+    sd = float(residuals.std(ddof=1))
+    t_stat = mean / sd * math.sqrt(m)
+    p_value = float(2.0 * stats.t.sf(abs(t_stat), m - 1))
+    note = f"sorted by x; t on {m - 1} df from {m} recursive residuals"
+    return CheckResult(name=HARVEY_COLLIER, statistic=t_stat, p_value=p_value, effect=mean / sd,
+                       effect_name="standardised mean recursive residual", n=n, note=note)
+
+
+def linearity_checks(x, y, max_df: int = 10) -> tuple[CheckResult, ...]:
+    """Ramsey RESET and the spline F-test, in that order (Harvey-Collier is left to callers who want it).
+
+    Null hypothesis of both: E[y | x] is linear in x.  References: see the
+    individual functions.
+    """
+    return (ramsey_reset(x, y), spline_f_test(x, y, max_df=max_df))
