@@ -44,7 +44,7 @@ def test_likelihood_ratio_matches_tanh_formula_for_sparse_data():
     xs, ys = (x - x.mean()) / x.std(), (y - y.mean()) / y.std()
     rho = np.mean(xs * ys)
     expected = rho * np.mean(xs * np.tanh(ys) - np.tanh(xs) * ys)
-    result = pairwise_likelihood_ratio(x, y)
+    result = pairwise_likelihood_ratio(x, y, density="super-gaussian")
     assert result.statistic == pytest.approx(expected, rel=1e-12)
     assert result.effect == result.statistic and result.p_value is None
     assert "pairwise likelihood ratio" in result.name
@@ -66,6 +66,21 @@ def test_likelihood_ratio_sign_points_from_cause_to_effect(family_index, family,
     assert correct >= 95
 
 
+def test_entropy_ratio_orients_sub_gaussian_cause_with_sparse_noise():
+    # Seeded simulation: uniform cause, Laplace noise, the case where the
+    # first-order tanh form misleads; the entropy form (the default) is right
+    # in at least 95 % of replicates at n = 1000.
+    rng = np.random.default_rng(12)
+    correct_entropy = correct_tanh = 0
+    for _ in range(100):
+        x = rng.uniform(-1.7, 1.7, 1000)
+        y = 0.8 * x + 0.6 * rng.laplace(0, 0.7, 1000)
+        correct_entropy += pairwise_likelihood_ratio(x, y).statistic > 0
+        correct_tanh += pairwise_likelihood_ratio(x, y, density="auto").statistic > 0
+    assert correct_entropy >= 95
+    assert correct_entropy > correct_tanh
+
+
 def test_likelihood_ratio_is_exactly_antisymmetric():
     rng = np.random.default_rng(3)
     for family in ("laplace", "uniform", "gaussian"):
@@ -74,7 +89,7 @@ def test_likelihood_ratio_is_exactly_antisymmetric():
         forward = pairwise_likelihood_ratio(x, y)
         backward = pairwise_likelihood_ratio(y, x)
         assert backward.statistic == -forward.statistic
-        for density in ("super-gaussian", "sub-gaussian"):
+        for density in ("super-gaussian", "sub-gaussian", "auto"):
             assert (pairwise_likelihood_ratio(y, x, density=density).statistic
                     == -pairwise_likelihood_ratio(x, y, density=density).statistic)
 
@@ -104,7 +119,7 @@ def test_sub_gaussian_model_flips_the_sign_and_auto_follows_kurtosis():
     y = x + rng.uniform(-1, 1, 2000)
     sparse_model = pairwise_likelihood_ratio(x, y, density="super-gaussian")
     sub_model = pairwise_likelihood_ratio(x, y, density="sub-gaussian")
-    automatic = pairwise_likelihood_ratio(x, y)
+    automatic = pairwise_likelihood_ratio(x, y, density="auto")
     assert sub_model.statistic == -sparse_model.statistic
     assert sparse_model.statistic < 0 < sub_model.statistic
     assert automatic.statistic == sub_model.statistic

@@ -1,0 +1,82 @@
+"""``preflight.check``: the whole pipeline behind one function.
+
+load -> screen -> structure -> skeleton -> battery -> evidence -> rules -> report.
+The CLI calls exactly this.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import os
+from dataclasses import replace
+from typing import Any, Callable
+
+import numpy as np
+
+from preflight._version import __version__
+from preflight.errors import InputError
+from preflight.evidence import Tagged, adjust_families, significant
+from preflight.io import LoadedData, load_table
+from preflight.policy import LEVELS, Policy, build_policy, level_rank
+from preflight.report.model import CAUTIONS, Report
+from preflight.results import CheckResult
+
+Progress = Callable[[str, int, int], None]
+
+LOAD_OPTIONS = ("sep", "columns", "exclude", "missing")
+
+
+def _no_progress(stage: str, done: int, total: int) -> None:
+    return None
+
+
+def check(
+    data,
+    *,
+    sep: str | None = None,
+    columns: list[str] | None = None,
+    exclude: list[str] | None = None,
+    missing: str = "drop",
+    graph: str | None = None,
+    policy: Policy | None = None,
+    policy_file: str | None = None,
+    progress: Progress | None = None,
+    keep_samples: bool = True,
+    **settings: Any,
+) -> Report:
+    """Check whether the data justify orienting causal edges, and how far.
+
+    Parameters
+    ----------
+    data : str, os.PathLike or pandas.DataFrame
+        A CSV, TSV or Parquet path (``"-"`` reads CSV from stdin) or a DataFrame.
+    sep, columns, exclude, missing
+        Reading options (see :func:`preflight.io.load_table`).
+    graph : str, optional
+        A hypothesised DAG (CSV edge list ``source,target`` or lines ``a -> b``);
+        without it the skeleton is estimated (PC-stable).
+    policy : Policy, optional
+        A ready policy; otherwise one is built from ``policy_file``,
+        ``[tool.preflight]`` in ./pyproject.toml and ``settings``
+        (any :class:`Policy` field, e.g. ``alpha=0.01, seed=3``).
+    progress : callable(stage, done, total), optional
+        Called as work proceeds.
+
+    Returns
+    -------
+    Report
+    """
+    if policy is None:
+        policy, _ = build_policy(settings, policy_file=policy_file)
+    elif settings:
+        policy = replace(policy, **settings)
+    progress = progress or _no_progress
+    loaded = load_table(data, sep=sep, columns=columns, exclude=exclude, missing=missing)
+    return analyse(loaded, policy, graph=graph, progress=progress, keep_samples=keep_samples)
+
+
+def analyse(loaded: LoadedData, policy: Policy, *, graph: str | None = None,
+            progress: Progress = _no_progress, keep_samples: bool = True) -> Report:
+    from preflight import pipeline
+
+    return pipeline.run(loaded, policy, graph=graph, progress=progress, keep_samples=keep_samples)

@@ -1,0 +1,324 @@
+"""The pair battery: every assumption check, in both directions of a pair.
+
+For a pair (x, y) with conditioning set Z, both variables are first
+residualised on Z (Frisch-Waugh-Lovell: the partial slope is unchanged),
+then y is regressed on x ("forward") and x on y ("reverse").  Under a linear
+non-Gaussian model x -> y the forward residual is independent of x while the
+reverse residual is not (Shimizu et al. 2006); with Gaussian noise both are
+independent and the direction is not identifiable.
+
+Computing the checks (:func:`run_pair_battery`) is separated from judging
+them (:func:`judge_pair`), because judging needs p-values adjusted across
+all pairs.
+"""
+
+from __future__ import annotations
+
+import zlib
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from preflight.evidence import Tagged, significant
+from preflight.fit import bspline_basis, ols, residualize, simple_slope, spline_df
+from preflight.policy import Policy
+from preflight.results import CheckResult
+
+
+def derived_seed(seed: int, *labels: str) -> int:
+    """A seed that depends on the names involved, not on column positions.
+
+    Reordering columns therefore leaves every subsample and permutation as it was.
+    """
+    text = "\x1f".join(sorted(labels))
+    return int(np.random.SeedSequence([seed & 0xFFFFFFFF, zlib.crc32(text.encode())]).generate_state(1)[0])
+
+
+@dataclass(frozen=True)
+class PairBattery:
+    """Raw (unadjusted) checks of one pair."""
+
+    x: str
+    y: str
+    adjacent: bool
+    n: int
+    conditioning: tuple[str, ...]
+    checks: tuple[Tagged, ...]
+    likelihood_ratio: float | None = None
+    """Hyvärinen-Smith R on the partial residuals; > 0 favours x -> y."""
+
+
+@dataclass(frozen=True)
+class PairFindings:
+    x: str
+    y: str
+    adjacent: bool
+    orientation: str
+    lingam_orientation: str
+    anm_orientation: str
+    flags: tuple[str, ...]
+    facts: frozenset[str]
+    checks: tuple[CheckResult, ...]
+    favoured: str
+    """``forward`` or ``reverse``: the direction whose residual looks most independent."""
+    conditioning: tuple[str, ...] = ()
+    note: str = ""
+
+
+def _hsic_kwargs(policy: Policy, seed: int) -> dict:
+    return dict(
+        exact_max_n=policy.hsic_exact_max_n,
+        max_n=policy.hsic_max_n,
+        n_features=policy.hsic_features,
+        permutations=policy.hsic_permutations,
+        seed=seed,
+    )
+
+
+def association_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, n_conditioning: int,
+                       policy: Policy, seed: int) -> list[Tagged]:
+    from preflight.checks.association import pearson_fisher_z, spearman
+    from preflight.checks.independence import hsic
+
+    label = f"({x_name}, {y_name})"
+    return [
+        Tagged("association", "pair", pearson_fisher_z(x, y, n_conditioning=n_conditioning).with_name(f"pearson {label}")),
+        Tagged("association", "pair", spearman(x, y).with_name(f"spearman {label}")),
+        Tagged("association", "pair", hsic(x, y, **_hsic_kwargs(policy, seed)).with_name(f"hsic {label}")),
+    ]
+
+
+def _degenerate(name: str, n: int, why: str) -> CheckResult:
+    return CheckResult(name=name, statistic=float("nan"), p_value=None, n=n, note=f"not computed: {why}")
+
+
+def _direction_checks(regressor: np.ndarray, response: np.ndarray, label: str, role: str,
+                      policy: Policy, seed: int) -> list[Tagged]:
+    from preflight.checks.independence import hsic
+    from preflight.checks.linearity import linearity_checks
+    from preflight.checks.normality import normality_checks
+    from preflight.checks.variance import variance_checks
+
+    _, residual = simple_slope(regressor, response)
+    n = regressor.shape[0]
+    spread = float(np.std(response))
+    if not np.std(regressor) > 0 or not np.std(residual) > 1e-10 * max(spread, 1e-300):
+        # An exact linear relation (a duplicated or derived column) leaves no
+        # noise to test; the collinearity screen reports the cause.
+        why = "the regressor is constant" if not np.std(regressor) > 0 else "the residual is zero (exact linear relation)"
+        return [Tagged(None, role, _degenerate(f"battery ({label})", n, why))]
+    out: list[Tagged] = []
+    for result in normality_checks(residual, max_n=policy.shapiro_max_n, seed=seed):
+        out.append(Tagged("noise normality", role, result.with_name(f"{result.name} ({label})")))
+    for result in linearity_checks(regressor, response, max_df=policy.spline_max_df):
+        out.append(Tagged("linearity", role, result.with_name(f"{result.name} ({label})")))
+    for result in variance_checks(residual, regressor):
+        out.append(Tagged("variance", role, result.with_name(f"{result.name} ({label})")))
+    independence = hsic(regressor, residual, **_hsic_kwargs(policy, seed))
+    out.append(Tagged("residual independence", role, independence.with_name(f"hsic ({label})")))
+    return out
+
+
+def _spline_residual(regressor: np.ndarray, response: np.ndarray, max_df: int,
+                     Z: np.ndarray | None = None) -> np.ndarray:
+    basis = bspline_basis(regressor, spline_df(regressor.shape[0], max_df))[:, 1:]
+    if Z is not None and Z.size:
+        basis = np.column_stack([basis, Z])
+    return ols(basis, response).residuals
+
+
+def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str,
+                          policy: Policy, seed: int, Z_for_y: np.ndarray | None = None,
+                          Z_for_x: np.ndarray | None = None) -> list[Tagged]:
+    """RESIT-style check (Peters et al. 2014): spline residual against regressor, both ways.
+
+    ``x`` and ``y`` are the raw columns: partialling a conditioning set out
+    linearly would bend a nonlinear mechanism.  Instead each response's other
+    parents (``Z_for_y``, ``Z_for_x``) enter the spline regression linearly
+    (a partially linear model).
+    """
+    from preflight.checks.independence import hsic
+
+    out = []
+    for regressor, response, Z, label, role in ((x, y, Z_for_y, f"{y_name} on {x_name}", "forward"),
+                                                 (y, x, Z_for_x, f"{x_name} on {y_name}", "reverse")):
+        residual = _spline_residual(regressor, response, policy.spline_max_df, Z)
+        result = hsic(regressor, residual, **_hsic_kwargs(policy, seed))
+        out.append(Tagged("additive-noise independence", role,
+                          replace(result, name=f"hsic of spline residual ({label})",
+                                  note=(result.note + "; " if result.note else "") + "residual of a regression spline")))
+    return out
+
+
+def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: np.ndarray | None,
+                     conditioning: tuple[str, ...], adjacent: bool, policy: Policy,
+                     Z_for_y: np.ndarray | None = None, Z_for_x: np.ndarray | None = None) -> PairBattery:
+    """Run the battery on one pair.
+
+    ``Z`` holds the conditioning columns (or None) partialled out of both
+    variables; ``Z_for_y`` and ``Z_for_x`` are the other parents of each
+    variable, used by the additive-noise check.
+    """
+    from preflight.checks.direction import pairwise_likelihood_ratio
+
+    seed = derived_seed(policy.seed, x_name, y_name)
+    xr = residualize(x, Z)
+    yr = residualize(y, Z)
+    checks = association_checks(xr, yr, x_name, y_name, len(conditioning), policy, seed)
+    lr_value = None
+    if adjacent:
+        checks += _direction_checks(xr, yr, f"{y_name} on {x_name}", "forward", policy, seed)
+        checks += _direction_checks(yr, xr, f"{x_name} on {y_name}", "reverse", policy, seed)
+        lr = pairwise_likelihood_ratio(xr, yr).with_name(f"pairwise likelihood ratio ({x_name} -> {y_name} if > 0)")
+        lr_value = float(lr.statistic)
+        checks.append(Tagged(None, "pair", lr))
+        linear_p = [t.result.p_value for t in checks if t.family == "linearity" and t.result.p_value is not None]
+        if linear_p and min(linear_p) < policy.alpha:
+            checks += additive_noise_checks(x, y, x_name, y_name, policy, seed, Z_for_y, Z_for_x)
+    return PairBattery(x=x_name, y=y_name, adjacent=adjacent, n=int(x.shape[0]),
+                       conditioning=conditioning, checks=tuple(checks), likelihood_ratio=lr_value)
+
+
+# ---------------------------------------------------------------- judging
+
+def _of(checks: list[Tagged], family: str, role: str) -> list[CheckResult]:
+    return [t.result for t in checks if t.family == family and t.role == role]
+
+
+def _material_departure(results: list[CheckResult], alpha: float, floor: float) -> bool:
+    return any(significant(r, alpha) and r.effect is not None and abs(r.effect) >= floor for r in results)
+
+
+def _nongaussian(results: list[CheckResult], policy: Policy) -> bool:
+    from preflight.checks.normality import is_nongaussian
+
+    if not results:
+        return False
+    return bool(is_nongaussian(results, policy.alpha,
+                               min_abs_skew=policy.nongaussian_min_abs_skew,
+                               min_abs_excess_kurtosis=policy.nongaussian_min_abs_excess_kurtosis,
+                               p_key="p_adjusted"))
+
+
+def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
+               noise_dependence: CheckResult | None = None) -> PairFindings:
+    """Turn one pair's adjusted checks into flags, facts and an orientation.
+
+    ``noise_dependence`` is the adjusted HSIC between the two variables'
+    structural noise estimates, if the structural view computed it.
+    """
+    alpha = policy.alpha
+    association = [t.result for t in checks if t.family == "association"]
+    associated = any(significant(r, alpha) for r in association)
+    flags: list[str] = []
+    facts: set[str] = set()
+    judged: list[CheckResult] = []
+
+    if not associated:
+        flags.append("no-association")
+
+    if not battery.adjacent:
+        facts.add("not-adjacent")
+        for t in checks:
+            judged.append(t.result)
+        if noise_dependence is not None:
+            judged.append(replace(noise_dependence, passed=not significant(noise_dependence, alpha)))
+        return PairFindings(battery.x, battery.y, False, "undetermined", "undetermined", "undetermined",
+                            tuple(flags), frozenset(facts | set(flags)), tuple(judged), "forward",
+                            battery.conditioning)
+
+    facts.add("adjacent")
+    indep = {role: not any(significant(r, alpha) for r in _of(checks, "residual independence", role))
+             for role in ("forward", "reverse")}
+    hsic_p = {role: min((r.p_adjusted if r.p_adjusted is not None else 1.0)
+                        for r in _of(checks, "residual independence", role)) for role in ("forward", "reverse")}
+    gaussian = {role: not _nongaussian(_of(checks, "noise normality", role), policy) for role in ("forward", "reverse")}
+    lr = battery.likelihood_ratio or 0.0
+
+    lingam = "undetermined"
+    if not (gaussian["forward"] and gaussian["reverse"]):
+        if indep["forward"] and not indep["reverse"] and lr > 0:
+            lingam = "x->y"
+        elif indep["reverse"] and not indep["forward"] and lr < 0:
+            lingam = "y->x"
+    anm = "undetermined"
+    anm_checks = {role: _of(checks, "additive-noise independence", role) for role in ("forward", "reverse")}
+    if anm_checks["forward"] and anm_checks["reverse"]:
+        anm_indep = {role: not any(significant(r, alpha) for r in anm_checks[role]) for role in anm_checks}
+        if anm_indep["forward"] and not anm_indep["reverse"]:
+            anm = "x->y"
+        elif anm_indep["reverse"] and not anm_indep["forward"]:
+            anm = "y->x"
+
+    # The favoured direction is the one whose residual the evidence says is
+    # the noise: the orientation if there is one, else the one that looks
+    # less dependent.  Departures in the other direction are expected.
+    orientation_found = lingam if lingam != "undetermined" else anm
+    if orientation_found == "x->y":
+        favoured = "forward"
+    elif orientation_found == "y->x":
+        favoured = "reverse"
+    else:
+        favoured = "forward" if hsic_p["forward"] >= hsic_p["reverse"] else "reverse"
+
+    if gaussian["forward"] and gaussian["reverse"]:
+        flags.append("gaussian-noise")
+    nonlinear = _material_departure(_of(checks, "linearity", favoured), alpha, policy.nonlinear_min_r2_gain)
+    # The residual of a straight line through a curve has a spread that
+    # follows the curvature, so spread is judged only where the line fits.
+    heteroscedastic = (not nonlinear and
+                       _material_departure(_of(checks, "variance", favoured), alpha, policy.heteroscedastic_min_r2))
+    if nonlinear:
+        flags.append("nonlinear")
+    if heteroscedastic:
+        flags.append("heteroscedastic")
+    # A non-Gaussian hidden common cause makes both regressions look like the
+    # anti-causal one: residuals whose spread changes with the regressor.
+    # HSIC can miss a change of spread that Breusch-Pagan or White see, so
+    # either counts as dependence here.  A heteroscedastic mechanism cannot
+    # be told apart from confounding at the pair level; both flags then stand.
+    dependent = {role: (not indep[role]) or _material_departure(_of(checks, "variance", role), alpha,
+                                                                 policy.heteroscedastic_min_r2)
+                 for role in ("forward", "reverse")}
+    if dependent["forward"] and dependent["reverse"] and not nonlinear and "gaussian-noise" not in flags:
+        flags.append("confounding-suspected")
+        facts.add("residuals-dependent-both-ways")
+
+    # Dependent structural noise estimates count as a confounding signal only
+    # where the pair's own battery could not orient the edge: the estimates
+    # rest on the global order, which one nonlinear or confounded corner of
+    # the table can scramble, while a clean one-way independence here is
+    # direct evidence against a hidden common cause of this pair.
+    if (noise_dependence is not None and significant(noise_dependence, alpha) and lingam == "undetermined"
+            and not nonlinear and "gaussian-noise" not in flags and "confounding-suspected" not in flags):
+        flags.append("confounding-suspected")
+        facts.add("noise-estimates-dependent")
+
+    facts.add("lingam-oriented" if lingam != "undetermined" else "lingam-undetermined")
+    facts.add("anm-oriented" if anm != "undetermined" else "anm-undetermined")
+
+    guard_families = {"linearity", "variance", "residual independence", "additive-noise independence"}
+    for t in checks:
+        r = t.result
+        if t.family == "noise normality":
+            passed = None if r.p_value is None else significant(r, alpha)
+        elif t.family in guard_families and t.role in ("forward", "reverse"):
+            if t.role != favoured:
+                passed = None
+                r = replace(r, note=(r.note + "; " if r.note else "") +
+                            "direction not favoured by the evidence: a departure here is expected under non-Gaussian noise")
+            elif t.family in ("linearity",):
+                passed = not _material_departure([r], alpha, policy.nonlinear_min_r2_gain)
+            elif t.family == "variance":
+                passed = not _material_departure([r], alpha, policy.heteroscedastic_min_r2)
+            else:
+                passed = not significant(r, alpha)
+        else:
+            passed = None
+        judged.append(replace(r, passed=passed))
+    if noise_dependence is not None:
+        judged.append(replace(noise_dependence, passed=not significant(noise_dependence, alpha)))
+
+    orientation = lingam if lingam != "undetermined" else anm
+    return PairFindings(battery.x, battery.y, True, orientation, lingam, anm, tuple(flags),
+                        frozenset(facts | set(flags)), tuple(judged), favoured, battery.conditioning)

@@ -1,0 +1,294 @@
+"""Command line: a thin layer over :func:`preflight.check`.
+
+Exit codes (DESIGN.md): 0 the conclusion meets --require; 1 the data support
+only a weaker conclusion; 2 usage or input error; 3 internal error.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+
+import click
+
+from preflight._version import __version__
+from preflight.errors import InputError
+from preflight.policy import LEVELS
+
+EXIT_PASS, EXIT_WEAKER, EXIT_INPUT, EXIT_INTERNAL = 0, 1, 2, 3
+
+
+class _Progress:
+    """One self-overwriting line on stderr, only when stderr is a terminal."""
+
+    def __init__(self, enabled: bool):
+        self.enabled = enabled and sys.stderr.isatty()
+        self.shown = False
+
+    def __call__(self, stage: str, done: int, total: int) -> None:
+        if not self.enabled:
+            return
+        sys.stderr.write(f"\r\033[K  {stage}: {done}/{total}")
+        sys.stderr.flush()
+        self.shown = True
+
+    def clear(self) -> None:
+        if self.shown:
+            sys.stderr.write("\r\033[K")
+            sys.stderr.flush()
+
+
+def _use_colour(no_color: bool) -> bool:
+    return not no_color and "NO_COLOR" not in os.environ and sys.stdout.isatty()
+
+
+def _split(values: tuple[str, ...] | None) -> list[str] | None:
+    if not values:
+        return None
+    out: list[str] = []
+    for value in values:
+        out += [v.strip() for v in value.split(",") if v.strip()]
+    return out
+
+
+def _settings(set_pairs: tuple[str, ...], **named) -> dict:
+    settings = {k: v for k, v in named.items() if v is not None}
+    for item in set_pairs:
+        if "=" not in item:
+            raise InputError(f"--set takes KEY=VALUE, got {item!r}")
+        key, value = item.split("=", 1)
+        settings[key.strip().replace("-", "_")] = value.strip()
+    return settings
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
+@click.version_option(__version__, "--version", prog_name="preflight", message="%(prog)s %(version)s")
+def cli() -> None:
+    """Decide, before causal discovery, whether the direction of causal effects
+    can be identified from your observational data, and how far.
+
+    Run `preflight demo` for a worked example, `preflight check DATA` on your
+    own table.
+    """
+
+
+def _render_outputs(report, json_path, markdown_path, html_path, junit_path) -> list[tuple[str, str]]:
+    outputs = []
+    if json_path:
+        outputs.append((json_path, report.to_json()))
+    if markdown_path:
+        from preflight.report.markdown import render_markdown
+
+        outputs.append((markdown_path, render_markdown(report)))
+    if html_path:
+        from preflight.report.html import render_html
+
+        outputs.append((html_path, render_html(report)))
+    if junit_path:
+        from preflight.report.junit import render_junit
+
+        outputs.append((junit_path, render_junit(report.data)))
+    return outputs
+
+
+def _write_all(outputs: list[tuple[str, str]]) -> None:
+    from preflight.report.json import write_atomic
+
+    for path, _ in outputs:
+        folder = os.path.dirname(os.path.abspath(path))
+        if not os.path.isdir(folder):
+            raise InputError(f"cannot write {path}: folder {folder} does not exist")
+    for path, text in outputs:
+        write_atomic(path, text)
+
+
+def _print_summary(report, quiet: bool, no_color: bool) -> None:
+    from preflight.report.text import render_text
+
+    style = click.style if _use_colour(no_color) else None
+    click.echo(render_text(report.data, style=style, quiet=quiet), nl=False)
+
+
+output_options = [
+    click.option("--json", "json_path", metavar="PATH", help="Write the JSON report (schema version 1) here."),
+    click.option("--markdown", "markdown_path", metavar="PATH", help="Write a Markdown report for a study appendix."),
+    click.option("--html", "html_path", metavar="PATH", help="Write a self-contained HTML report with plots."),
+    click.option("--junit", "junit_path", metavar="PATH", help="Write every check as a JUnit XML test case."),
+    click.option("--quiet", "-q", is_flag=True, help="Print only the conclusion line; no progress."),
+    click.option("--no-color", is_flag=True, help="No colour on the terminal (NO_COLOR is honoured too)."),
+]
+
+
+def _with(options):
+    def decorate(func):
+        for option in reversed(options):
+            func = option(func)
+        return func
+    return decorate
+
+
+@cli.command("check")
+@click.argument("data", metavar="DATA")
+@click.option("--sep", metavar="CHAR", help="Field separator (default: tab for .tsv/.tab, else comma).")
+@click.option("--columns", multiple=True, metavar="A,B,...", help="Analyse only these columns.")
+@click.option("--exclude", multiple=True, metavar="A,B,...", help="Leave these columns out.")
+@click.option("--missing", type=click.Choice(["drop", "error"]), default="drop", show_default=True,
+              help="Rows with missing values: drop and count them, or refuse the file.")
+@click.option("--graph", metavar="FILE", help="A hypothesised DAG: CSV with source,target or lines 'a -> b'.")
+@click.option("--require", type=click.Choice(LEVELS), help="Rung the gate asks for [default: linear-non-gaussian].")
+@click.option("--fail-on", multiple=True, metavar="FLAG,...", help="Also fail the gate when any of these flags is raised.")
+@click.option("--alpha", type=float, help="Significance level after multiplicity correction [default: 0.05].")
+@click.option("--correction", type=click.Choice(["holm", "fdr_bh"]), help="Multiplicity correction [default: holm].")
+@click.option("--seed", type=int, help="Seed of every random choice; same data and seed give the same report.")
+@click.option("--min-rows", type=int, help="Fewest usable rows for any conclusion [default: 30].")
+@click.option("--rows-unordered", is_flag=True, default=None, help="Row order carries no meaning: skip the autocorrelation screen.")
+@click.option("--jobs", "-j", type=int, help="Worker processes for the pair battery [default: cores available].")
+@click.option("--policy", "policy_file", metavar="FILE", help="TOML file of policy settings (see `preflight policy`).")
+@click.option("--set", "set_pairs", multiple=True, metavar="KEY=VALUE", help="Set any policy key, e.g. --set hsic_max_n=5000.")
+@_with(output_options)
+def check_command(data, sep, columns, exclude, missing, graph, require, fail_on, alpha, correction, seed,
+                  min_rows, rows_unordered, jobs, policy_file, set_pairs, json_path, markdown_path, html_path,
+                  junit_path, quiet, no_color):
+    """Check DATA (CSV, TSV, Parquet, or - for CSV on stdin) and gate on the conclusion."""
+    from preflight.api import check
+    from preflight.policy import build_policy
+
+    fail = _split(fail_on)
+    overrides = _settings(set_pairs, require=require, alpha=alpha, correction=correction, seed=seed,
+                          min_rows=min_rows, rows_unordered=rows_unordered, jobs=jobs,
+                          fail_on=",".join(fail) if fail else None)
+    policy, _ = build_policy(overrides, policy_file=policy_file)
+    progress = _Progress(enabled=not quiet)
+    try:
+        report = check(data, sep=sep, columns=_split(columns), exclude=_split(exclude), missing=missing,
+                       graph=graph, policy=policy, progress=progress,
+                       keep_samples=bool(html_path))
+    finally:
+        progress.clear()
+    _write_all(_render_outputs(report, json_path, markdown_path, html_path, junit_path))
+    _print_summary(report, quiet, no_color)
+    sys.exit(EXIT_PASS if report.passed else EXIT_WEAKER)
+
+
+@cli.command("demo")
+@click.option("--out", "out_dir", default="preflight-demo", show_default=True, metavar="DIR",
+              help="Folder for the demo data and reports.")
+@click.option("--rows", type=int, default=2000, show_default=True, help="Rows to simulate.")
+@click.option("--seed", type=int, default=None, help="Seed of the analysis.")
+@click.option("--quiet", "-q", is_flag=True, help="Print only the conclusion line.")
+@click.option("--no-color", is_flag=True, help="No colour on the terminal.")
+def demo_command(out_dir, rows, seed, quiet, no_color):
+    """Simulate an invented kiln firing record with a known structure and check it.
+
+    Writes kiln.csv and the reports (JSON, Markdown, HTML, JUnit) to DIR. The
+    true structure is documented in preflight/demo.py. Exits 0 when the demo
+    ran, whatever its conclusion (which the summary shows).
+    """
+    from preflight.api import check
+    from preflight.demo import EXPECTED_LEVEL, write_demo_csv
+    from preflight.policy import build_policy
+
+    if rows < 10:
+        raise InputError("--rows must be at least 10")
+    os.makedirs(out_dir, exist_ok=True)
+    data_path = write_demo_csv(os.path.join(out_dir, "kiln.csv"), n=rows)
+    policy, _ = build_policy({"seed": seed} if seed is not None else {})
+    progress = _Progress(enabled=not quiet)
+    try:
+        report = check(data_path, policy=policy, progress=progress)
+    finally:
+        progress.clear()
+    names = {"json": "kiln-report.json", "markdown": "kiln-report.md", "html": "kiln-report.html",
+             "junit": "kiln-checks.xml"}
+    paths = {k: os.path.join(out_dir, v) for k, v in names.items()}
+    _write_all(_render_outputs(report, paths["json"], paths["markdown"], paths["html"], paths["junit"]))
+    _print_summary(report, quiet, no_color)
+    if not quiet:
+        click.echo("")
+        click.echo(f"The kiln's true structure is documented in preflight/demo.py; the honest answer is {EXPECTED_LEVEL}.")
+        click.echo(f"Data:    {data_path}")
+        for key in ("json", "markdown", "html", "junit"):
+            click.echo(f"{key.capitalize() + ':':8} {paths[key]}")
+        click.echo(f"`preflight check {data_path}` would exit {EXIT_PASS if report.passed else EXIT_WEAKER} "
+                   f"(required: {report.conclusion['required']}).")
+
+
+@cli.command("report")
+@click.argument("report_json", metavar="REPORT.json")
+@_with(output_options[1:])
+def report_command(report_json, markdown_path, html_path, junit_path, quiet, no_color):
+    """Render a saved JSON report again (Markdown, HTML, JUnit) without the data."""
+    from preflight.report.json import read_report
+    from preflight.report.model import Report
+
+    report = Report.from_dict(read_report(report_json))
+    _write_all(_render_outputs(report, None, markdown_path, html_path, junit_path))
+    _print_summary(report, quiet, no_color)
+
+
+@cli.command("schema")
+def schema_command():
+    """Print the JSON Schema of the report."""
+    from preflight.report.json import schema_text
+
+    click.echo(schema_text(), nl=False)
+
+
+@cli.command("rules")
+def rules_command():
+    """Print the rules table that turns findings into the conclusion."""
+    from preflight.rules import rules_table_text
+
+    click.echo(rules_table_text(), nl=False)
+
+
+@cli.command("policy")
+def policy_command():
+    """Print every policy key with its default, as TOML you can edit."""
+    from preflight.policy import describe_policy
+
+    for key, default, doc in describe_policy():
+        click.echo(f"# {doc}")
+        if isinstance(default, bool):
+            value = "true" if default else "false"
+        elif isinstance(default, (tuple, list)):
+            value = "[" + ", ".join(f'"{v}"' for v in default) + "]"
+        elif isinstance(default, str):
+            value = f'"{default}"'
+        else:
+            value = repr(default)
+        click.echo(f"{key} = {value}\n")
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Entry point: maps every outcome onto the documented exit codes."""
+    try:
+        code = cli.main(args=argv, prog_name="preflight", standalone_mode=False)
+        sys.exit(code or 0)
+    except SystemExit:
+        raise
+    except click.exceptions.Exit as exc:
+        sys.exit(exc.exit_code)
+    except click.exceptions.Abort:
+        click.echo("preflight: aborted", err=True)
+        sys.exit(EXIT_INPUT)
+    except click.UsageError as exc:
+        hint = f" (see `{exc.ctx.command_path} --help`)" if exc.ctx is not None else ""
+        click.echo(f"preflight: error: {exc.format_message()}{hint}", err=True)
+        sys.exit(EXIT_INPUT)
+    except click.ClickException as exc:
+        click.echo(f"preflight: error: {exc.format_message()}", err=True)
+        sys.exit(EXIT_INPUT)
+    except InputError as exc:
+        message = " ".join(str(exc).split())
+        click.echo(f"preflight: error: {message}", err=True)
+        sys.exit(EXIT_INPUT)
+    except BrokenPipeError:
+        sys.exit(EXIT_INPUT)
+    except KeyboardInterrupt:
+        click.echo("preflight: interrupted", err=True)
+        sys.exit(130)
+    except Exception as exc:  # anything else is our bug: say so, never exit 1
+        click.echo(f"preflight: internal error: {type(exc).__name__}: {exc} "
+                   "(please report it; no report was written)", err=True)
+        sys.exit(EXIT_INTERNAL)

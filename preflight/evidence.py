@@ -1,0 +1,76 @@
+"""Multiplicity correction within families of tests.
+
+A *family* is one kind of question asked many times (for example "is this
+residual independent of its regressor?" asked for every pair and
+direction).  p-values are adjusted within a family across the whole table,
+Holm (1979) by default or Benjamini and Hochberg (1995) on request, through
+``statsmodels.stats.multitest.multipletests``.
+"""
+
+from __future__ import annotations
+
+from collections import defaultdict
+from dataclasses import dataclass, replace
+from typing import Iterable
+
+import numpy as np
+
+from preflight.results import CheckResult
+
+FAMILIES = {
+    "noise normality": "normality tests of regression residuals and noise estimates",
+    "linearity": "Ramsey RESET and spline F-tests",
+    "variance": "Breusch-Pagan (Koenker) and White tests",
+    "residual independence": "HSIC between regressor and residual",
+    "additive-noise independence": "HSIC between regressor and spline residual",
+    "association": "Pearson (Fisher z), Spearman and HSIC between the two variables",
+    "noise dependence": "HSIC between noise estimates of the structural equations",
+    "autocorrelation": "Ljung-Box tests on each column",
+    "component dependence": "HSIC between independent components",
+}
+
+
+@dataclass(frozen=True)
+class Tagged:
+    """A check with the family it is corrected in and the role it plays."""
+
+    family: str | None
+    role: str
+    """``forward`` (y on x), ``reverse`` (x on y), ``pair`` or ``variable``/``global``."""
+    result: CheckResult
+
+
+def adjust_p_values(p_values: Iterable[float], method: str) -> np.ndarray:
+    from statsmodels.stats.multitest import multipletests
+
+    p = np.asarray(list(p_values), dtype=np.float64)
+    if p.size == 0:
+        return p
+    return multipletests(p, method=method)[1]
+
+
+def adjust_families(groups: list[list[Tagged]], method: str) -> list[list[Tagged]]:
+    """Fill ``p_adjusted`` for every tagged check that has a family and a p-value.
+
+    ``groups`` is a list of lists (one per pair or variable); the same shape
+    is returned.  Checks without a p-value or family keep ``p_adjusted=None``.
+    """
+    positions: dict[str, list[tuple[int, int]]] = defaultdict(list)
+    for g, group in enumerate(groups):
+        for k, tagged in enumerate(group):
+            if tagged.family is not None and tagged.result.p_value is not None and np.isfinite(tagged.result.p_value):
+                positions[tagged.family].append((g, k))
+    out = [list(group) for group in groups]
+    for family in sorted(positions):
+        where = positions[family]
+        adjusted = adjust_p_values((groups[g][k].result.p_value for g, k in where), method)
+        for (g, k), p_adj in zip(where, adjusted):
+            tagged = out[g][k]
+            out[g][k] = replace(tagged, result=replace(tagged.result, p_adjusted=float(p_adj)))
+    return out
+
+
+def significant(result: CheckResult, alpha: float) -> bool:
+    """Rejected at alpha on the adjusted p-value (raw when no adjustment applies)."""
+    p = result.p_adjusted if result.p_adjusted is not None else result.p_value
+    return p is not None and p < alpha

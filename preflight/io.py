@@ -1,0 +1,243 @@
+"""Reading and validating the input table.
+
+Every problem a user can fix becomes an :class:`InputError` with one clear
+line; the input file is only ever opened for reading.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+import os
+import sys
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from preflight.errors import InputError
+
+PARQUET_MAGIC = b"PAR1"
+PARQUET_EXTENSIONS = (".parquet", ".pq")
+TSV_EXTENSIONS = (".tsv", ".tab")
+
+
+@dataclass(frozen=True)
+class LoadedData:
+    """A validated numeric table and where it came from."""
+
+    values: np.ndarray
+    """(rows_used, p) float64, rows with missing values already dropped."""
+    names: tuple[str, ...]
+    path: str
+    sha256: str | None
+    rows: int
+    """Data rows read from the source."""
+    rows_used: int
+    missing_by_column: dict[str, int] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+
+
+def _read_source_bytes(source: str) -> bytes:
+    if source == "-":
+        return sys.stdin.buffer.read()
+    if os.path.isdir(source):
+        raise InputError(f"{source} is a folder, not a data file")
+    try:
+        with open(source, "rb") as handle:
+            return handle.read()
+    except FileNotFoundError:
+        raise InputError(f"input file not found: {source}") from None
+    except PermissionError:
+        raise InputError(f"input file is not readable (permission denied): {source}") from None
+    except OSError as exc:
+        raise InputError(f"cannot read input file {source}: {exc.strerror or exc}") from None
+
+
+def _choose_separator(source: str, sep: str | None) -> str:
+    if sep is not None:
+        if sep in ("\\t", "tab", "TAB"):
+            return "\t"
+        if len(sep) != 1:
+            raise InputError(f"--sep must be a single character, got {sep!r}")
+        return sep
+    return "\t" if source.lower().endswith(TSV_EXTENSIONS) else ","
+
+
+def _decode_text(raw: bytes, label: str) -> str:
+    if b"\x00" in raw:
+        raise InputError(f"{label} looks like a binary file, not a CSV/TSV table (use a .parquet name for Parquet)")
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{label} is not UTF-8 text (undecodable byte at offset {exc.start})") from None
+    return text
+
+
+def _check_ragged(text: str, sep: str, label: str) -> list[str]:
+    """Return the header fields; refuse rows with a different number of fields."""
+    lines = text.splitlines()
+    if '"' in text:
+        rows = csv.reader(lines, delimiter=sep)
+        counts = ((i, len(row)) for i, row in enumerate(rows, start=1) if row)
+        header = next(csv.reader(lines[:1], delimiter=sep))
+    else:
+        counts = ((i, line.count(sep) + 1) for i, line in enumerate(lines, start=1) if line.strip())
+        header = lines[0].split(sep)
+    expected = len(header)
+    for line_no, count in counts:
+        if count != expected:
+            raise InputError(
+                f"{label}: line {line_no} has {count} fields but the header has {expected} (ragged rows)"
+            )
+    return [h.strip() for h in header]
+
+
+def _frame_from_text(text: str, sep: str, label: str):
+    import pandas as pd
+
+    stripped = text.strip()
+    if not stripped:
+        raise InputError(f"{label} is empty")
+    header = _check_ragged(text, sep, label)
+    if any(name == "" for name in header):
+        raise InputError(f"{label}: the header has an empty column name (position {header.index('') + 1})")
+    _refuse_duplicates(header, label)
+    try:
+        frame = pd.read_csv(io.StringIO(text), sep=sep, skipinitialspace=True, skip_blank_lines=True,
+                            na_values=["", "NA", "NaN", "nan", "null", "NULL", "."], keep_default_na=True)
+    except (pd.errors.ParserError, ValueError) as exc:
+        message = str(exc).strip().splitlines()[-1]
+        raise InputError(f"{label} could not be parsed as a table: {message}") from None
+    frame.columns = header
+    return frame
+
+
+def _refuse_duplicates(header, label: str) -> None:
+    seen: set[str] = set()
+    for name in header:
+        if name in seen:
+            raise InputError(f"{label}: column name {name!r} appears more than once")
+        seen.add(name)
+
+
+def _frame_from_parquet(raw: bytes, label: str):
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        table = pq.read_table(io.BytesIO(raw))
+    except (pa.ArrowException, OSError) as exc:
+        raise InputError(f"{label} is not a readable Parquet file: {exc}") from None
+    _refuse_duplicates(table.column_names, label)
+    return table.to_pandas()
+
+
+def sha256_of(raw: bytes) -> str:
+    return hashlib.sha256(raw).hexdigest()
+
+
+def load_table(
+    source,
+    *,
+    sep: str | None = None,
+    columns: list[str] | None = None,
+    exclude: list[str] | None = None,
+    missing: str = "drop",
+) -> LoadedData:
+    """Read ``source`` (path, ``"-"`` for CSV on stdin, or a pandas DataFrame) and validate it.
+
+    Rules: at least two numeric columns must remain; asked-for columns must
+    exist and be numeric; unasked text columns are skipped with a warning;
+    infinite values are refused; rows with a missing value in an analysed
+    column are dropped and counted (``missing="drop"``) or refused
+    (``missing="error"``).
+    """
+    import pandas as pd
+
+    if missing not in ("drop", "error"):
+        raise InputError(f"--missing must be 'drop' or 'error', got {missing!r}")
+    if isinstance(source, pd.DataFrame):
+        frame = source
+        label = "the DataFrame"
+        path = "<DataFrame>"
+        digest = None
+        _refuse_duplicates([str(c) for c in frame.columns], label)
+        frame = frame.copy(deep=False)
+        frame.columns = [str(c) for c in frame.columns]
+    else:
+        path = str(source)
+        label = "standard input" if path == "-" else path
+        raw = _read_source_bytes(path)
+        digest = sha256_of(raw)
+        if not raw.strip():
+            raise InputError(f"{label} is empty")
+        if path.lower().endswith(PARQUET_EXTENSIONS) or raw[:4] == PARQUET_MAGIC:
+            frame = _frame_from_parquet(raw, label)
+        else:
+            frame = _frame_from_text(_decode_text(raw, label), _choose_separator(path, sep), label)
+    rows = int(frame.shape[0])
+    if rows == 0:
+        raise InputError(f"{label} has a header but no data rows")
+
+    names = list(frame.columns)
+    asked = [c.strip() for c in columns] if columns else None
+    for option, listed in (("--columns", asked), ("--exclude", exclude)):
+        for name in listed or []:
+            if name not in names:
+                raise InputError(f"{option} names {name!r}, which is not a column of {label} (columns: {', '.join(names[:12])}{' ...' if len(names) > 12 else ''})")
+    if asked is not None:
+        _refuse_duplicates(asked, "--columns")
+    chosen = asked if asked is not None else names
+    chosen = [c for c in chosen if c not in set(exclude or [])]
+
+    warnings: list[str] = []
+    numeric: list[str] = []
+    for name in chosen:
+        column = frame[name]
+        if pd.api.types.is_bool_dtype(column):
+            numeric.append(name)
+            continue
+        if pd.api.types.is_numeric_dtype(column):
+            numeric.append(name)
+            continue
+        text_values = column.dropna().astype(str)
+        bad = text_values[pd.to_numeric(text_values, errors="coerce").isna()]
+        example = f" (e.g. {bad.iloc[0]!r} in data row {int(bad.index[0]) + 1})" if len(bad) else ""
+        if asked is not None:
+            raise InputError(f"column {name!r} is not numeric{example}")
+        warnings.append(f"skipped non-numeric column {name!r}{example}")
+    if len(numeric) < 2:
+        found = f"found {len(numeric)}" + (f" ({numeric[0]})" if numeric else "")
+        raise InputError(f"{label} needs at least 2 numeric columns to analyse, {found}")
+
+    values = frame[numeric].to_numpy(dtype=np.float64, na_value=np.nan, copy=True)
+    infinite = np.isinf(values)
+    if infinite.any():
+        j = int(np.flatnonzero(infinite.any(axis=0))[0])
+        i = int(np.flatnonzero(infinite[:, j])[0])
+        raise InputError(f"column {numeric[j]!r} has an infinite value in data row {i + 1}")
+    is_missing = np.isnan(values)
+    missing_by_column = {numeric[j]: int(is_missing[:, j].sum()) for j in range(len(numeric)) if is_missing[:, j].any()}
+    if missing_by_column:
+        if missing == "error":
+            first = next(iter(missing_by_column))
+            raise InputError(
+                f"column {first!r} has {missing_by_column[first]} missing value(s); "
+                f"use --missing drop to drop incomplete rows"
+            )
+        keep = ~is_missing.any(axis=1)
+        values = values[keep]
+        warnings.append(f"dropped {rows - int(keep.sum())} of {rows} rows with missing values")
+    if values.shape[0] == 0:
+        raise InputError(f"{label}: no row is complete in the analysed columns")
+    return LoadedData(
+        values=np.ascontiguousarray(values),
+        names=tuple(numeric),
+        path=path,
+        sha256=digest,
+        rows=rows,
+        rows_used=int(values.shape[0]),
+        missing_by_column=missing_by_column,
+        warnings=tuple(warnings),
+    )

@@ -1,0 +1,409 @@
+"""The stages of one analysis, in the order data flow through them."""
+
+from __future__ import annotations
+
+import datetime as _dt
+import itertools
+import os
+from dataclasses import dataclass, replace
+from typing import Any, Callable
+
+import numpy as np
+
+from preflight._version import __version__
+from preflight.battery import PairBattery, PairFindings, derived_seed, judge_pair, run_pair_battery
+from preflight.evidence import Tagged, adjust_families, significant
+from preflight.io import LoadedData
+from preflight.policy import LEVELS, Policy, level_rank
+from preflight.report.model import CAUTIONS, Report
+from preflight.results import CheckResult
+from preflight.rules import evaluate, meets
+
+Progress = Callable[[str, int, int], None]
+
+
+@dataclass(frozen=True)
+class StructuralView:
+    order: tuple[int, ...]
+    parents: tuple[tuple[int, ...], ...]
+    noise: np.ndarray
+    variable_checks: dict[int, list[Tagged]]
+    global_checks: list[Tagged]
+    global_flags: tuple[str, ...]
+    gaussian_noises: tuple[str, ...]
+
+
+def _noise_dependence(noise: np.ndarray, names, pairs, policy: Policy, progress: Progress) -> dict:
+    """HSIC between the noise estimates of every adjacent pair."""
+    from preflight.checks.confounding import noise_dependence
+
+    out: dict[tuple[int, int], Tagged] = {}
+    for k, (i, j) in enumerate(pairs):
+        seed = derived_seed(policy.seed, "noise dependence", names[i], names[j])
+        result = noise_dependence(noise[:, i], noise[:, j], exact_max_n=policy.hsic_exact_max_n,
+                                  max_n=policy.hsic_max_n, n_features=policy.hsic_features,
+                                  permutations=policy.hsic_permutations, seed=seed)
+        out[(i, j)] = Tagged("noise dependence", "pair",
+                             result.with_name(f"noise dependence (hsic) ({names[i]}, {names[j]})"))
+        progress("noise dependence", k + 1, len(pairs))
+    return out
+
+
+# ---------------------------------------------------------------- stages
+
+def _screen(loaded: LoadedData, policy: Policy):
+    from preflight.screen import screen_variables
+
+    screens = screen_variables(loaded.values, list(loaded.names), policy)
+    flags = {s.name: list(s.flags) for s in screens}
+    for name in loaded.missing_by_column:
+        flags[name].append("missing-values")
+    checks = {s.name: [Tagged("autocorrelation" if c.name.startswith("ljung-box") else None, "variable", c)
+                       for c in s.checks] for s in screens}
+    for name, count in loaded.missing_by_column.items():
+        checks[name].append(Tagged(None, "variable", CheckResult(
+            name="missing values", statistic=float(count), p_value=None, effect=count / loaded.rows,
+            effect_name="share of rows", n=loaded.rows, note="rows with a missing value were dropped")))
+    return flags, checks
+
+
+def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, progress: Progress) -> StructuralView:
+    from preflight import structure
+    from preflight.checks.normality import normality_checks
+
+    p = X.shape[1]
+    progress("causal order", 0, 1)
+    order = tuple(int(i) for i in structure.causal_order(X, seed=policy.seed))
+    parents = structure.prune_parents(X, order, alpha=policy.alpha, correction=policy.correction)
+    noise = structure.noise_estimates(X, parents)
+    progress("causal order", 1, 1)
+
+    variable_checks: dict[int, list[Tagged]] = {j: [] for j in range(p)}
+    for j, name in enumerate(names):
+        seed = derived_seed(policy.seed, "noise", name)
+        for result in normality_checks(noise[:, j], max_n=policy.shapiro_max_n, seed=seed):
+            variable_checks[j].append(Tagged("noise normality", "variable",
+                                             result.with_name(f"{result.name} (noise of {name})")))
+    global_checks: list[Tagged] = []
+    try:
+        global_checks.append(Tagged(None, "global", structure.henze_zirkler(X, seed=policy.seed)))
+    except TypeError:
+        global_checks.append(Tagged(None, "global", structure.henze_zirkler(X)))
+    ica = structure.fastica_gaussian_components(X, seed=policy.seed, alpha=policy.alpha)
+    for result in getattr(ica, "checks", ()):
+        global_checks.append(Tagged(None, "global", result))
+    edges = [(parent, child) for child, ps in enumerate(parents) for parent in ps]
+    flags: list[str] = []
+    if edges:
+        share = structure.varsortability(X, edges)
+        global_checks.append(Tagged(None, "global", CheckResult(
+            name="varsortability", statistic=float(share), p_value=None, effect=float(share),
+            effect_name="share of edges with increasing variance", n=len(edges),
+            note=f"varsortable when at least {policy.varsortable_min_share:.0%} (Reisach et al. 2021)")))
+        if share >= policy.varsortable_min_share and len(edges) >= 2:
+            flags.append("varsortable")
+    if getattr(ica, "dependent", False):
+        flags.append("dependent-components")
+    return StructuralView(order=order, parents=parents, noise=noise, variable_checks=variable_checks,
+                          global_checks=global_checks, global_flags=tuple(flags), gaussian_noises=())
+
+
+def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str | None):
+    """Adjacency matrix and CPDAG; from the user's graph or estimated by PC-stable.
+
+    The estimated skeleton rests only on partial correlations, which stay
+    valid for linear mechanisms whatever the noise shape; the structural
+    view's order, which a nonlinear or confounded part of the table can
+    scramble, never adds or removes an edge.  It only decides which common
+    neighbours of a pair are conditioned on (see :func:`_conditioning_sets`).
+    """
+    from preflight import graph as graphs
+
+    if graph is not None:
+        dag = graphs.read_graph_file(graph, list(names))
+        adjacency = (dag + dag.T) > 0
+        cpdag = graphs.dag_to_cpdag(dag)
+        return adjacency, cpdag, "hypothesised graph from " + os.path.basename(graph)
+    skeleton = graphs.pc_stable_skeleton(X, alpha=policy.alpha)
+    adjacency = np.array(skeleton.adjacency, dtype=bool)
+    cpdag = graphs.cpdag_from_skeleton(adjacency, dict(skeleton.separating_sets))
+    return adjacency, cpdag, "estimated: PC-stable skeleton (Fisher-z partial correlations)"
+
+
+def _conditioning_sets(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[tuple[int, ...], ...]:
+    """(Z for the pair, other parents of j, other parents of i).
+
+    Z holds the common neighbours of i and j that the structural view puts
+    among the parents of either: an observed common cause must be
+    partialled out, while a common child must not be (conditioning on a
+    collider creates dependence).  A parent of only one of the two is
+    independent of the other's mechanism and is left out, which keeps a
+    mis-estimated order elsewhere in the table from bending this pair.
+    """
+    common = set(np.flatnonzero(adjacency[i] & adjacency[j]).tolist()) - {i, j}
+    conditioning = tuple(sorted(common & (set(parents[i]) | set(parents[j]))))
+    others_of_j = tuple(c for c in conditioning if c in parents[j])
+    others_of_i = tuple(c for c in conditioning if c in parents[i])
+    return conditioning, others_of_j, others_of_i
+
+
+def _battery_task(args):
+    i, j, conditioning, others_of_j, others_of_i, adjacent, policy = args
+    X, names = _WORKER["X"], _WORKER["names"]
+
+    def columns(index):
+        return X[:, list(index)] if index else None
+
+    return run_pair_battery(X[:, i], X[:, j], names[i], names[j], columns(conditioning),
+                            tuple(names[c] for c in conditioning), adjacent, policy,
+                            Z_for_y=columns(others_of_j), Z_for_x=columns(others_of_i))
+
+
+_WORKER: dict[str, Any] = {}
+
+
+def _init_worker(X, names):
+    _WORKER["X"] = X
+    _WORKER["names"] = names
+    try:
+        from threadpoolctl import threadpool_limits
+
+        threadpool_limits(1)
+    except Exception:  # threadpoolctl is optional here; results do not depend on it
+        pass
+
+
+def _run_batteries(X, names, tasks, policy: Policy, progress: Progress) -> list[PairBattery]:
+    jobs = policy.jobs or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
+    work = X.shape[0] * sum(2 if t[5] else 1 for t in tasks)
+    results: list[PairBattery] = []
+    if jobs <= 1 or len(tasks) < 4 or work < 200_000:
+        _init_worker(X, names) if not _WORKER else None
+        _WORKER["X"], _WORKER["names"] = X, names
+        for k, task in enumerate(tasks):
+            results.append(_battery_task(task))
+            progress("pair battery", k + 1, len(tasks))
+        return results
+    import concurrent.futures as cf
+    import multiprocessing as mp
+
+    context = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else None
+    with cf.ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=context,
+                                initializer=_init_worker, initargs=(X, names)) as pool:
+        for k, result in enumerate(pool.map(_battery_task, tasks, chunksize=max(1, len(tasks) // (8 * jobs)))):
+            results.append(result)
+            progress("pair battery", k + 1, len(tasks))
+    return results
+
+
+def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> CheckResult:
+    from preflight import structure
+    from preflight.checks.normality import shape
+
+    s = shape(noise_column)
+    needed = structure.rows_needed(s.skewness, s.excess_kurtosis, alpha=policy.alpha)
+    return CheckResult(
+        name=f"rows needed (noise of {name})", statistic=float(needed) if needed is not None else float("nan"),
+        p_value=None, effect=float(s.excess_kurtosis), effect_name="excess kurtosis", n=int(noise_column.shape[0]),
+        note=("rows for the Jarque-Bera test to detect this noise's skewness "
+              f"({s.skewness:.3f}) and excess kurtosis ({s.excess_kurtosis:.3f}) with 80% power at alpha "
+              f"{policy.alpha:g}" if needed is not None else "noise shape indistinguishable from Gaussian: no finite number"))
+
+
+# ---------------------------------------------------------------- the run
+
+def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
+        keep_samples: bool) -> Report:
+    X, names = loaded.values, loaded.names
+    n, p = X.shape
+    var_flags, var_checks = _screen(loaded, policy)
+    global_flags: list[str] = []
+    global_checks: list[Tagged] = [Tagged(None, "global", CheckResult(
+        name="usable rows", statistic=float(n), p_value=None, effect=None, effect_name=None, n=n,
+        note=f"minimum {policy.min_rows} for any conclusion, {policy.min_rows_orientation} to orient from noise shape"))]
+    if n < policy.min_rows:
+        global_flags.append("too-few-rows")
+    elif n < policy.min_rows_orientation:
+        global_flags.append("too-few-rows-to-orient")
+    from preflight.screen import collinearity_check
+
+    global_checks.append(Tagged(None, "global", collinearity_check(X, list(names), policy)))
+
+    void = "too-few-rows" in global_flags or any("constant" in f for f in var_flags.values())
+    view: StructuralView | None = None
+    adjacency = np.zeros((p, p), dtype=bool)
+    cpdag = np.zeros((p, p), dtype=np.int8)
+    adjacency_source = "not estimated: the data void the analysis"
+    batteries: list[PairBattery] = []
+    pair_index = list(itertools.combinations(range(p), 2))
+    if not void:
+        view = _structural_view(X, names, policy, progress)
+        global_checks += view.global_checks
+        global_flags += list(view.global_flags)
+        for j in range(p):
+            var_checks[names[j]] += view.variable_checks[j]
+        adjacency, cpdag, adjacency_source = _adjacency(X, names, policy, graph)
+        tasks = []
+        for i, j in pair_index:
+            conditioning, others_of_j, others_of_i = _conditioning_sets(i, j, adjacency, view.parents)
+            tasks.append((i, j, conditioning, others_of_j, others_of_i, bool(adjacency[i, j]), policy))
+        noise_dep = _noise_dependence(view.noise, names, [ij for ij in pair_index if adjacency[ij]],
+                                      policy, progress)
+        batteries = _run_batteries(X, names, tasks, policy, progress)
+    elif graph is not None:
+        from preflight import graph as graphs
+
+        graphs.read_graph_file(graph, list(names))  # a bad graph file is still a usage error
+
+    # ---- evidence: adjust within families across the whole table
+    pair_groups = [list(b.checks) for b in batteries]
+    noise_dep = noise_dep if view is not None else {}
+    noise_keys = [ij for ij in pair_index if ij in noise_dep]
+    noise_groups = [[noise_dep[ij]] for ij in noise_keys]
+    var_groups = [var_checks[name] for name in names]
+    groups = adjust_families(pair_groups + noise_groups + var_groups + [global_checks], policy.correction)
+    pair_groups = groups[:len(pair_groups)]
+    noise_groups = groups[len(pair_groups):len(pair_groups) + len(noise_groups)]
+    var_groups = groups[len(pair_groups) + len(noise_groups):-1]
+    global_checks = groups[-1]
+
+    # ---- variables: noise shape and rows needed
+    gaussian_noises: list[str] = []
+    from preflight.battery import _nongaussian
+
+    variables_out = []
+    for j, name in enumerate(names):
+        tagged = var_groups[j]
+        if view is not None:
+            noise_norm = [t.result for t in tagged if t.family == "noise normality"]
+            if not _nongaussian(noise_norm, policy):
+                gaussian_noises.append(name)
+            tagged = tagged + [Tagged(None, "variable", _rows_needed_check(view.noise[:, j], name, policy))]
+        flags = list(var_flags[name])
+        judged = []
+        for t in tagged:
+            r = t.result
+            if t.family == "noise normality":
+                r = replace(r, passed=None if r.p_value is None else significant(r, policy.alpha))
+            elif t.family == "autocorrelation":
+                r = replace(r, passed="autocorrelated" not in flags)
+            judged.append(r)
+        variables_out.append({"name": name, "flags": flags, "checks": [r.to_dict() for r in judged]})
+    if len(gaussian_noises) >= 2:
+        global_flags.append("multiple-gaussian-components")
+
+    # ---- pairs: judge, then apply noise dependence where equations are linear
+    findings: list[PairFindings] = []
+    misspecified: set[str] = set()
+    preliminary = [judge_pair(b, g, policy) for b, g in zip(batteries, pair_groups)]
+    for f in preliminary:
+        if f.adjacent and "nonlinear" in f.flags:
+            misspecified.update((f.x, f.y))
+    noise_of = {ij: group[0].result for ij, group in zip(noise_keys, noise_groups)}
+    for k, (b, g) in enumerate(zip(batteries, pair_groups)):
+        nd = noise_of.get(pair_index[k])
+        if nd is not None and (b.x in misspecified or b.y in misspecified):
+            nd = replace(nd, note="not used as a confounding signal: a structural equation at this pair is nonlinear, so its linear noise estimate is not a noise")
+            findings.append(replace(judge_pair(b, g, policy), checks=preliminary[k].checks + (nd,)))
+        else:
+            findings.append(judge_pair(b, g, policy, noise_dependence=nd))
+
+    # ---- class: compelled orientations and conflicts with noise-based ones
+    from preflight import graph as graphs
+
+    status = graphs.edge_status(cpdag) if p else {}
+    pair_facts: dict[tuple[str, str], frozenset[str]] = {}
+    for f, (i, j) in zip(findings, pair_index):
+        facts = set(f.facts)
+        compelled = status.get((i, j), "undirected")
+        if f.lingam_orientation != "undetermined" and compelled in ("i->j", "j->i"):
+            wanted = "x->y" if compelled == "i->j" else "y->x"
+            if wanted != f.lingam_orientation:
+                facts.add("orientation-conflict")
+        pair_facts[(f.x, f.y)] = frozenset(facts)
+    if void:
+        for (i, j) in pair_index:
+            pair_facts[(names[i], names[j])] = frozenset({"not-adjacent"})
+    if any("nonlinear" in f.flags and f.adjacent for f in findings):
+        global_flags.append("any-nonlinear")
+    global_fact_set = frozenset(global_flags)
+    context = {"rows_used": n, "min_rows": policy.min_rows, "min_rows_orientation": policy.min_rows_orientation,
+               "gaussian_noises": ", ".join(gaussian_noises)}
+    outcome = evaluate(global_fact_set, {k: frozenset(v) for k, v in var_flags.items()}, pair_facts, context)
+    global_flags = [f for f in global_flags if f != "any-nonlinear"]
+
+    # ---- per-edge verdicts
+    pairs_out = []
+    oriented = 0
+    total = 0
+    for k, (i, j) in enumerate(pair_index):
+        x, y = names[i], names[j]
+        if findings:
+            f = findings[k]
+            flags, checks = list(f.flags), [r.to_dict() for r in f.checks]
+        else:
+            f, flags, checks = None, [], []
+        adjacent = bool(adjacency[i, j]) and not void
+        orientation, basis = "undetermined", None
+        if adjacent and f is not None:
+            total += 1
+            banned = outcome.edge_ruled_out.get((x, y), frozenset())
+            compelled = status.get((i, j), "undirected")
+            if f.lingam_orientation != "undetermined" and "linear-non-gaussian" not in banned:
+                orientation, basis = f.lingam_orientation, "linear-non-gaussian"
+            elif f.anm_orientation != "undetermined" and "additive-noise" not in banned:
+                orientation, basis = f.anm_orientation, "additive-noise"
+            elif (compelled != "undirected" and "equivalence-class" not in banned
+                  and level_rank(outcome.level) <= level_rank("equivalence-class")):
+                orientation, basis = ("x->y" if compelled == "i->j" else "y->x"), "equivalence-class"
+            if orientation != "undetermined":
+                oriented += 1
+        pairs_out.append({"x": x, "y": y, "adjacent": adjacent, "orientation": orientation, "basis": basis,
+                          "flags": flags, "checks": checks,
+                          "conditioning": list(f.conditioning) if f is not None else []})
+
+    # ---- conclusion and gate
+    present_flags = set(global_flags)
+    for v in variables_out:
+        present_flags.update(v["flags"])
+    for pair in pairs_out:
+        present_flags.update(pair["flags"])
+    failing_flags = sorted(set(policy.fail_on) & present_flags)
+    reasons = list(outcome.reasons)
+    if not reasons:
+        reasons.append(f"Every one of the {total} adjacent edges is linear, homoscedastic, and leaves a residual "
+                       "independent of its regressor in exactly one direction; no sign of hidden confounding.")
+    for flag in failing_flags:
+        reasons.append(f"Flag {flag} is present and the policy fails the gate on it (--fail-on).")
+    passed = meets(outcome.level, policy.require) and not failing_flags
+
+    cautions = list(CAUTIONS) + list(outcome.cautions) + [f"Input: {w}" for w in loaded.warnings]
+    settings = policy.to_dict()
+    report = {
+        "schema_version": "1",
+        "tool": {"name": "preflight", "version": __version__},
+        "input": {"path": loaded.path, "sha256": loaded.sha256, "rows": loaded.rows, "rows_used": loaded.rows_used,
+                  "columns": list(names), "warnings": list(loaded.warnings)},
+        "settings": settings,
+        "conclusion": {"level": outcome.level, "required": policy.require, "passed": bool(passed),
+                       "reasons": reasons, "edges_oriented": oriented, "edges_total": total,
+                       "rules_fired": [fr.rule.id for fr in outcome.fired]},
+        "variables": variables_out,
+        "pairs": pairs_out,
+        "global": {"flags": global_flags, "checks": [t.result.to_dict() for t in global_checks]},
+        "structure": {
+            "adjacency": adjacency_source,
+            "order": [names[i] for i in view.order] if view else [],
+            "parents": {names[c]: [names[q] for q in ps] for c, ps in enumerate(view.parents)} if view else {},
+            "gaussian_noises": gaussian_noises,
+        },
+        "cautions": cautions,
+        "generated_at": _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat(),
+    }
+    samples = None
+    if keep_samples:
+        rng = np.random.default_rng(derived_seed(policy.seed, "plot sample"))
+        rows = np.sort(rng.choice(n, size=min(n, policy.plot_max_points), replace=False))
+        samples = {"names": list(names), "values": X[rows], "rows": rows, "n": n,
+                   "noise": view.noise[rows] if view is not None else None}
+    return Report(data=report, samples=samples)

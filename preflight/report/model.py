@@ -1,0 +1,67 @@
+"""The Report: everything the renderers need, and nothing they compute."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from typing import Any
+
+CAUTIONS = (
+    "Passing these checks does not prove a causal structure: they can only fail to find evidence "
+    "against the assumptions of the conclusion stated.",
+    "Acyclicity, the absence of selection bias and the absence of measurement error are not testable "
+    "from these data; they must be argued from how the data were collected.",
+    "Domain review and the local rules of practice of your field come first; use this report as one "
+    "input to that review, not as a substitute for it.",
+)
+
+
+@dataclass
+class Report:
+    """The result of :func:`preflight.check`.
+
+    ``data`` holds the plain JSON-ready content (schema version 1);
+    ``samples`` optionally holds a subsample of the analysed columns for
+    plots.  It is never written to the JSON report, so the report does not
+    carry the data.
+    """
+
+    data: dict[str, Any]
+    samples: dict[str, Any] | None = field(default=None, repr=False)
+
+    # Convenience accessors -------------------------------------------------
+    @property
+    def conclusion(self) -> dict[str, Any]:
+        return self.data["conclusion"]
+
+    @property
+    def level(self) -> str:
+        return self.data["conclusion"]["level"]
+
+    @property
+    def passed(self) -> bool:
+        return bool(self.data["conclusion"]["passed"])
+
+    @property
+    def pairs(self) -> list[dict[str, Any]]:
+        return self.data["pairs"]
+
+    @property
+    def variables(self) -> list[dict[str, Any]]:
+        return self.data["variables"]
+
+    def pair(self, a: str, b: str) -> dict[str, Any]:
+        for entry in self.data["pairs"]:
+            if {entry["x"], entry["y"]} == {a, b}:
+                return entry
+        raise KeyError(f"no pair {a!r}, {b!r}")
+
+    def to_dict(self) -> dict[str, Any]:
+        return json.loads(json.dumps(self.data))
+
+    def to_json(self, indent: int | None = 2) -> str:
+        return json.dumps(self.data, indent=indent, ensure_ascii=False, allow_nan=False) + "\n"
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> "Report":
+        return cls(data=data)
