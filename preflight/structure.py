@@ -1,0 +1,762 @@
+"""Global structure: a causal order, pruned parents, noise estimates and cross-checks.
+
+* :func:`causal_order` -- the DirectLiNGAM search (Shimizu et al. 2011) with
+  the pairwise likelihood-ratio measure of Hyvärinen & Smith (2013).
+* :func:`prune_parents` -- t-tests of each variable on its predecessors,
+  corrected for multiplicity across all coefficients.
+* :func:`noise_estimates` -- residuals of the structural equations.
+* :func:`fastica_gaussian_components` -- FastICA cross-check: how many
+  independent components look Gaussian, and whether they are in fact
+  independent.
+* :func:`henze_zirkler` -- multivariate normality of the whole table.
+* :func:`rows_needed` -- rows for Jarque-Bera to see a given noise shape.
+* :func:`varsortability`, :func:`r2_sortability` -- Reisach et al. (2021,
+  2023): would sorting by marginal variance (or R^2) already give the order?
+* :func:`spectral_confounding` -- re-exported from
+  :mod:`preflight.checks.confounding`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Iterable, Sequence
+
+import numpy as np
+
+from preflight.checks._validate import as_matrix
+from preflight.checks.confounding import spectral_confounding
+from preflight.errors import InputError
+from preflight.fit import coefficient_standard_errors, ols, residualize
+from preflight.results import CheckResult
+
+__all__ = [
+    "ComponentScreen",
+    "causal_order",
+    "fastica_gaussian_components",
+    "henze_zirkler",
+    "noise_estimates",
+    "pairwise_likelihood_ratios",
+    "prune_parents",
+    "r2_sortability",
+    "rows_needed",
+    "spectral_confounding",
+    "varsortability",
+]
+
+# ------------------------------------------------------------------ entropy approximations
+
+# Hyvärinen (1998) maximum-entropy approximation of differential entropy of a
+# standardised variable u, in the form Hyvärinen & Smith (2013) use for their
+# general likelihood ratio (from memory, checked: gamma = E[log cosh(nu)] for
+# nu ~ N(0, 1) is 0.374567 by numerical integration, and 7.4129 equals
+# 36 / (8 sqrt 3 - 9), the constant of the odd term):
+#   H(u) ~ H(nu) - K_EVEN (E[log cosh u] - GAMMA)^2 - K_ODD (E[u exp(-u^2/2)])^2
+LOGCOSH_K_EVEN = 79.047
+LOGCOSH_K_ODD = 7.4129
+LOGCOSH_GAMMA = 0.37457
+
+LOGCOSH_MAX_EVALUATIONS = 30_000_000
+"""Largest n * k * (k - 1) for which a search step uses the log-cosh entropy (about a second of work)."""
+
+_TENSOR_MAX_ELEMENTS = 4_000_000
+"""Rows x pairs evaluated at once in the log-cosh measure (32 MB of float64)."""
+
+MEASURES = ("auto", "logcosh", "cumulant")
+
+
+def _standardise_columns(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Columns centred and scaled to population sd 1; degenerate columns become 0.
+
+    Returns (Z, degenerate) where degenerate flags columns with no variance
+    left (constant, or already explained exactly by earlier variables).
+    """
+    centred = X - X.mean(axis=0)
+    sd = np.sqrt((centred * centred).mean(axis=0))
+    scale = np.maximum(np.abs(X).max(axis=0), 1.0) if X.size else np.ones(X.shape[1])
+    degenerate = sd <= 1e-12 * scale
+    Z = centred / np.where(degenerate, 1.0, sd)
+    Z[:, degenerate] = 0.0
+    return Z, degenerate
+
+
+def _logcosh_negentropy_of_residuals(Z: np.ndarray, rho: np.ndarray, s: np.ndarray) -> np.ndarray:
+    """J[i, j]: log-cosh negentropy of the standardised residual of z_j on z_i."""
+    n, k = Z.shape
+    J = np.zeros((k, k))
+    block = max(1, _TENSOR_MAX_ELEMENTS // max(n * k, 1))
+    log2 = math.log(2.0)
+    for start in range(0, k, block):
+        rows = slice(start, min(start + block, k))
+        # residuals[t, b, j] = (z_j - rho[i_b, j] z_{i_b}) / s[i_b, j]
+        residuals = (Z[:, None, :] - Z[:, rows, None] * rho[None, rows, :]) / s[None, rows, :]
+        magnitude = np.abs(residuals)
+        even = (magnitude + np.log1p(np.exp(-2.0 * magnitude))).mean(axis=0) - log2 - LOGCOSH_GAMMA
+        odd = (residuals * np.exp(-0.5 * residuals * residuals)).mean(axis=0)
+        J[rows] = LOGCOSH_K_EVEN * even * even + LOGCOSH_K_ODD * odd * odd
+    return J
+
+
+def _logcosh_negentropy(Z: np.ndarray) -> np.ndarray:
+    magnitude = np.abs(Z)
+    log2 = math.log(2.0)
+    even = (magnitude + np.log1p(np.exp(-2.0 * magnitude))).mean(axis=0) - log2 - LOGCOSH_GAMMA
+    odd = (Z * np.exp(-0.5 * Z * Z)).mean(axis=0)
+    return LOGCOSH_K_EVEN * even * even + LOGCOSH_K_ODD * odd * odd
+
+
+def _cumulant_negentropy(skewness: np.ndarray, excess_kurtosis: np.ndarray) -> np.ndarray:
+    # J ~ kappa3^2 / 12 + kappa4^2 / 48 (Jones & Sibson 1987; Comon 1994).
+    return skewness * skewness / 12.0 + excess_kurtosis * excess_kurtosis / 48.0
+
+
+def _cumulant_negentropies(Z: np.ndarray, rho: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Cumulant negentropy of every z_j and of every standardised residual of z_j on z_i.
+
+    The third and fourth moments of (z_j - rho z_i) / s expand into the
+    cross moments E[z_i^a z_j^b], a + b <= 4, and each of those matrices is
+    one matrix product, so all pairs cost O(n k^2).
+    """
+    n = Z.shape[0]
+    Z2 = Z * Z
+    Z3 = Z2 * Z
+    m3 = Z3.mean(axis=0)
+    m4 = (Z2 * Z2).mean(axis=0)
+    M12 = Z.T @ Z2 / n  # [i, j] = E[z_i z_j^2]
+    M13 = Z.T @ Z3 / n  # [i, j] = E[z_i z_j^3]
+    M22 = Z2.T @ Z2 / n
+    r2, r3 = rho * rho, rho * rho * rho
+    third = (m3[None, :] - 3.0 * rho * M12 + 3.0 * r2 * M12.T - r3 * m3[:, None]) / s**3
+    fourth = (m4[None, :] - 4.0 * rho * M13 + 6.0 * r2 * M22 - 4.0 * r3 * M13.T
+              + r2 * r2 * m4[:, None]) / s**4
+    return _cumulant_negentropy(m3, m4 - 3.0), _cumulant_negentropy(third, fourth - 3.0)
+
+
+def pairwise_likelihood_ratios(X, measure: str = "auto") -> np.ndarray:
+    """All Hyvärinen-Smith likelihood ratios R[i, j] of x_i -> x_j against x_j -> x_i.
+
+    Descriptive (no test).  With every column standardised and r_{j|i} the
+    standardised residual of x_j on x_i,
+
+        R[i, j] = H(x_j) + H(r_{i|j}) - H(x_i) - H(r_{j|i})
+                = J(x_i) + J(r_{j|i}) - J(x_j) - J(r_{i|j}),
+
+    the general likelihood ratio of Hyvärinen & Smith (2013, section 2) with
+    differential entropies H replaced by an approximation (J is negentropy,
+    H = H(gaussian) - J at unit variance).  R > 0 favours x_i -> x_j;
+    R = -R.T.
+
+    ``measure``:
+    ``"logcosh"``  Hyvärinen's (1998) maximum-entropy approximation with
+                   log cosh and u exp(-u^2/2), the one HS2013 recommend; it
+                   needs every residual, O(n p^2) transcendental functions.
+    ``"cumulant"`` the cumulant approximation J = skew^2/12 + kurt^2/48 of
+                   the same residuals, computed exactly from cross moments
+                   by matrix products; much faster, less robust to heavy tails.
+    ``"auto"``     log-cosh when n p (p - 1) <= LOGCOSH_MAX_EVALUATIONS, else cumulant.
+
+    The simpler first-order form rho * E[x g(y) - g(x) y] is not used: it
+    depends on the sign of the kurtosis and misorders skewed noise.
+
+    Pairs with an exactly collinear partner (|rho| = 1) or a constant column get R = 0.
+    """
+    if measure not in MEASURES:
+        raise InputError(f"measure must be one of {', '.join(MEASURES)}, got {measure!r}")
+    X = as_matrix(X, name="X", min_n=3)
+    Z, degenerate = _standardise_columns(X)
+    return _likelihood_ratios(Z, degenerate, measure)
+
+
+def _likelihood_ratios(Z: np.ndarray, degenerate: np.ndarray, measure: str,
+                       rho: np.ndarray | None = None) -> np.ndarray:
+    n, k = Z.shape
+    if k < 2:
+        return np.zeros((k, k))
+    if rho is None:
+        rho = Z.T @ Z / n
+    rho = np.clip(rho, -1.0, 1.0)
+    invalid = (np.abs(rho) >= 1.0 - 1e-10) | degenerate[:, None] | degenerate[None, :]
+    np.fill_diagonal(invalid, True)
+    s = np.sqrt(np.where(invalid, 1.0, 1.0 - rho * rho))
+    rho_safe = np.where(invalid, 0.0, rho)
+    if measure == "auto":
+        measure = "logcosh" if n * k * (k - 1) <= LOGCOSH_MAX_EVALUATIONS else "cumulant"
+    if measure == "logcosh":
+        J_marginal = _logcosh_negentropy(Z)
+        J_residual = _logcosh_negentropy_of_residuals(Z, rho_safe, s)
+    else:
+        J_marginal, J_residual = _cumulant_negentropies(Z, rho_safe, s)
+    R = J_marginal[:, None] + J_residual - J_marginal[None, :] - J_residual.T
+    R[invalid] = 0.0
+    return R
+
+
+EXPLAINED_SHARE = 1e-12
+"""A column whose variance left after the residualising steps is below this share of its own is treated as explained."""
+
+
+def causal_order(X, seed: int = 0, measure: str = "auto", max_n: int | None = None) -> tuple[int, ...]:
+    """A causal order of the columns by the DirectLiNGAM search.
+
+    Descriptive (no test): under a linear acyclic model with independent
+    non-Gaussian noise, an exogenous variable is found at each step and the
+    order is consistent.  Reference: Shimizu et al. (2011), "DirectLiNGAM",
+    JMLR 12, with the pairwise measure of Hyvärinen & Smith (2013), JMLR 14.
+
+    Each step scores every remaining candidate i by
+
+        M_i = sum_j min(0, R[i, j])^2,
+
+    the penalty for every pair whose likelihood ratio says x_j -> x_i
+    (the variant of HS2013 section 5 that replaces DirectLiNGAM's kernel
+    independence measure), and takes the smallest; exact ties go to the
+    lower column index.  R comes from :func:`pairwise_likelihood_ratios`
+    with ``measure`` (``"auto"``: the log-cosh entropy approximation
+    whenever a step is small enough, the cumulant one otherwise).
+
+    The remaining columns are then residualised on the chosen one and
+    re-standardised.  All columns being standardised, the least-squares
+    slope of z_j on the chosen z_i is their correlation rho_ij and the
+    residual variance 1 - rho_ij^2, so that regression is done in closed
+    form and in place, (z_j - rho_ij z_i) / sqrt(1 - rho_ij^2), for all j at
+    once.  A column with less than ``EXPLAINED_SHARE`` of its variance left
+    (an exact linear function of the columns already ordered) gets R = 0
+    with everything and so comes next.
+
+    ``max_n``: when given and n is larger, the search runs on a seeded
+    subsample of ``max_n`` rows drawn with ``seed``; otherwise ``seed`` is unused.
+    Returns the column indices, most exogenous first.
+    """
+    if measure not in MEASURES:
+        raise InputError(f"measure must be one of {', '.join(MEASURES)}, got {measure!r}")
+    X = as_matrix(X, name="X", min_n=3)
+    n, p = X.shape
+    if max_n is not None and n > int(max_n):
+        rows = np.sort(np.random.default_rng(seed).choice(n, int(max_n), replace=False))
+        X = X[rows]
+        n = X.shape[0]
+    Z, degenerate = _standardise_columns(X)
+    # Fortran order keeps the active block Z[:, :k] contiguous while chosen
+    # columns are swapped out of it.
+    Z = np.asfortranarray(Z)
+    degenerate = degenerate.copy()
+    labels = list(range(p))
+    left = np.ones(p)
+    order: list[int] = []
+    k = p
+    while k > 1:
+        active = Z[:, :k]
+        rho = active.T @ active / n
+        R = _likelihood_ratios(active, degenerate[:k], measure, rho=rho)
+        penalty = (np.minimum(R, 0.0) ** 2).sum(axis=1)
+        tied = np.flatnonzero(penalty == penalty.min())
+        best = min(tied, key=lambda c: labels[c])
+        order.append(labels[best])
+        chosen = active[:, best].copy()
+        slopes = np.where(degenerate[:k], 0.0, np.clip(rho[best], -1.0, 1.0))
+        last = k - 1
+        if best != last:
+            Z[:, best] = Z[:, last]
+            slopes[best] = slopes[last]
+            degenerate[best] = degenerate[last]
+            left[best] = left[last]
+            labels[best] = labels[last]
+        k = last
+        labels.pop()
+        slopes = slopes[:k]
+        remaining_share = np.maximum(1.0 - slopes * slopes, 0.0)
+        left[:k] *= remaining_share
+        degenerate[:k] |= left[:k] <= EXPLAINED_SHARE
+        block = Z[:, :k]
+        block -= chosen[:, None] * slopes[None, :]
+        block /= np.sqrt(np.where(degenerate[:k], 1.0, remaining_share))[None, :]
+        block[:, degenerate[:k]] = 0.0
+    order.extend(labels[:1])
+    return tuple(order)
+
+
+# ------------------------------------------------------------------ parents and noise
+
+
+def _validate_order(order: Sequence[int], p: int) -> tuple[int, ...]:
+    order = tuple(int(i) for i in order)
+    if sorted(order) != list(range(p)):
+        raise InputError(f"order must be a permutation of the {p} column indices, got {order}")
+    return order
+
+
+def prune_parents(X, order: Sequence[int], alpha: float = 0.05, correction: str = "holm") -> tuple[tuple[int, ...], ...]:
+    """Parents of each variable: its significant predecessors in ``order``.
+
+    Each variable is regressed by OLS (with intercept) on all variables
+    before it in ``order``.  Null hypothesis of each coefficient's t-test:
+    its partial slope is 0 (t with n - k - 1 degrees of freedom, classical
+    standard errors).  All coefficients of all equations form one family,
+    corrected with ``correction`` (``"holm"``, Holm 1979, or ``"fdr_bh"``,
+    Benjamini & Hochberg 1995) through
+    ``statsmodels.stats.multitest.multipletests``; a predecessor is kept
+    when its adjusted p-value is below ``alpha``.  This is the pruning by
+    regression of Shimizu et al. (2011) with a multiplicity-corrected test
+    instead of a penalty.
+
+    The p - 1 nested regressions share one QR factorisation of the centred,
+    unit-scaled design in causal order: the equation of the j-th variable
+    uses the leading j x j block of R (coefficients R_jj^-1 r_j, residual
+    sum of squares R[j, j]^2, covariance sigma^2 (R_jj' R_jj)^-1).  That is
+    the least squares of :func:`preflight.fit.ols` and
+    :func:`preflight.fit.coefficient_standard_errors` (the tests compare
+    them) at the cost of one regression instead of p.  When the design is
+    rank-deficient, or has no more rows than columns, each equation is
+    fitted with those two functions instead.
+
+    Constant columns neither have nor are parents.  An equation without
+    residual degrees of freedom, or with exactly collinear predecessors,
+    keeps no parents from its untestable coefficients.  Returns a tuple
+    indexed by column; each entry lists parent indices in ascending order.
+    """
+    from statsmodels.stats.multitest import multipletests
+
+    if not 0.0 < alpha < 1.0:
+        raise InputError(f"alpha must lie in (0, 1), got {alpha}")
+    if correction not in ("holm", "fdr_bh"):
+        raise InputError(f"correction must be 'holm' or 'fdr_bh', got {correction!r}")
+    X = as_matrix(X, name="X", min_n=3)
+    n, p = X.shape
+    order = _validate_order(order, p)
+    active = [j for j in order if np.ptp(X[:, j]) > 0]
+    candidates, p_values = _nested_t_tests(X, active)
+    if candidates is None:
+        candidates, p_values = _per_equation_t_tests(X, active)
+    parents: list[list[int]] = [[] for _ in range(p)]
+    if p_values:
+        reject = multipletests(np.asarray(p_values), alpha=alpha, method=correction)[0]
+        for (child, parent), keep in zip(candidates, reject):
+            if keep:
+                parents[child].append(parent)
+    return tuple(tuple(sorted(ps)) for ps in parents)
+
+
+def _two_sided_t(t: np.ndarray, df: int) -> np.ndarray:
+    from scipy import stats
+
+    return 2.0 * stats.t.sf(np.abs(t), df)
+
+
+def _nested_t_tests(X: np.ndarray, active: list[int]):
+    """t-test p-values of every equation from one QR; (None, None) when it does not apply."""
+    from scipy.linalg import solve_triangular
+
+    n, m = X.shape[0], len(active)
+    if m < 2:
+        return [], []
+    if n <= m + 1:
+        return None, None
+    design = X[:, active] - X[:, active].mean(axis=0)
+    design /= np.sqrt((design * design).sum(axis=0))
+    r = np.linalg.qr(design, mode="r")
+    diagonal = np.abs(np.diag(r))
+    if diagonal.min() <= 1e-10 * diagonal.max():
+        return None, None
+    r_inv = solve_triangular(r, np.eye(m), lower=False)
+    candidates: list[tuple[int, int]] = []
+    p_values: list[float] = []
+    for j in range(1, m):
+        block_inv = r_inv[:j, :j]
+        coef = block_inv @ r[:j, j]
+        df = n - j - 1
+        sigma2 = r[j, j] ** 2 / df
+        se = np.sqrt(sigma2 * (block_inv * block_inv).sum(axis=1))
+        pv = _two_sided_t(coef / se, df)
+        for parent, value in zip(active[:j], pv):
+            candidates.append((active[j], parent))
+            p_values.append(float(value))
+    return candidates, p_values
+
+
+def _per_equation_t_tests(X: np.ndarray, active: list[int]):
+    candidates: list[tuple[int, int]] = []
+    p_values: list[float] = []
+    for position in range(1, len(active)):
+        child, predecessors = active[position], active[:position]
+        design = X[:, predecessors]
+        fit = ols(design, X[:, child])
+        pv = np.ones(len(predecessors))
+        if fit.df_resid > 0 and fit.rank == len(predecessors) + 1:
+            try:
+                se = coefficient_standard_errors(design, fit)[1:]
+            except np.linalg.LinAlgError:
+                se = None
+            if se is not None:
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    pv = _two_sided_t(fit.coef[1:] / se, fit.df_resid)
+                pv = np.where(np.isfinite(pv), pv, 1.0)
+        for parent, value in zip(predecessors, pv):
+            candidates.append((child, parent))
+            p_values.append(float(value))
+    return candidates, p_values
+
+
+def noise_estimates(X, parents: Sequence[Sequence[int]]) -> np.ndarray:
+    """Residual of each structural equation x_j = b'x_parents(j) + e_j (OLS with intercept).
+
+    A variable without parents gets its centred values.  Returns an (n, p)
+    array whose column j estimates the noise e_j.  Descriptive; reference:
+    the structural equation model of Shimizu et al. (2006).
+    """
+    X = as_matrix(X, name="X", min_n=3)
+    n, p = X.shape
+    if len(parents) != p:
+        raise InputError(f"parents must list one parent set per column ({p}), got {len(parents)}")
+    out = np.empty((n, p))
+    for j, ps in enumerate(parents):
+        ps = [int(i) for i in ps]
+        if any(i == j or not 0 <= i < p for i in ps):
+            raise InputError(f"parent set of column {j} is invalid: {ps}")
+        out[:, j] = residualize(X[:, j], X[:, ps] if ps else None)
+    return out
+
+
+# ------------------------------------------------------------------ ICA cross-check
+
+
+@dataclass(frozen=True)
+class ComponentScreen:
+    """FastICA components of the standardised table and what they look like.
+
+    ``normality`` and ``dependence`` carry ``p_adjusted`` filled in here
+    (Holm or BH within each of the two families), because the verdicts
+    ``gaussian_like`` and ``dependent_pairs`` depend on them.
+    """
+
+    n_components: int
+    gaussian_like: tuple[int, ...]
+    """Components whose normality tests do not declare a material departure."""
+    dependent_pairs: tuple[tuple[int, int], ...]
+    """Component pairs whose adjusted HSIC p-value is below alpha."""
+    normality: tuple[tuple[CheckResult, ...], ...]
+    pairs: tuple[tuple[int, int], ...]
+    dependence: tuple[CheckResult, ...]
+    checks: tuple[CheckResult, ...]
+    """Two summary results for the report's global section."""
+    converged: bool
+    note: str = ""
+
+    @property
+    def n_gaussian(self) -> int:
+        return len(self.gaussian_like)
+
+    @property
+    def dependent(self) -> bool:
+        return bool(self.dependent_pairs)
+
+    @property
+    def flags(self) -> tuple[str, ...]:
+        out = []
+        if self.n_gaussian >= 2:
+            out.append("multiple-gaussian-components")
+        if self.dependent:
+            out.append("dependent-components")
+        return tuple(out)
+
+
+def _pair_seed(seed: int, a: int, b: int) -> int:
+    return int(np.random.SeedSequence([seed & 0xFFFFFFFF, a, b]).generate_state(1)[0])
+
+
+def fastica_gaussian_components(
+    X,
+    seed: int = 0,
+    alpha: float = 0.05,
+    correction: str = "holm",
+    min_abs_skew: float = 0.1,
+    min_abs_excess_kurtosis: float = 0.2,
+    normality_max_n: int = 5000,
+    hsic_exact_max_n: int = 2000,
+    hsic_max_n: int = 20000,
+    hsic_features: int = 128,
+    hsic_permutations: int = 0,
+    max_iter: int = 1000,
+    tol: float = 1e-4,
+) -> ComponentScreen:
+    """FastICA cross-check of the noise shape and of hidden common causes.
+
+    The non-constant columns are standardised and unmixed with
+    ``sklearn.decomposition.FastICA`` (``whiten="unit-variance"``,
+    ``random_state=seed``, as many components as the covariance has rank).
+
+    1. Each component gets the normality battery
+       (:func:`preflight.checks.normality.normality_checks`); p-values are
+       adjusted across all components' tests together; a component is
+       Gaussian-like unless :func:`~preflight.checks.normality.is_nongaussian`
+       declares a material departure.  Null hypothesis per test: the
+       component is normal.  ICA cannot unmix more than one Gaussian source
+       (Comon 1994), so two or more Gaussian-like components mean the
+       linear non-Gaussian model is not identified.
+    2. Every pair of components gets HSIC
+       (:func:`preflight.checks.independence.hsic`), adjusted within that
+       family.  Null hypothesis: the two components are independent.  A
+       hidden common cause adds a source without adding an observed
+       variable; the square unmixing then cannot recover independent
+       components (Hoyer et al. 2008), so significant dependence points to
+       a latent confounder, or to nonlinear mechanisms.
+
+    The ``min_abs_*`` defaults are Policy.nongaussian_min_abs_skew and
+    Policy.nongaussian_min_abs_excess_kurtosis; the ``hsic_*`` ones mirror
+    the policy's HSIC keys.  Reference: Hyvärinen & Oja (2000) for FastICA.
+    """
+    import warnings
+
+    from sklearn.decomposition import FastICA
+    from sklearn.exceptions import ConvergenceWarning
+    from statsmodels.stats.multitest import multipletests
+
+    from preflight.checks.independence import hsic
+    from preflight.checks.normality import is_nongaussian, normality_checks
+
+    if not 0.0 < alpha < 1.0:
+        raise InputError(f"alpha must lie in (0, 1), got {alpha}")
+    X = as_matrix(X, name="X", min_n=8)
+    n = X.shape[0]
+    Z, degenerate = _standardise_columns(X)
+    Z = Z[:, ~degenerate]
+    notes = []
+    if degenerate.any():
+        notes.append(f"{int(degenerate.sum())} constant column(s) left out")
+    if Z.shape[1] == 0:
+        return ComponentScreen(0, (), (), (), (), (), (), True, "; ".join(notes + ["no non-constant column"]))
+    singular = np.linalg.svd(Z / math.sqrt(n), compute_uv=False)
+    rank = int(np.sum(singular > 1e-10 * singular[0]))
+    if rank < Z.shape[1]:
+        notes.append(f"covariance rank {rank} < {Z.shape[1]} columns: {rank} components")
+    ica = FastICA(n_components=rank, whiten="unit-variance", random_state=seed, max_iter=max_iter, tol=tol)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ConvergenceWarning)
+        S = ica.fit_transform(Z)
+    converged = not any(issubclass(w.category, ConvergenceWarning) for w in caught)
+    if not converged:
+        notes.append(f"FastICA did not converge in {max_iter} iterations (seed {seed})")
+    k = S.shape[1]
+
+    # --- normality of each component, one family across all components
+    normality = [list(normality_checks(S[:, c], max_n=normality_max_n, seed=_pair_seed(seed, c, c)))
+                 for c in range(k)]
+    where = [(c, t) for c in range(k) for t, r in enumerate(normality[c])
+             if r.p_value is not None and np.isfinite(r.p_value)]
+    if where:
+        adjusted = multipletests(np.array([normality[c][t].p_value for c, t in where]), method=correction)[1]
+        for (c, t), value in zip(where, adjusted):
+            normality[c][t] = _with_adjusted(normality[c][t], float(value))
+    named = [tuple(r.with_name(f"{r.name} (ica component {c + 1})") for r in normality[c]) for c in range(k)]
+    gaussian_like = tuple(c for c in range(k) if not is_nongaussian(
+        named[c], alpha, min_abs_skew=min_abs_skew, min_abs_excess_kurtosis=min_abs_excess_kurtosis,
+        p_key="p_adjusted"))
+
+    # --- independence of every pair of components
+    pairs = tuple((a, b) for a in range(k) for b in range(a + 1, k))
+    dependence = [hsic(S[:, a], S[:, b], exact_max_n=hsic_exact_max_n, max_n=hsic_max_n,
+                       n_features=hsic_features, permutations=hsic_permutations,
+                       seed=_pair_seed(seed, a + 1, b + 1)).with_name(
+                           f"hsic (ica components {a + 1}, {b + 1})") for a, b in pairs]
+    tested = [m for m, r in enumerate(dependence) if r.p_value is not None and np.isfinite(r.p_value)]
+    dependent_pairs: list[tuple[int, int]] = []
+    if tested:
+        adjusted = multipletests(np.array([dependence[m].p_value for m in tested]), method=correction)[1]
+        for m, value in zip(tested, adjusted):
+            dependence[m] = _with_adjusted(dependence[m], float(value))
+            if value < alpha:
+                dependent_pairs.append(pairs[m])
+
+    checks = [CheckResult(
+        name="gaussian-like ica components", statistic=float(len(gaussian_like)), p_value=None,
+        effect=len(gaussian_like) / k, effect_name="share of components", n=n,
+        note=(("no material departure from normality in component(s) " + ", ".join(str(c + 1) for c in gaussian_like)
+               if gaussian_like else "every component departs materially from normality")
+              + f" ({correction} across {k} components' tests, alpha {alpha:g}); at most one Gaussian source "
+              "is identifiable"),
+    )]
+    if tested:
+        raw = [dependence[m].p_value for m in tested]
+        adj = [dependence[m].p_adjusted for m in tested]
+        effects = [dependence[m].effect for m in tested if dependence[m].effect is not None]
+        checks.append(CheckResult(
+            name="ica component dependence (hsic)", statistic=float(len(dependent_pairs)),
+            p_value=float(min(raw)), p_adjusted=float(min(adj)),
+            effect=float(max(effects)) if effects else None, effect_name="largest normalised HSIC", n=n,
+            note=(f"{len(dependent_pairs)} of {len(tested)} component pairs dependent ({correction}, alpha {alpha:g}); "
+                  "p-values are the smallest over pairs; dependent components suggest a hidden common cause "
+                  "or nonlinear mechanisms"),
+        ))
+    return ComponentScreen(
+        n_components=k, gaussian_like=gaussian_like, dependent_pairs=tuple(dependent_pairs),
+        normality=tuple(named), pairs=pairs, dependence=tuple(dependence), checks=tuple(checks),
+        converged=converged, note="; ".join(notes),
+    )
+
+
+def _with_adjusted(result: CheckResult, p_adjusted: float) -> CheckResult:
+    from dataclasses import replace
+
+    return replace(result, p_adjusted=p_adjusted)
+
+
+# ------------------------------------------------------------------ multivariate normality
+
+HENZE_ZIRKLER_MAX_N = 5000
+"""pingouin builds n x n distance matrices; above this many rows a seeded subsample is used."""
+
+
+def henze_zirkler(X, seed: int = 0, max_n: int = HENZE_ZIRKLER_MAX_N) -> CheckResult:
+    """Henze-Zirkler test of multivariate normality of the whole table.
+
+    Null hypothesis: the rows are iid draws from a multivariate normal
+    distribution.  The statistic is a weighted L2 distance between the
+    empirical characteristic function of the scaled residuals and the
+    normal one, with the smoothing parameter of Henze & Zirkler (1990) and
+    a lognormal null approximation; computed by
+    ``pingouin.multivariate_normality``.  Above ``max_n`` rows the test runs
+    on a seeded subsample (the note says so).  Constant columns are left
+    out; with fewer than two varying columns, or a singular covariance, no
+    test is run (NaN statistic, p-value None).  Reference: Henze & Zirkler (1990).
+    """
+    import pingouin
+
+    X = as_matrix(X, name="X", min_n=3)
+    n_total = X.shape[0]
+    notes = []
+    varying = [j for j in range(X.shape[1]) if np.ptp(X[:, j]) > 0]
+    if len(varying) < X.shape[1]:
+        notes.append(f"{X.shape[1] - len(varying)} constant column(s) left out")
+    X = X[:, varying]
+    if n_total > max_n:
+        rows = np.sort(np.random.default_rng(seed).choice(n_total, int(max_n), replace=False))
+        X = X[rows]
+        notes.append(f"seeded subsample of {int(max_n)} of {n_total} rows (seed {seed})")
+    n = X.shape[0]
+    if X.shape[1] < 2:
+        return CheckResult(name="henze-zirkler", statistic=math.nan, p_value=None, n=n,
+                           note="; ".join(notes + ["fewer than two varying columns: no multivariate test"]))
+    centred = X - X.mean(axis=0)
+    singular = np.linalg.svd(centred / np.sqrt((centred * centred).sum(axis=0)), compute_uv=False)
+    if singular[-1] <= 1e-10 * singular[0]:
+        return CheckResult(name="henze-zirkler", statistic=math.nan, p_value=None, n=n,
+                           note="; ".join(notes + ["singular covariance (exactly collinear columns): no test"]))
+    hz, p_value, _ = pingouin.multivariate_normality(X, alpha=0.05)
+    notes.append("lognormal approximation of the null distribution (pingouin.multivariate_normality)")
+    return CheckResult(name="henze-zirkler", statistic=float(hz), p_value=float(p_value), n=n,
+                       note="; ".join(notes))
+
+
+# ------------------------------------------------------------------ rows needed
+
+
+def rows_needed(skewness: float, excess_kurtosis: float, alpha: float = 0.05, power: float = 0.8) -> int | None:
+    """Rows the Jarque-Bera test needs to detect this skewness and excess kurtosis.
+
+    Under a fixed alternative, JB = n (g1^2/6 + g2^2/24) is approximately
+    noncentral chi-squared with 2 degrees of freedom and noncentrality
+    lambda = n (skew^2/6 + exkurt^2/24) (the local-alternative
+    approximation; Jarque & Bera 1987).  The function finds the lambda at
+    which ``scipy.stats.ncx2`` gives ``power`` beyond the chi-squared(2)
+    critical value at ``alpha`` and returns ceil(lambda / (skew^2/6 +
+    exkurt^2/24)), at least 3.  None when both effects are 0 (no finite n).
+    The approximation ignores that the moments' variance also changes under
+    the alternative, so treat it as an order of magnitude.
+    """
+    from scipy import optimize, stats
+
+    for label, value in (("skewness", skewness), ("excess_kurtosis", excess_kurtosis)):
+        if value is None or not math.isfinite(float(value)):
+            raise InputError(f"{label} must be a finite number, got {value!r}")
+    if not 0.0 < alpha < 1.0:
+        raise InputError(f"alpha must lie in (0, 1), got {alpha}")
+    if not alpha < power < 1.0:
+        raise InputError(f"power must lie in (alpha, 1), got {power}")
+    per_row = float(skewness) ** 2 / 6.0 + float(excess_kurtosis) ** 2 / 24.0
+    if per_row == 0.0:
+        return None
+    critical = stats.chi2.isf(alpha, 2)
+
+    def shortfall(lam: float) -> float:
+        return float(stats.ncx2.sf(critical, 2, lam)) - power
+
+    upper = 1.0
+    while shortfall(upper) < 0:
+        upper *= 2.0
+    lam = optimize.brentq(shortfall, 0.0, upper, xtol=1e-10)
+    rows = math.ceil(lam / per_row)
+    return int(max(rows, 3))
+
+
+# ------------------------------------------------------------------ sortability
+
+
+def _pairs_to_score(edges: Iterable[tuple[int, int]], p: int, paths: bool) -> list[tuple[int, int]]:
+    edge_list = []
+    for edge in edges:
+        i, j = (int(v) for v in edge)
+        if not (0 <= i < p and 0 <= j < p) or i == j:
+            raise InputError(f"edge {edge} is not a pair of distinct column indices below {p}")
+        edge_list.append((i, j))
+    if not paths:
+        return edge_list
+    # Every (i, j, k) with a directed path of length k from i to j counts
+    # once, k = 1..p-1 (Reisach et al. 2021, definition of varsortability).
+    adjacency = np.zeros((p, p), dtype=np.int64)
+    for i, j in edge_list:
+        adjacency[i, j] = 1
+    out = []
+    reach = adjacency.copy()
+    for _ in range(p - 1):
+        for i, j in zip(*np.nonzero(reach)):
+            out.append((int(i), int(j)))
+        reach = ((reach @ adjacency) > 0).astype(np.int64)
+        if not reach.any():
+            break
+    return out
+
+
+def _sortability(scores: np.ndarray, pairs: list[tuple[int, int]]) -> float:
+    if not pairs:
+        return math.nan
+    total = 0.0
+    for i, j in pairs:
+        a, b = float(scores[i]), float(scores[j])
+        if math.isclose(a, b, rel_tol=1e-9, abs_tol=1e-300):
+            total += 0.5
+        elif a < b:
+            total += 1.0
+    return total / len(pairs)
+
+
+def varsortability(X, edges: Iterable[tuple[int, int]], paths: bool = False) -> float:
+    """Share of edges i -> j along which the marginal variance increases (ties, within 1e-9 relative, count half).
+
+    Descriptive.  Near 1, sorting the columns by variance alone already
+    recovers the order, which happens in simulated data with unit-scale
+    noise and is destroyed by rescaling the columns; a result that relies on
+    it is an artefact of scale.  ``paths=True`` gives the original
+    definition, over every directed path (each path length counted), not
+    only the edges.  NaN when there is nothing to score.  Reference:
+    Reisach, Seiler & Weichwald (2021), "Beware of the simulated DAG!".
+    """
+    X = as_matrix(X, name="X", min_n=2)
+    return _sortability(X.var(axis=0, ddof=1), _pairs_to_score(edges, X.shape[1], paths))
+
+
+def r2_sortability(X, edges: Iterable[tuple[int, int]], paths: bool = False) -> float:
+    """Share of edges i -> j along which R^2 on all other columns increases (ties count half).
+
+    Descriptive.  R^2 of each column regressed on all others (with
+    intercept) is scale-invariant, so unlike varsortability it survives
+    standardisation; near 1 means the order can be read off the R^2.
+    Constant columns score R^2 = 0.  Reference: Reisach et al. (2023), "A
+    scale-invariant sorting criterion to find a causal order in additive
+    noise models" (NeurIPS).
+    """
+    from preflight.screen import variance_inflation_factors
+
+    X = as_matrix(X, name="X", min_n=3)
+    vif = variance_inflation_factors(X)
+    with np.errstate(divide="ignore"):
+        r_squared = np.where(np.isnan(vif), 0.0, 1.0 - 1.0 / vif)
+    return _sortability(r_squared, _pairs_to_score(edges, X.shape[1], paths))
