@@ -295,7 +295,17 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
     # ---- pairs: judge, then apply noise dependence where equations are linear
     findings: list[PairFindings] = []
     misspecified: set[str] = set()
+    # A skeleton edge between two variables that show no association once
+    # their conditioning set is partialled out is a test error of the
+    # skeleton phase (typically the two parents of a collider, which no
+    # conditioning set can separate), so the pair is treated as non-adjacent.
     preliminary = [judge_pair(b, g, policy) for b, g in zip(batteries, pair_groups)]
+    for k, f in enumerate(preliminary):
+        if f.adjacent and "no-association" in f.flags:
+            i, j = pair_index[k]
+            adjacency[i, j] = adjacency[j, i] = False
+            batteries[k] = replace(batteries[k], adjacent=False)
+            preliminary[k] = judge_pair(batteries[k], pair_groups[k], policy)
     for f in preliminary:
         if f.adjacent and "nonlinear" in f.flags:
             misspecified.update((f.x, f.y))
