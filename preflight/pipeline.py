@@ -134,16 +134,17 @@ def _conditioning_sets(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[
     """(Z for the pair, other parents of j, other parents of i).
 
     Z holds the common neighbours of i and j that the structural view puts
-    among the parents of either: an observed common cause must be
-    partialled out, while a common child must not be (conditioning on a
-    collider creates dependence).  A parent of only one of the two is
-    independent of the other's mechanism and is left out, which keeps a
+    among the parents of both: an observed common cause must be partialled
+    out.  A common neighbour that is a parent of only one of them is either
+    a common child of the two or a mediator; a child must not be conditioned
+    on (that creates dependence) and leaving a mediator in the residual keeps
+    it independent of the cause, so neither enters.  This also keeps a
     mis-estimated order elsewhere in the table from bending this pair.
     """
     common = set(np.flatnonzero(adjacency[i] & adjacency[j]).tolist()) - {i, j}
-    conditioning = tuple(sorted(common & (set(parents[i]) | set(parents[j]))))
-    others_of_j = tuple(c for c in conditioning if c in parents[j])
-    others_of_i = tuple(c for c in conditioning if c in parents[i])
+    conditioning = tuple(sorted(common & set(parents[i]) & set(parents[j])))
+    others_of_j = conditioning
+    others_of_i = conditioning
     return conditioning, others_of_j, others_of_i
 
 
