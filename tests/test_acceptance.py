@@ -65,7 +65,7 @@ def _pool_map(func, tasks):
 @pytest.mark.parametrize("family", ["uniform", "laplace"])
 def test_non_gaussian_pairs_are_oriented(family):
     # Issue: at n = 1000, uniform- or Laplace-noise pairs oriented correctly in >= 95 %.
-    replicates = 60
+    replicates = 100
     results = _pool_map(_pair_finding, [(family, 1000 + k) for k in range(replicates)])
     correct = sum(orientation == "x->y" for orientation, _ in results)
     wrong = sum(orientation == "y->x" for orientation, _ in results)
@@ -75,7 +75,7 @@ def test_non_gaussian_pairs_are_oriented(family):
 
 def test_gaussian_pairs_stay_undetermined():
     # Issue: Gaussian pairs come out undetermined with gaussian-noise in >= 90 %.
-    replicates = 60
+    replicates = 100
     results = _pool_map(_pair_finding, [("gaussian", 2000 + k) for k in range(replicates)])
     hits = sum(o == "undetermined" and "gaussian-noise" in f for o, f in results)
     assert hits >= 0.90 * replicates, results
@@ -85,7 +85,7 @@ def test_gaussian_pairs_stay_undetermined():
 @pytest.mark.parametrize("kind,flag", [("tanh", "nonlinear"), ("scaled", "heteroscedastic")])
 def test_nonlinear_and_heteroscedastic_are_flagged(kind, flag):
     # Issue: nonlinear and heteroscedastic raised on tanh and |x|-scaled noise in >= 90 %.
-    replicates = 40
+    replicates = 100
     results = _pool_map(_mechanism_finding, [(kind, 3000 + k) for k in range(replicates)])
     assert sum(flag in flags for flags in results) >= 0.90 * replicates, results
 
