@@ -6,24 +6,14 @@ The CLI calls exactly this.
 
 from __future__ import annotations
 
-import datetime as _dt
-import os
 from dataclasses import replace
 from typing import Any, Callable
 
-import numpy as np
-
-from preflight._version import __version__
-from preflight.errors import InputError
-from preflight.evidence import Tagged, adjust_families, significant
 from preflight.io import LoadedData, load_table
-from preflight.policy import LEVELS, Policy, build_policy, level_rank
-from preflight.report.model import CAUTIONS, Report
-from preflight.results import CheckResult
+from preflight.policy import Policy, build_policy
+from preflight.report.model import Report
 
 Progress = Callable[[str, int, int], None]
-
-LOAD_OPTIONS = ("sep", "columns", "exclude", "missing")
 
 
 def _no_progress(stage: str, done: int, total: int) -> None:

@@ -179,7 +179,7 @@ def _run_batteries(X, names, tasks, policy: Policy, progress: Progress) -> list[
     work = X.shape[0] * sum(2 if t[5] else 1 for t in tasks)
     results: list[PairBattery] = []
     if jobs <= 1 or len(tasks) < 4 or work < 200_000:
-        _init_worker(X, names) if not _WORKER else None
+        # In-process: no BLAS thread limit, which would outlive this call.
         _WORKER["X"], _WORKER["names"] = X, names
         for k, task in enumerate(tasks):
             results.append(_battery_task(task))
