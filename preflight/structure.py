@@ -19,7 +19,7 @@
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Iterable, Sequence
 
 import numpy as np
@@ -141,22 +141,26 @@ def pairwise_likelihood_ratios(X, measure: str = "auto") -> np.ndarray:
         R[i, j] = H(x_j) + H(r_{i|j}) - H(x_i) - H(r_{j|i})
                 = J(x_i) + J(r_{j|i}) - J(x_j) - J(r_{i|j}),
 
-    the general likelihood ratio of Hyvärinen & Smith (2013, section 2) with
+    the general likelihood ratio of Hyvärinen & Smith (2013) with
     differential entropies H replaced by an approximation (J is negentropy,
     H = H(gaussian) - J at unit variance).  R > 0 favours x_i -> x_j;
     R = -R.T.
 
     ``measure``:
     ``"logcosh"``  Hyvärinen's (1998) maximum-entropy approximation with
-                   log cosh and u exp(-u^2/2), the one HS2013 recommend; it
-                   needs every residual, O(n p^2) transcendental functions.
+                   log cosh and u exp(-u^2/2), the one HS2013 use for the
+                   general ratio; it needs every residual, O(n p^2)
+                   transcendental functions.
     ``"cumulant"`` the cumulant approximation J = skew^2/12 + kurt^2/48 of
                    the same residuals, computed exactly from cross moments
                    by matrix products; much faster, less robust to heavy tails.
     ``"auto"``     log-cosh when n p (p - 1) <= LOGCOSH_MAX_EVALUATIONS, else cumulant.
 
-    The simpler first-order form rho * E[x g(y) - g(x) y] is not used: it
-    depends on the sign of the kurtosis and misorders skewed noise.
+    The simpler first-order form rho * E[x g(y) - g(x) y] (HS2013's tanh
+    approximation, :mod:`preflight.checks.direction`) is not used here: it
+    depends on the sign of the kurtosis and, in our simulations, misorders
+    chains with skewed (exponential) noise that both entropy versions order
+    correctly.
 
     Pairs with an exactly collinear partner (|rho| = 1) or a constant column get R = 0.
     """
@@ -208,8 +212,8 @@ def causal_order(X, seed: int = 0, measure: str = "auto", max_n: int | None = No
         M_i = sum_j min(0, R[i, j])^2,
 
     the penalty for every pair whose likelihood ratio says x_j -> x_i
-    (the variant of HS2013 section 5 that replaces DirectLiNGAM's kernel
-    independence measure), and takes the smallest; exact ties go to the
+    (the likelihood-ratio variant of DirectLiNGAM proposed by HS2013 in
+    place of its kernel independence measure), and takes the smallest; exact ties go to the
     lower column index.  R comes from :func:`pairwise_likelihood_ratios`
     with ``measure`` (``"auto"``: the log-cosh entropy approximation
     whenever a step is small enough, the cumulant one otherwise).
@@ -440,6 +444,8 @@ class ComponentScreen:
     """Two summary results for the report's global section."""
     converged: bool
     note: str = ""
+    stable: bool = True
+    """Whether FastICA's seeded starts agree on the components (see fastica_gaussian_components)."""
 
     @property
     def n_gaussian(self) -> int:
@@ -459,12 +465,26 @@ class ComponentScreen:
         return tuple(out)
 
 
+STABLE_COMPONENT_CORRELATION = 0.95
+"""Components of two FastICA starts match when their |correlation| reaches this."""
+
 DEPENDENCE_EFFECT_ROWS = 30.0
 """Default materiality of component dependence: normalised HSIC of at least this / n (see fastica_gaussian_components)."""
 
 
 def _pair_seed(seed: int, a: int, b: int) -> int:
-    return int(np.random.SeedSequence([seed & 0xFFFFFFFF, a, b]).generate_state(1)[0])
+    return int(np.random.SeedSequence([seed & 0xFFFFFFFF, a & 0xFFFFFFFF, b & 0xFFFFFFFF]).generate_state(1)[0])
+
+
+def _same_components(S: np.ndarray, others: list[np.ndarray]) -> bool:
+    """Whether every other unmixing recovers each component of S up to sign, scale and order."""
+    Zs = _standardise_columns(S)[0]
+    for other in others:
+        Zo = _standardise_columns(other)[0]
+        matches = np.abs(Zs.T @ Zo / Zs.shape[0]).max(axis=1)
+        if matches.min() < STABLE_COMPONENT_CORRELATION:
+            return False
+    return True
 
 
 def fastica_gaussian_components(
@@ -480,14 +500,21 @@ def fastica_gaussian_components(
     hsic_features: int = 128,
     hsic_permutations: int = 0,
     min_dependence_effect: float | None = None,
+    restarts: int = 3,
     max_iter: int = 1000,
     tol: float = 1e-4,
 ) -> ComponentScreen:
     """FastICA cross-check of the noise shape and of hidden common causes.
 
     The non-constant columns are standardised and unmixed with
-    ``sklearn.decomposition.FastICA`` (``whiten="unit-variance"``,
-    ``random_state=seed``, as many components as the covariance has rank).
+    ``sklearn.decomposition.FastICA`` (``whiten="unit-variance"``, as many
+    components as the covariance has rank), from ``restarts`` seeded
+    starts (the first with ``random_state=seed``); the unmixing with the
+    largest summed log-cosh negentropy is kept.  When the starts disagree
+    (some component of the kept unmixing has |correlation| below
+    ``STABLE_COMPONENT_CORRELATION`` with every component of another start)
+    the components are not identified, which happens when the data are
+    close to Gaussian; the note says so and no pair is called dependent.
 
     1. Each component gets the normality battery
        (:func:`preflight.checks.normality.normality_checks`); p-values are
@@ -540,13 +567,23 @@ def fastica_gaussian_components(
     rank = int(np.sum(singular > 1e-10 * singular[0]))
     if rank < Z.shape[1]:
         notes.append(f"covariance rank {rank} < {Z.shape[1]} columns: {rank} components")
-    ica = FastICA(n_components=rank, whiten="unit-variance", random_state=seed, max_iter=max_iter, tol=tol)
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always", ConvergenceWarning)
-        S = ica.fit_transform(Z)
-    converged = not any(issubclass(w.category, ConvergenceWarning) for w in caught)
+    runs = []
+    for restart in range(max(1, int(restarts))):
+        state = seed if restart == 0 else _pair_seed(seed, -1 - restart, restart)
+        ica = FastICA(n_components=rank, whiten="unit-variance", random_state=state, max_iter=max_iter, tol=tol)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", ConvergenceWarning)
+            S_run = ica.fit_transform(Z)
+        runs.append((_logcosh_negentropy(_standardise_columns(S_run)[0]).sum(), restart,
+                     not any(issubclass(w.category, ConvergenceWarning) for w in caught), S_run))
+    # The most non-Gaussian unmixing is the ICA estimate (ties: earliest run).
+    _, best_run, converged, S = max(runs, key=lambda r: (r[0], -r[1]))
     if not converged:
         notes.append(f"FastICA did not converge in {max_iter} iterations (seed {seed})")
+    stable = _same_components(S, [r[3] for r in runs if r[1] != best_run])
+    if not stable:
+        notes.append(f"the unmixing differs between {len(runs)} FastICA starts: components are not identified "
+                     "(too little non-Gaussianity), so their dependence is not interpreted")
     k = S.shape[1]
 
     # --- normality of each component, one family across all components
@@ -577,7 +614,7 @@ def fastica_gaussian_components(
         for m, value in zip(tested, adjusted):
             dependence[m] = _with_adjusted(dependence[m], float(value))
             effect = dependence[m].effect
-            if value < alpha and effect is not None and effect >= material:
+            if stable and value < alpha and effect is not None and effect >= material:
                 dependent_pairs.append(pairs[m])
 
     checks = [CheckResult(
@@ -599,12 +636,13 @@ def fastica_gaussian_components(
             note=(f"{len(dependent_pairs)} of {len(tested)} component pairs dependent ({correction}, alpha {alpha:g}, "
                   f"normalised HSIC at least {material:.3g}); "
                   "p-values are the smallest over pairs; dependent components suggest a hidden common cause "
-                  "or nonlinear mechanisms"),
+                  "or nonlinear mechanisms"
+                  + ("" if stable else "; not interpreted: the FastICA starts disagree on the components")),
         ))
     return ComponentScreen(
         n_components=k, gaussian_like=gaussian_like, dependent_pairs=tuple(dependent_pairs),
         normality=tuple(named), pairs=pairs, dependence=tuple(dependence), checks=tuple(checks),
-        converged=converged, note="; ".join(notes),
+        converged=converged, note="; ".join(notes), stable=stable,
     )
 
 

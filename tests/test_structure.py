@@ -282,6 +282,34 @@ def test_fastica_flags_hidden_common_cause():
     assert alarms <= 2
 
 
+def test_fastica_does_not_interpret_unidentified_components():
+    # All-Gaussian sources: the unmixing is arbitrary; whether or not the
+    # starts agree, no dependence is declared and disagreement is noted.
+    for seed in range(5):
+        rng = np.random.default_rng(600 + seed)
+        X = rng.standard_normal((1000, 3)) @ np.array([[1.0, 0.5, 0.2], [0.0, 1.0, 0.4], [0.0, 0.0, 1.0]])
+        screen = structure.fastica_gaussian_components(X, seed=seed)
+        assert not screen.dependent
+        assert screen.stable or "not identified" in screen.note
+
+
+def test_component_matching_up_to_sign_scale_and_order():
+    rng = np.random.default_rng(42)
+    S = rng.uniform(-1, 1, (500, 3))
+    assert structure._same_components(S, [-3.0 * S[:, [2, 0, 1]]])
+    angle = np.pi / 6  # a 30-degree rotation of two components is a different unmixing
+    rotation = np.array([[np.cos(angle), -np.sin(angle), 0], [np.sin(angle), np.cos(angle), 0], [0, 0, 1]])
+    assert not structure._same_components(S, [S @ rotation])
+
+
+def test_fastica_verdict_ignores_shift_and_scale():
+    X = _confounded(np.random.default_rng(41), 2000, 1.0)
+    moved = X * np.array([1.0, 250.0, 1.0]) + np.array([83.0, 0.0, -1e3])
+    first = structure.fastica_gaussian_components(X, seed=2)
+    second = structure.fastica_gaussian_components(moved, seed=2)
+    assert (first.dependent, first.stable, first.n_gaussian) == (second.dependent, second.stable, second.n_gaussian)
+
+
 def test_fastica_result_is_complete():
     X = four_node(np.random.default_rng(1), 1000)
     screen = structure.fastica_gaussian_components(X, seed=3)
