@@ -226,9 +226,13 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
         global_flags.append("too-few-rows")
     elif n < policy.min_rows_orientation:
         global_flags.append("too-few-rows-to-orient")
-    from preflight.screen import collinearity_check
+    from preflight.screen import collinearity_check, duplicate_rows_check
 
     global_checks.append(Tagged(None, "global", collinearity_check(X, list(names), policy)))
+    duplicates = duplicate_rows_check(X, list(names), policy)
+    global_checks.append(Tagged(None, "global", duplicates))
+    if duplicates.passed is False:
+        global_flags.append("duplicate-rows")
 
     void = "too-few-rows" in global_flags or any("constant" in f for f in var_flags.values())
     view: StructuralView | None = None

@@ -68,6 +68,22 @@ class Policy:
     """Variance inflation factor above which a column is ``collinear``."""
     condition_number_max: float = 30.0
     """Condition number of the standardised design above which the table is collinear."""
+    duplicate_rows_max_share: float = 0.01
+    """Share of rows repeating an earlier row exactly above which ``duplicate-rows`` is raised.
+
+    Copied rows break the i.i.d. assumption and every test counts them as
+    fresh evidence.  Below 1 % they move an n-scaled statistic by under 1 %,
+    so they are reported in the duplicated-rows check but not flagged; set 0
+    to flag any repeat.
+    """
+    duplicate_rows_continuous_min_distinct_share: float = 0.5
+    """Repeated rows are judged only when some column has at least this share of distinct values among the distinct rows.
+
+    A column drawn from a continuous distribution has (almost) only distinct
+    values, so whole-row repeats are copies; in coarse data (counts, a few
+    levels) rows coincide by chance.  Half sits far from both: rounded
+    continuous measurements keep most values distinct, counts keep few.
+    """
 
     # --- normality (noise shape)
     shapiro_max_n: int = 5000
@@ -124,7 +140,8 @@ class Policy:
             raise InputError("policy spline_max_df must be at least 4")
         if self.shapiro_max_n < 3 or self.shapiro_max_n > 5000:
             raise InputError("policy shapiro_max_n must lie between 3 and 5000 (the range of Royston's approximation)")
-        for name in ("discrete_min_distinct_share", "varsortable_min_share"):
+        for name in ("discrete_min_distinct_share", "varsortable_min_share", "duplicate_rows_max_share",
+                     "duplicate_rows_continuous_min_distinct_share"):
             _check_range(name, getattr(self, name), 0.0, 1.0)
 
     def to_dict(self) -> dict[str, Any]:

@@ -39,6 +39,11 @@ The flags, in the order they are listed on a variable:
     section.
 
 ``missing-values`` is added by the loader, not here.
+
+The table-wide ``duplicate-rows`` (global) comes from
+:func:`duplicate_rows_check`: rows that repeat an earlier row exactly, more
+often than ``duplicate_rows_max_share``, in a table with a column that looks
+continuous.
 """
 
 from __future__ import annotations
@@ -317,6 +322,55 @@ def collinearity_check(X: np.ndarray, names: list[str], policy: Policy) -> Check
                        effect_name="condition number", n=n, note="; ".join(note_parts))
 
 
+# ---------------------------------------------------------------- repeated rows
+
+
+def duplicate_rows_check(X: np.ndarray, names: list[str], policy: Policy) -> CheckResult:
+    """Rows that exactly repeat an earlier row over the analysed columns (table-wide, descriptive).
+
+    No null hypothesis is tested.  The statistic is the number of rows equal,
+    in every analysed column, to some earlier row (n minus the number of
+    distinct rows, as ``pandas.DataFrame.duplicated`` counts them); the
+    effect is that number's share of the rows.  Under i.i.d. sampling from a
+    continuous distribution a whole-row repeat has probability 0, so repeats
+    there are copies (a merge or an export that wrote rows twice): the rows
+    are not i.i.d., and every test counts the copies as fresh evidence.
+    Coarsely recorded data (counts, levels) repeat by chance, so the rule
+    applies only when some column looks continuous: among the distinct rows,
+    at least ``policy.duplicate_rows_continuous_min_distinct_share`` of its
+    values are distinct (copies do not count against it).  Then the repeats
+    are material when their share exceeds ``policy.duplicate_rows_max_share``
+    (common practice for data-integrity screens; both thresholds are our
+    own).  ``passed`` is False exactly then, True otherwise; the caller
+    raises the global flag ``duplicate-rows`` on False.
+    """
+    X = as_matrix(X, name="X", min_n=1, allow_empty_columns=False)
+    if len(names) != X.shape[1]:
+        raise InputError(f"got {len(names)} names for {X.shape[1]} columns")
+    n = int(X.shape[0])
+    # Adding 0.0 maps -0.0 to 0.0: np.unique(axis=0) compares rows bytewise.
+    distinct_rows = np.unique(X + 0.0, axis=0)
+    m = int(distinct_rows.shape[0])
+    count = n - m
+    share = count / n
+    distinct_shares = [np.unique(distinct_rows[:, j]).shape[0] / m for j in range(X.shape[1])]
+    best = int(np.argmax(distinct_shares))
+    continuous = distinct_shares[best] >= policy.duplicate_rows_continuous_min_distinct_share
+    material = continuous and share > policy.duplicate_rows_max_share
+    if continuous:
+        why = (f"{names[best]} looks continuous ({distinct_shares[best]:.0%} of its values distinct among the "
+               f"{m} distinct rows), so repeats are copies; material above {policy.duplicate_rows_max_share:g}")
+    else:
+        why = (f"no column looks continuous (at most {distinct_shares[best]:.0%} of values distinct among the "
+               f"{m} distinct rows, below {policy.duplicate_rows_continuous_min_distinct_share:.0%}), "
+               "so repeats may be chance coincidences of coarse values and are not judged")
+    return CheckResult(
+        name="duplicated rows", statistic=float(count), p_value=None, effect=share,
+        effect_name="share of rows", n=n, passed=not material,
+        note=f"rows equal to an earlier row in all {X.shape[1]} analysed columns; {why}",
+    )
+
+
 # ---------------------------------------------------------------- the screen
 
 
@@ -328,7 +382,7 @@ def screen_variables(X: np.ndarray, names: list[str], policy: Policy) -> list[Va
     stored in the check's ``p_adjusted`` before the ``autocorrelated`` rule
     is applied.  See the module docstring for every rule.
     """
-    from statsmodels.stats.multitest import multipletests
+    from preflight.evidence import adjust_p_values
 
     X = np.asarray(X, dtype=np.float64)
     if X.ndim != 2 or len(names) != X.shape[1]:
@@ -371,7 +425,7 @@ def screen_variables(X: np.ndarray, names: list[str], policy: Policy) -> list[Va
              if c.name.startswith("ljung-box") and c.p_value is not None]
     if where:
         raw = np.array([checks[j][k].p_value for j, k in where])
-        adjusted = multipletests(raw, method=policy.correction)[1]
+        adjusted = adjust_p_values(raw, policy.correction)
         for (j, k), p_adj in zip(where, adjusted):
             lb = replace(checks[j][k], p_adjusted=float(p_adj))
             checks[j][k] = lb

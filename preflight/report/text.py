@@ -26,6 +26,7 @@ WHAT_STILL_FITS = {
     "too-few-rows": "collecting more rows",
     "too-few-rows-to-orient": "the equivalence class, or collecting more rows",
     "varsortable": "checking that findings survive standardising the columns",
+    "duplicate-rows": "removing the repeated rows, or confirming they are genuine observations",
 }
 
 FLAG_MEANING = {
