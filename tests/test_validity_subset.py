@@ -1,0 +1,160 @@
+"""A fast subset of the validity study (benchmarks/validity.py), run by plain pytest.
+
+The study's own functions are imported from the script, so the subset and
+the full run share one implementation: the same nulls and tests for the
+calibration, the same scoring of a report against a scenario's truth, the
+same headline arithmetic.  The full study and its tables are in
+benchmarks/RESULTS.md.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import sys
+from itertools import combinations
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _load_validity():
+    name = "preflight_validity_study"
+    if name in sys.modules:
+        return sys.modules[name]
+    spec = importlib.util.spec_from_file_location(name, ROOT / "benchmarks" / "validity.py")
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module  # dataclasses look their module up while the class is built
+    spec.loader.exec_module(module)
+    return module
+
+
+validity = _load_validity()
+
+CALIBRATION_REPLICATES = 500
+SEED = 20261203
+
+# Cheap tests at small n (a few ms per replicate); the full study covers the rest.
+CHEAP = ("Anderson-Darling", "D'Agostino-Pearson", "Ramsey RESET", "Breusch-Pagan (Koenker)",
+         "Pearson (Fisher z)", "Spearman", "Ljung-Box")
+
+
+def _cheap_cases():
+    out = []
+    seen = set()
+    for case in validity.test_cases():
+        if case.name.startswith(CHEAP) and case.name not in seen:
+            seen.add(case.name)
+            out.append(case)
+    return out
+
+
+@pytest.mark.parametrize("case", _cheap_cases(), ids=lambda c: c.name)
+def test_rejection_rate_under_the_null_lies_in_the_binomial_99_interval(case):
+    row = validity.calibrate(case, 200, CALIBRATION_REPLICATES, SEED)
+    assert row["replicates"] == CALIBRATION_REPLICATES  # every replicate produced a p-value
+    assert row["low"] <= row["rejections"] <= row["high"], row
+
+
+def test_power_exceeds_alpha_under_the_alternative():
+    # The power side of the same machinery: at n = 500 each of these alternatives is large.
+    for case in _cheap_cases():
+        if case.name.startswith(("Pearson", "Spearman")):
+            n = 2000
+        else:
+            n = 500
+        rejections, valid = validity.rejection_count(case, n, 60, SEED, "alternative")
+        assert valid == 60
+        assert rejections / valid > 0.3, (case.name, rejections)
+
+
+def test_binomial_interval_matches_scipy_and_catches_a_broken_test():
+    from scipy import stats
+
+    low, high = validity.binomial_interval(500)
+    assert (low, high) == tuple(int(v) for v in stats.binom.interval(0.99, 500, 0.05))
+    broken = validity.TestCase("always 0.01", "none", lambda d, s: 0.01, lambda rng, n: rng.normal(size=n),
+                               "N(0, 1)", (50,), lambda rng, n: rng.normal(size=n), "same", (50,))
+    row = validity.calibrate(broken, 50, 100, SEED)
+    assert row["rejections"] == 100 and not row["inside"]
+
+
+def test_scoring_counts_reversed_spurious_and_missed_edges():
+    from preflight.scenarios import simulate
+
+    scenario = simulate("linear-non-gaussian", "chain", 3, 60, "uniform", 5)
+    spec = validity.Spec("linear-non-gaussian", "chain", "uniform", 3, 60, 0, 5)
+    (a, b), (c, d) = [tuple(scenario.names.index(v) for v in edge) for edge in scenario.true_edges()]
+    names = scenario.names
+    spurious = {frozenset(p) for p in combinations(range(3), 2)} - {frozenset((a, b)), frozenset((c, d))}
+    s1, s2 = sorted(next(iter(spurious)))
+
+    def pair(i, j, adjacent, cause=None):
+        x, y = (i, j) if i < j else (j, i)
+        orientation = "undetermined" if cause is None else ("x->y" if cause == x else "y->x")
+        return {"x": names[x], "y": names[y], "adjacent": adjacent, "orientation": orientation, "flags": []}
+
+    report = {
+        "conclusion": {"level": "linear-non-gaussian", "rules_fired": []},
+        "pairs": [pair(a, b, True, cause=b),     # reversed
+                  pair(c, d, True, cause=None),  # missed
+                  pair(s1, s2, True, cause=s1)],  # spurious, oriented
+        "variables": [{"name": v, "flags": []} for v in names],
+        "global": {"flags": []},
+    }
+    scored = validity.score(scenario, spec, report)
+    counts = scored["counts"]
+    assert counts["reversed"] == 1 and counts["missed"] == 1 and counts["spurious_oriented"] == 1
+    assert validity.false_orientations(counts) == (2, 3)
+    assert scored["correct_level"]
+
+
+def _run_headline_subset():
+    # A handful of seeded scenarios on the cheap end of the grid (p = 4, n = 1000): the first
+    # headline figure on linear non-Gaussian chains and colliders, the second on Gaussian and
+    # autocorrelated chains.  Seeds come from the study's own derivation, not chosen by outcome.
+    specs = []
+    for kind, shape in (("linear-non-gaussian", "chain"), ("linear-non-gaussian", "collider"),
+                        ("gaussian", "chain"), ("autocorrelated", "chain")):
+        for r in range(2):
+            noise = "gaussian" if kind == "gaussian" else validity.NONGAUSSIAN_FAMILIES[r]
+            seed = validity.derived_seed(SEED, 0, validity.SHAPES.index(shape), 1000, r, 99)
+            specs.append(validity.Spec(kind, shape, noise, 4, 1000, r, seed))
+    records = [validity.run_spec(spec) for spec in specs]
+    return records, validity.headline(records)
+
+
+@pytest.fixture(scope="module")
+def headline_subset():
+    return _run_headline_subset()
+
+
+def test_subset_runs_without_errors(headline_subset):
+    records, _ = headline_subset
+    assert [r.get("error") for r in records] == [None] * len(records)
+
+
+def test_headline_orientation_is_consistent_with_the_two_percent_target(headline_subset):
+    # Rejected when the count of wrong orientations is too high for a rate of 2 % (exact one-sided
+    # binomial test at the 1 % level): with ~20 edges, three or more wrong ones fail.
+    _, figures = headline_subset
+    wrong, edges = figures["orientation"]["wrong"], figures["orientation"]["edges"]
+    assert edges >= 10
+    assert validity.consistent_with_target(wrong, edges), figures["orientation"]
+
+
+def test_headline_lingam_conclusion_is_consistent_with_the_two_percent_target(headline_subset):
+    _, figures = headline_subset
+    v = figures["lingam_conclusion"]
+    assert v["replicates"] == 4
+    assert validity.consistent_with_target(v["hits"], v["replicates"]), v
+
+
+def test_target_check_rejects_rates_well_above_two_percent():
+    assert validity.consistent_with_target(0, 20)
+    assert not validity.consistent_with_target(3, 20)
+    assert not validity.consistent_with_target(40, 1000)
+    assert validity.consistent_with_target(20, 1000)
+    assert np.isclose(validity.TARGET, 0.02)
