@@ -159,10 +159,12 @@ def quick_grid() -> Grid:
 
 
 def full_grid(replicates: int) -> Grid:
-    """The grid of the committed study; n = 5000 and 20000 get fewer replicates (they cost most)."""
+    """The grid of the committed study: per kind and shape, 3r/2 replicates at n = 200 (cheap), r at
+    1000, r/2 at 5000 and r/8 at 20000 (they cost most)."""
     r = int(replicates)
-    return Grid(kinds=_all_kinds(), shapes=SHAPES, ns=(200, 1000, 5000),
-                replicates={200: r, 1000: r, 5000: max(1, r // 2)}, p_fixed=5, p_random=(5, 6, 7, 8, 9, 10))
+    return Grid(kinds=_all_kinds(), shapes=SHAPES, ns=(200, 1000, 5000, 20000),
+                replicates={200: max(1, 3 * r // 2), 1000: r, 5000: max(1, r // 2), 20000: max(1, r // 8)},
+                p_fixed=5, p_random=(5, 6, 7, 8, 9, 10))
 
 
 def _all_kinds() -> tuple[str, ...]:
@@ -959,6 +961,16 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
         add("| – | none | – | 0 |")
     add("")
 
+    # ---- cost
+    add("`preflight.check` time per replicate in this run (single process, BLAS limited to one thread):")
+    add("")
+    add("| n | replicates | mean | median | max |")
+    add("|---|---|---|---|---|")
+    for (n,), rs in sorted(group_by(ok, "n").items()):
+        t = np.array([r["check_seconds"] for r in rs])
+        add(f"| {n} | {len(rs)} | {t.mean():.2f} s | {np.median(t):.2f} s | {t.max():.2f} s |")
+    add("")
+
     # ---- by kind and n
     add("### Scenarios by kind and n (shapes and noise families pooled)")
     add("")
@@ -1159,8 +1171,8 @@ def parse_args(argv=None):
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--quick", action="store_true", help="small grid and 100 calibration replicates (minutes)")
     parser.add_argument("--jobs", type=int, default=1, help="worker processes (default 1)")
-    parser.add_argument("--replicates", type=int, default=4,
-                        help="replicates per kind and shape at n = 200 and 1000 (half at 5000); default 4")
+    parser.add_argument("--replicates", type=int, default=8,
+                        help="replicates per kind and shape at n = 1000 (1.5x at 200, half at 5000, an eighth at 20000); default 8")
     parser.add_argument("--seed", type=int, default=20261203, help="study seed (default 20261203)")
     parser.add_argument("--calibration-replicates", type=int, default=None,
                         help="replicates per null (default 500; 100 with --quick)")
@@ -1220,10 +1232,19 @@ def main(argv=None) -> int:
                       f"({len(records)} replicates, {_duration(check_total)} of `preflight.check` time in total)")
     calibration, curves = [], []
     figures: list[Path] = []
+    saved = args.records.with_suffix(".calibration.json") if args.records else None
     if not args.skip_calibration:
-        t0 = time.perf_counter()
-        calibration, curves = run_calibration(cal_reps, power_reps, args.seed, args.jobs)
-        timing.append(f"calibration and power {_duration(time.perf_counter() - t0)} wall")
+        if args.only_recorded and saved and saved.exists():
+            stored = json.loads(saved.read_text())
+            calibration, curves = stored["calibration"], stored["power"]
+            timing.append(stored["timing"])
+        else:
+            t0 = time.perf_counter()
+            calibration, curves = run_calibration(cal_reps, power_reps, args.seed, args.jobs)
+            timing.append(f"calibration and power {_duration(time.perf_counter() - t0)} wall "
+                          f"({cal_reps} replicates per null, {power_reps} per power point)")
+            if saved:
+                saved.write_text(json.dumps({"calibration": calibration, "power": curves, "timing": timing[-1]}))
         figures += draw_power_curves(curves, args.figures)
     if records:
         path = draw_orientation_figure(records, args.figures)
