@@ -67,6 +67,14 @@ def check(
 
 def analyse(loaded: LoadedData, policy: Policy, *, graph: str | None = None,
             progress: Progress = _no_progress, keep_samples: bool = True) -> Report:
+    from threadpoolctl import threadpool_limits
+
     from preflight import pipeline
 
-    return pipeline.run(loaded, policy, graph=graph, progress=progress, keep_samples=keep_samples)
+    # The work is thousands of small matrix products.  Threaded BLAS gains
+    # little on them and, once the pair battery's worker processes share the
+    # cores, its spinning threads made a whole check several times slower
+    # (benchmarks/bench.py); parallelism comes from the worker processes.
+    # The limit is lifted again when the check returns.
+    with threadpool_limits(limits=1, user_api="blas"):
+        return pipeline.run(loaded, policy, graph=graph, progress=progress, keep_samples=keep_samples)

@@ -3,8 +3,12 @@
 A *family* is one kind of question asked many times (for example "is this
 residual independent of its regressor?" asked for every pair and
 direction).  p-values are adjusted within a family across the whole table,
-Holm (1979) by default or Benjamini and Hochberg (1995) on request, through
-``statsmodels.stats.multitest.multipletests``.
+Holm (1979) by default or Benjamini and Hochberg (1995) on request.  The two
+procedures are written out here in a few vectorised lines; they agree with
+``statsmodels.stats.multitest.multipletests`` to round-off
+(reference_checks/test_reference_evidence.py), which calls ``gc.collect()``
+on every Holm adjustment and so costs a quarter of a second per family in
+a process holding many objects.
 """
 
 from __future__ import annotations
@@ -41,12 +45,27 @@ class Tagged:
 
 
 def adjust_p_values(p_values: Iterable[float], method: str) -> np.ndarray:
-    from statsmodels.stats.multitest import multipletests
+    """Multiplicity-adjusted p-values, in the order given.
 
+    ``holm``: Holm's (1979) step-down, p_(i) * (m - i + 1) made monotone
+    upwards.  ``fdr_bh``: Benjamini and Hochberg's (1995) step-up,
+    p_(i) * m / i made monotone downwards from the largest.  Both capped at 1.
+    """
     p = np.asarray(list(p_values), dtype=np.float64)
-    if p.size == 0:
+    m = p.size
+    if m == 0:
         return p
-    return multipletests(p, method=method)[1]
+    order = np.argsort(p, kind="stable")
+    ranked = p[order]
+    if method == "holm":
+        adjusted = np.maximum.accumulate(ranked * np.arange(m, 0, -1))
+    elif method == "fdr_bh":
+        adjusted = np.minimum.accumulate((ranked * m / np.arange(1, m + 1))[::-1])[::-1]
+    else:
+        raise ValueError(f"unknown correction {method!r}")
+    out = np.empty(m)
+    out[order] = np.minimum(adjusted, 1.0)
+    return out
 
 
 def adjust_families(groups: list[list[Tagged]], method: str) -> list[list[Tagged]]:

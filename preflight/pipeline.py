@@ -34,19 +34,24 @@ class StructuralView:
 
 
 def _noise_dependence(noise: np.ndarray, names, pairs, policy: Policy, progress: Progress) -> dict:
-    """HSIC between the noise estimates of every adjacent pair."""
-    from preflight.checks.confounding import noise_dependence
+    """HSIC between the noise estimates of every adjacent pair.
 
-    out: dict[tuple[int, int], Tagged] = {}
-    for k, (i, j) in enumerate(pairs):
-        seed = derived_seed(policy.seed, "noise dependence", names[i], names[j])
-        result = noise_dependence(noise[:, i], noise[:, j], exact_max_n=policy.hsic_exact_max_n,
-                                  max_n=policy.hsic_max_n, n_features=policy.hsic_features,
-                                  permutations=policy.hsic_permutations, seed=seed)
-        out[(i, j)] = Tagged("noise dependence", "pair",
-                             result.with_name(f"noise dependence (hsic) ({names[i]}, {names[j]})"))
-        progress("noise dependence", k + 1, len(pairs))
-    return out
+    Seeds follow the column names, not positions, so reordering the columns
+    draws the same subsamples and features.
+    """
+    from preflight.checks.independence import hsic_pairs
+
+    if not pairs:
+        return {}
+    results = hsic_pairs(
+        noise, pairs, [derived_seed(policy.seed, "noise dependence", names[i], names[j]) for i, j in pairs],
+        exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n, n_features=policy.hsic_features,
+        permutations=policy.hsic_permutations, seed=derived_seed(policy.seed, "noise dependence rows"),
+        column_seeds=[derived_seed(policy.seed, "noise dependence features", name) for name in names])
+    progress("noise dependence", len(pairs), len(pairs))
+    return {(i, j): Tagged("noise dependence", "pair",
+                           result.with_name(f"noise dependence (hsic) ({names[i]}, {names[j]})"))
+            for (i, j), result in zip(pairs, results)}
 
 
 # ---------------------------------------------------------------- stages
@@ -166,12 +171,9 @@ _WORKER: dict[str, Any] = {}
 def _init_worker(X, names):
     _WORKER["X"] = X
     _WORKER["names"] = names
-    try:
-        from threadpoolctl import threadpool_limits
+    from threadpoolctl import threadpool_limits
 
-        threadpool_limits(1)
-    except Exception:  # threadpoolctl is optional here; results do not depend on it
-        pass
+    threadpool_limits(1)  # a worker process's own setting: it ends with the pool
 
 
 def _run_batteries(X, names, tasks, policy: Policy, progress: Progress) -> list[PairBattery]:
@@ -179,7 +181,6 @@ def _run_batteries(X, names, tasks, policy: Policy, progress: Progress) -> list[
     work = X.shape[0] * sum(2 if t[5] else 1 for t in tasks)
     results: list[PairBattery] = []
     if jobs <= 1 or len(tasks) < 4 or work < 200_000:
-        # In-process: no BLAS thread limit, which would outlive this call.
         _WORKER["X"], _WORKER["names"] = X, names
         for k, task in enumerate(tasks):
             results.append(_battery_task(task))

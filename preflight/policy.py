@@ -108,8 +108,12 @@ class Policy:
     """Up to this n HSIC is exact (O(n^2)); above, random Fourier features (linear time)."""
     hsic_max_n: int = 20000
     """Above this n HSIC runs on a seeded subsample of this many rows."""
-    hsic_features: int = 128
-    """Random Fourier features per variable in the large-scale HSIC."""
+    hsic_features: int = 64
+    """Random frequencies per variable in the large-scale HSIC (each gives a cosine and a sine feature).
+
+    Cost grows with its square; at 64 the power on weak reverse-regression
+    dependence (n = 3,000 and 20,000) was within 3 points of 128 in a seeded
+    150-replicate comparison, at a quarter of the time."""
     hsic_permutations: int = 0
     """0 uses the gamma approximation; a positive number runs a seeded permutation test."""
 

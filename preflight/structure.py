@@ -298,7 +298,7 @@ def prune_parents(X, order: Sequence[int], alpha: float = 0.05, correction: str 
     standard errors).  All coefficients of all equations form one family,
     corrected with ``correction`` (``"holm"``, Holm 1979, or ``"fdr_bh"``,
     Benjamini & Hochberg 1995) through
-    ``statsmodels.stats.multitest.multipletests``; a predecessor is kept
+    ``preflight.evidence.adjust_p_values``; a predecessor is kept
     when its adjusted p-value is below ``alpha``.  This is the pruning by
     regression of Shimizu et al. (2011) with a multiplicity-corrected test
     instead of a penalty.
@@ -318,7 +318,7 @@ def prune_parents(X, order: Sequence[int], alpha: float = 0.05, correction: str 
     keeps no parents from its untestable coefficients.  Returns a tuple
     indexed by column; each entry lists parent indices in ascending order.
     """
-    from statsmodels.stats.multitest import multipletests
+    from preflight.evidence import adjust_p_values
 
     if not 0.0 < alpha < 1.0:
         raise InputError(f"alpha must lie in (0, 1), got {alpha}")
@@ -333,7 +333,7 @@ def prune_parents(X, order: Sequence[int], alpha: float = 0.05, correction: str 
         candidates, p_values = _per_equation_t_tests(X, active)
     parents: list[list[int]] = [[] for _ in range(p)]
     if p_values:
-        reject = multipletests(np.asarray(p_values), alpha=alpha, method=correction)[0]
+        reject = adjust_p_values(p_values, correction) < alpha
         for (child, parent), keep in zip(candidates, reject):
             if keep:
                 parents[child].append(parent)
@@ -497,7 +497,7 @@ def fastica_gaussian_components(
     normality_max_n: int = 5000,
     hsic_exact_max_n: int = 2000,
     hsic_max_n: int = 20000,
-    hsic_features: int = 128,
+    hsic_features: int = 64,
     hsic_permutations: int = 0,
     min_dependence_effect: float | None = None,
     restarts: int = 3,
@@ -547,9 +547,9 @@ def fastica_gaussian_components(
 
     from sklearn.decomposition import FastICA
     from sklearn.exceptions import ConvergenceWarning
-    from statsmodels.stats.multitest import multipletests
+    from preflight.evidence import adjust_p_values
 
-    from preflight.checks.independence import hsic
+    from preflight.checks.independence import hsic_pairs
     from preflight.checks.normality import is_nongaussian, normality_checks
 
     if not 0.0 < alpha < 1.0:
@@ -592,7 +592,7 @@ def fastica_gaussian_components(
     where = [(c, t) for c in range(k) for t, r in enumerate(normality[c])
              if r.p_value is not None and np.isfinite(r.p_value)]
     if where:
-        adjusted = multipletests(np.array([normality[c][t].p_value for c, t in where]), method=correction)[1]
+        adjusted = adjust_p_values([normality[c][t].p_value for c, t in where], correction)
         for (c, t), value in zip(where, adjusted):
             normality[c][t] = _with_adjusted(normality[c][t], float(value))
     named = [tuple(r.with_name(f"{r.name} (ica component {c + 1})") for r in normality[c]) for c in range(k)]
@@ -602,15 +602,15 @@ def fastica_gaussian_components(
 
     # --- independence of every pair of components
     pairs = tuple((a, b) for a in range(k) for b in range(a + 1, k))
-    dependence = [hsic(S[:, a], S[:, b], exact_max_n=hsic_exact_max_n, max_n=hsic_max_n,
-                       n_features=hsic_features, permutations=hsic_permutations,
-                       seed=_pair_seed(seed, a + 1, b + 1)).with_name(
-                           f"hsic (ica components {a + 1}, {b + 1})") for a, b in pairs]
+    dependence = [result.with_name(f"hsic (ica components {a + 1}, {b + 1})") for (a, b), result in zip(
+        pairs, hsic_pairs(S, pairs, [_pair_seed(seed, a + 1, b + 1) for a, b in pairs],
+                          exact_max_n=hsic_exact_max_n, max_n=hsic_max_n, n_features=hsic_features,
+                          permutations=hsic_permutations, seed=_pair_seed(seed, 0, 0)))]
     tested = [m for m, r in enumerate(dependence) if r.p_value is not None and np.isfinite(r.p_value)]
     dependent_pairs: list[tuple[int, int]] = []
     material = DEPENDENCE_EFFECT_ROWS / n if min_dependence_effect is None else float(min_dependence_effect)
     if tested:
-        adjusted = multipletests(np.array([dependence[m].p_value for m in tested]), method=correction)[1]
+        adjusted = adjust_p_values([dependence[m].p_value for m in tested], correction)
         for m, value in zip(tested, adjusted):
             dependence[m] = _with_adjusted(dependence[m], float(value))
             effect = dependence[m].effect
@@ -654,8 +654,11 @@ def _with_adjusted(result: CheckResult, p_adjusted: float) -> CheckResult:
 
 # ------------------------------------------------------------------ multivariate normality
 
-HENZE_ZIRKLER_MAX_N = 5000
-"""pingouin builds n x n distance matrices; above this many rows a seeded subsample is used."""
+HENZE_ZIRKLER_MAX_N = 2000
+"""pingouin builds several n x n matrices (O(n^2) time and memory); above this many rows a seeded subsample is used.
+
+A whole-table screen: at 2,000 rows it already detects departures far smaller
+than those that matter for the noise-shape checks, which use every row."""
 
 
 def henze_zirkler(X, seed: int = 0, max_n: int = HENZE_ZIRKLER_MAX_N) -> CheckResult:

@@ -19,6 +19,7 @@ from preflight.checks.independence import (
     distance_correlation,
     hsic,
     hsic_gamma,
+    hsic_pairs,
     hsic_permutation,
     hsic_rff,
 )
@@ -193,7 +194,7 @@ def test_rff_statistic_converges_to_the_exact_one():
 
 
 def test_rff_rejection_rate_under_independence_is_nominal():
-    # Seeded simulation: 300 independent pairs at n = 2000 with the default 128 frequencies.
+    # Seeded simulation: 300 independent pairs at n = 2000 with the default 64 frequencies.
     rng = np.random.default_rng(31)
     replicates, n = 300, 2000
     rejections = 0
@@ -212,6 +213,69 @@ def test_rff_detects_dependence_without_correlation():
     result = hsic_rff(x, y)
     assert result.p_value < 1e-6
     assert result.n == 5000
+
+
+# --------------------------------------------------------------------------- many pairs of one table
+
+
+def test_hsic_pairs_equals_hsic_pair_by_pair_up_to_exact_max_n():
+    rng = np.random.default_rng(40)
+    X = rng.standard_normal((600, 3))
+    X[:, 1] += np.abs(X[:, 0])
+    pairs = [(0, 1), (0, 2), (1, 2)]
+    results = hsic_pairs(X, pairs, [7, 8, 9])
+    for (a, b), seed, result in zip(pairs, [7, 8, 9], results):
+        single = hsic(X[:, a], X[:, b], seed=seed)
+        assert (result.statistic, result.p_value, result.effect) == (single.statistic, single.p_value, single.effect)
+
+
+def test_hsic_pairs_with_shared_features_matches_the_exact_statistic():
+    # Above exact_max_n the shared random features approximate the exact
+    # n * HSIC_b; with many frequencies the two agree closely.
+    rng = np.random.default_rng(41)
+    X = rng.standard_normal((1500, 3))
+    X[:, 1] = np.sin(2 * X[:, 0]) + 0.3 * rng.standard_normal(1500)
+    (shared,) = hsic_pairs(X, [(0, 1)], [0], exact_max_n=1000, n_features=4096, seed=3)
+    exact = hsic_gamma(X[:, 0], X[:, 1])
+    assert "shared by every pair" in shared.note
+    assert shared.statistic == pytest.approx(exact.statistic, rel=0.05)
+    assert shared.effect == pytest.approx(exact.effect, rel=0.05)
+
+
+def test_hsic_pairs_rejection_rate_under_independence_is_nominal():
+    # 300 seeded tables of two independent columns, n = 2500 (random-feature regime).
+    replicates, n = 300, 2500
+    rejections = 0
+    for i in range(replicates):
+        rng = np.random.default_rng(4200 + i)
+        X = np.column_stack([rng.standard_normal(n), rng.exponential(size=n) if i % 2 else rng.uniform(size=n)])
+        (result,) = hsic_pairs(X, [(0, 1)], [0], seed=i)
+        rejections += result.p_value < ALPHA
+    low, high = _binomial_99(replicates)
+    assert low <= rejections <= high
+
+
+def test_hsic_pairs_detects_dependence_and_respects_column_seeds():
+    rng = np.random.default_rng(43)
+    X = rng.standard_normal((5000, 3))
+    X[:, 2] = np.abs(X[:, 0]) + 0.5 * rng.standard_normal(5000)
+    results = hsic_pairs(X, [(0, 2), (0, 1)], [0, 0], seed=1)
+    assert results[0].p_value < 1e-6 and results[1].p_value > 1e-3
+    # Column seeds follow the columns: the same pair of columns in another
+    # position with the same column seeds gives the same result.
+    moved = X[:, [2, 1, 0]]
+    again = hsic_pairs(moved, [(2, 0)], [0], seed=1, column_seeds=[30, 20, 10])
+    first = hsic_pairs(X, [(0, 2)], [0], seed=1, column_seeds=[10, 20, 30])
+    assert again[0].statistic == pytest.approx(first[0].statistic, rel=1e-6)
+
+
+def test_hsic_pairs_constant_column_and_bad_seeds():
+    X = np.column_stack([np.ones(3000), np.arange(3000.0), np.sin(np.arange(3000.0))])
+    results = hsic_pairs(X, [(0, 1), (1, 2)], [0, 0])
+    assert results[0].p_value is None and "constant" in results[0].note
+    assert results[1].p_value is not None
+    with pytest.raises(InputError):
+        hsic_pairs(X, [(0, 1)], [0, 1])
 
 
 # --------------------------------------------------------------------------- dispatcher
@@ -241,7 +305,7 @@ def test_dispatcher_switches_to_random_features_above_exact_max_n():
     x, y = _dependent_pair(rng, 1500, 0.3)
     result = hsic(x, y, exact_max_n=1000, permutations=10)
     assert result.n == 1500
-    assert "random-Fourier-feature HSIC on 1500 rows with 128" in result.note
+    assert "random-Fourier-feature HSIC on 1500 rows with 64" in result.note
     assert "10 permutations requested but not run" in result.note
 
 

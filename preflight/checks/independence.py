@@ -361,7 +361,7 @@ def _check_features(n_features) -> int:
     return int(n_features)
 
 
-def hsic_rff(x, y, n_features: int = 128, seed: int = 0) -> CheckResult:
+def hsic_rff(x, y, n_features: int = 64, seed: int = 0) -> CheckResult:
     """Linear-time HSIC test of independence with random Fourier features.
 
     H0: x and y are independent.  The Gaussian kernels of :func:`hsic_gamma`
@@ -389,7 +389,7 @@ def hsic_rff(x, y, n_features: int = 128, seed: int = 0) -> CheckResult:
     return _hsic_rff(xs, ys, n_features, np.random.default_rng(seed))
 
 
-def hsic(x, y, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 128,
+def hsic(x, y, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 64,
          permutations: int = 0, seed: int = 0) -> CheckResult:
     """HSIC test of independence, choosing the method from the sample size.
 
@@ -437,6 +437,84 @@ def hsic(x, y, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 12
         effect_name=result.effect_name, n=result.n,
         note=subsample_note + result.note + ignored_note,
     )
+
+
+def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 64,
+               permutations: int = 0, seed: int = 0, column_seeds=None) -> list[CheckResult]:
+    """:func:`hsic` for many pairs of columns of one table, sharing the work between pairs.
+
+    H0 for each pair (a, b): column a and column b are independent.  Up to
+    ``exact_max_n`` rows (after the ``max_n`` subsample) each pair runs
+    exactly as ``hsic(X[:, a], X[:, b], seed=pair_seeds[k])``.  Above it,
+    every column's bandwidth and random Fourier features are drawn once
+    (seeded by ``column_seeds[c]``, by default ``seed`` and the column
+    index, on one row subsample seeded by ``seed`` and shared by all pairs)
+    and each pair costs one feature cross-product;
+    the statistic and gamma null are those of :func:`hsic_rff`.  With k
+    columns in many pairs this is about three times fewer products and k
+    instead of 2 * #pairs feature evaluations.  References: Gretton et al.
+    (2008); Zhang et al. (2018).
+    """
+    from preflight.checks._validate import as_matrix
+
+    X = as_matrix(X, name="X", min_n=6)
+    pairs = [(int(a), int(b)) for a, b in pairs]
+    seeds = list(pair_seeds)
+    if len(seeds) != len(pairs):
+        raise InputError(f"pair_seeds has {len(seeds)} entries for {len(pairs)} pairs")
+    n_features = _check_features(n_features)
+    n = X.shape[0]
+    m = min(n, int(max_n))
+    if m <= exact_max_n or not pairs:
+        return [hsic(X[:, a], X[:, b], exact_max_n=exact_max_n, max_n=max_n, n_features=n_features,
+                     permutations=permutations, seed=s) for (a, b), s in zip(pairs, seeds)]
+    subsample_note = ""
+    if n > max_n:
+        rows = np.sort(np.random.default_rng(seed).choice(n, int(max_n), replace=False))
+        X = X[rows]
+        subsample_note = f"seeded subsample of {int(max_n)} of {n} rows, shared by every pair; "
+    ignored_note = (f"; {int(permutations)} permutations requested but not run above {int(exact_max_n)} rows"
+                    if permutations > 0 else "")
+    features: dict[int, tuple | None] = {}
+    for c in sorted({c for pair in pairs for c in pair}):
+        column = _standardise(X[:, c])
+        if column is None:
+            features[c] = None
+            continue
+        rng = np.random.default_rng([seed & 0xFFFFFFFF, c] if column_seeds is None else column_seeds[c])
+        sigma, fallback = _median_bandwidth(column, rng)
+        phi = _fourier_features(column, sigma, n_features, rng)
+        c_self = (phi.T @ phi).astype(np.float64) / m
+        features[c] = (phi, float(np.trace(c_self)), float(np.einsum("ij,ij->", c_self, c_self)), fallback)
+    from scipy import stats
+
+    out = []
+    for a, b in pairs:
+        if features[a] is None or features[b] is None:
+            result = _constant_result("hsic", m, "x" if features[a] is None else "y", _NORMALISED_HSIC)
+            out.append(replace(result, note=subsample_note + result.note))
+            continue
+        phi, trace_x, norm_xx, fallback_x = features[a]
+        psi, trace_y, norm_yy, fallback_y = features[b]
+        c_xy = (phi.T @ psi).astype(np.float64) / m
+        cross = float(np.einsum("ij,ij->", c_xy, c_xy))
+        null_mean = m / (m - 1) * trace_x * trace_y
+        null_var = 2.0 * norm_xx * norm_yy
+        if null_mean <= 0 or null_var <= 0:
+            p_value, null_note = None, "; degenerate null moments, no p-value"
+        else:
+            p_value = float(stats.gamma.sf(m * cross, null_mean**2 / null_var, scale=null_var / null_mean))
+            null_note = ""
+        out.append(CheckResult(
+            name="hsic", statistic=m * cross, p_value=p_value, effect=_normalised(cross, norm_xx, norm_yy),
+            effect_name=_NORMALISED_HSIC, n=m,
+            note=(f"{subsample_note}random-Fourier-feature HSIC on {m} rows with {n_features} seeded frequencies "
+                  "per column, drawn once and shared by every pair of this table, statistic n*||C_xy||_F^2, "
+                  "gamma matched to the mean and variance of its asymptotic chi-square mixture null "
+                  f"(Zhang et al. 2018); {_bandwidth_rows_note(m)}{_bandwidth_note(fallback_x, fallback_y)}"
+                  f"{null_note}{ignored_note}"),
+        ))
+    return out
 
 
 # --------------------------------------------------------------------------- distance correlation
