@@ -127,6 +127,39 @@ def _spline_residual(regressor: np.ndarray, response: np.ndarray, max_df: int,
     return ols(basis, response).residuals
 
 
+SPLINE_RESIDUAL = "of spline residual"
+"""Marks the variance checks judged on the residual of the regression spline."""
+
+
+def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, label: str, role: str,
+                            policy: Policy) -> list[Tagged]:
+    """Koenker's Breusch-Pagan and White on the residual of the spline of the spline F-test.
+
+    The residual of a straight line through a curve has a spread that
+    follows the curvature, so where the mechanism is nonlinear its spread is
+    judged on the residual of the regression spline instead (the basis of
+    :func:`preflight.checks.linearity.spline_f_test`), against the regressor.
+    Null hypothesis of both: the spline residual's variance does not depend
+    on the regressor.  References: Breusch & Pagan (1979), Koenker (1981),
+    White (1980).  No checks when x is too tied for quantile knots.
+    """
+    from preflight.checks.linearity import full_rank_columns
+    from preflight.checks.variance import variance_checks
+
+    n = regressor.shape[0]
+    df = spline_df(n, policy.spline_max_df)
+    if n < df + 2:
+        return []
+    basis = bspline_basis(regressor, df)
+    if not np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8):
+        return []
+    residual = ols(full_rank_columns(basis[:, 1:]), response).residuals
+    return [Tagged("variance", role, replace(
+        result, name=f"{result.name} {SPLINE_RESIDUAL} ({label})",
+        note=f"{result.note}; residual of a cubic regression spline (df={df})"))
+        for result in variance_checks(residual, regressor)]
+
+
 def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str,
                           policy: Policy, seed: int, Z_for_y: np.ndarray | None = None,
                           Z_for_x: np.ndarray | None = None) -> list[Tagged]:
@@ -175,6 +208,14 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
         linear_p = [t.result.p_value for t in checks if t.family == "linearity" and t.result.p_value is not None]
         if linear_p and min(linear_p) < policy.alpha:
             checks += additive_noise_checks(x, y, x_name, y_name, policy, seed, Z_for_y, Z_for_x)
+        # Only a direction whose raw linearity tests reject can be judged
+        # nonlinear, so only there is the spread of the spline residual needed.
+        for regressor, response, label, role in ((xr, yr, f"{y_name} on {x_name}", "forward"),
+                                                 (yr, xr, f"{x_name} on {y_name}", "reverse")):
+            role_p = [t.result.p_value for t in checks
+                      if t.family == "linearity" and t.role == role and t.result.p_value is not None]
+            if role_p and min(role_p) < policy.alpha:
+                checks += _spline_variance_checks(regressor, response, label, role, policy)
     return PairBattery(x=x_name, y=y_name, adjacent=adjacent, n=int(x.shape[0]),
                        conditioning=conditioning, checks=tuple(checks), likelihood_ratio=lr_value)
 
@@ -183,6 +224,11 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
 
 def _of(checks: list[Tagged], family: str, role: str) -> list[CheckResult]:
     return [t.result for t in checks if t.family == family and t.role == role]
+
+
+def _spread(checks: list[Tagged], role: str, spline: bool) -> list[CheckResult]:
+    """Variance checks of one direction on the straight-line residual, or on the spline residual."""
+    return [r for r in _of(checks, "variance", role) if (SPLINE_RESIDUAL in r.name) == spline]
 
 
 def _material_departure(results: list[CheckResult], alpha: float, floor: float) -> bool:
@@ -265,9 +311,19 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
         flags.append("gaussian-noise")
     nonlinear = _material_departure(_of(checks, "linearity", favoured), alpha, policy.nonlinear_min_r2_gain)
     # The residual of a straight line through a curve has a spread that
-    # follows the curvature, so spread is judged only where the line fits.
-    heteroscedastic = (not nonlinear and
-                       _material_departure(_of(checks, "variance", favoured), alpha, policy.heteroscedastic_min_r2))
+    # follows the curvature, so where the line does not fit, spread is
+    # judged on the residual of the regression spline, in the direction the
+    # spline evidence favours: the oriented one, else the one whose spline
+    # residual looks less dependent on its regressor.  The anti-causal
+    # regression through a saturating curve has a spread that changes by
+    # construction, so the straight-line favourite is no guide here.
+    spread_role = favoured
+    if nonlinear and orientation_found == "undetermined" and anm_checks["forward"] and anm_checks["reverse"]:
+        anm_p = {role: min((r.p_adjusted if r.p_adjusted is not None else 1.0) for r in anm_checks[role])
+                 for role in anm_checks}
+        spread_role = "forward" if anm_p["forward"] >= anm_p["reverse"] else "reverse"
+    heteroscedastic = _material_departure(_spread(checks, spread_role, spline=nonlinear), alpha,
+                                          policy.heteroscedastic_min_r2)
     if nonlinear:
         flags.append("nonlinear")
     if heteroscedastic:
@@ -277,7 +333,7 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     # HSIC can miss a change of spread that Breusch-Pagan or White see, so
     # either counts as dependence here.  A heteroscedastic mechanism cannot
     # be told apart from confounding at the pair level; both flags then stand.
-    dependent = {role: (not indep[role]) or _material_departure(_of(checks, "variance", role), alpha,
+    dependent = {role: (not indep[role]) or _material_departure(_spread(checks, role, spline=False), alpha,
                                                                  policy.heteroscedastic_min_r2)
                  for role in ("forward", "reverse")}
     if dependent["forward"] and dependent["reverse"] and not nonlinear and "gaussian-noise" not in flags:
@@ -303,14 +359,22 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
         if t.family == "noise normality":
             passed = None if r.p_value is None else significant(r, alpha)
         elif t.family in guard_families and t.role in ("forward", "reverse"):
-            if t.role != favoured:
+            guard_role = spread_role if t.family == "variance" and SPLINE_RESIDUAL in r.name else favoured
+            if t.role != guard_role:
                 passed = None
                 r = replace(r, note=(r.note + "; " if r.note else "") +
                             "direction not favoured by the evidence: a departure here is expected under non-Gaussian noise")
             elif t.family in ("linearity",):
                 passed = not _material_departure([r], alpha, policy.nonlinear_min_r2_gain)
             elif t.family == "variance":
-                passed = not _material_departure([r], alpha, policy.heteroscedastic_min_r2)
+                if (SPLINE_RESIDUAL in r.name) != nonlinear:
+                    passed = None
+                    r = replace(r, note=(r.note + "; " if r.note else "") + (
+                        "not the guard: the mechanism is judged nonlinear, so the spline residual's spread decides"
+                        if nonlinear else
+                        "not the guard: the mechanism is judged linear, so the straight-line residual's spread decides"))
+                else:
+                    passed = not _material_departure([r], alpha, policy.heteroscedastic_min_r2)
             else:
                 passed = not significant(r, alpha)
         else:

@@ -43,11 +43,6 @@ def test_nist_strd_longley_check_flags_collinear():
     assert any("collinear" in v["flags"] for v in report["variables"])
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "preflight flags the Engel pair only `nonlinear`: RESET and spline R-squared gains (~0.04) exceed "
-    "nonlinear_min_r2_gain=0.01, and battery.py suppresses `heteroscedastic` whenever `nonlinear` is set, "
-    "although Koenker's Breusch-Pagan auxiliary R^2 is ~0.46 (p~1e-25). The linearity F-tests assume "
-    "constant variance, so strong heteroscedasticity itself inflates them and then hides itself."))
 def test_statsmodels_engel_koenker_bassett_1982_heteroscedastic():
     from statsmodels.datasets import engel
     data = engel.load_pandas().data[["income", "foodexp"]]

@@ -1,0 +1,80 @@
+"""Spread of the spline residual: how `heteroscedastic` is judged where the mechanism is nonlinear.
+
+References: statsmodels ``het_breuschpagan(robust=True)`` and ``het_white``
+on the same residual; seeded simulation (false alarms within the binomial
+99 % interval of alpha; power under a changing spread).
+"""
+
+from concurrent.futures import ProcessPoolExecutor
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from preflight.battery import SPLINE_RESIDUAL, _spline_variance_checks
+from preflight.checks.linearity import full_rank_columns
+from preflight.fit import bspline_basis, ols, spline_df
+from preflight.policy import Policy
+
+
+def _tanh_pair(seed: int, spread: str):
+    rng = np.random.default_rng(seed)
+    n = 1000
+    x = rng.uniform(-np.sqrt(3), np.sqrt(3), n)
+    scale = 0.3 if spread == "constant" else 0.1 + 0.3 * np.abs(x)
+    return x, np.tanh(2 * x) + scale * rng.normal(size=n)
+
+
+def _flags(args):
+    seed, spread = args
+    from preflight.battery import judge_pair, run_pair_battery
+    from preflight.evidence import adjust_families
+
+    x, y = _tanh_pair(seed, spread)
+    policy = Policy()
+    battery = run_pair_battery(x, y, "x", "y", None, (), True, policy)
+    checks = adjust_families([list(battery.checks)], policy.correction)[0]
+    return judge_pair(battery, checks, policy).flags
+
+
+def _pool_map(func, tasks):
+    with ProcessPoolExecutor(max_workers=2) as pool:
+        return list(pool.map(func, tasks))
+
+
+def test_spline_residual_checks_match_statsmodels():
+    # Source: statsmodels.stats.diagnostic.het_breuschpagan (robust=True is
+    # Koenker's studentized form) and het_white, on the residual of the same
+    # spline fit, with the regressor (and a constant) as the auxiliary design.
+    from statsmodels.stats.diagnostic import het_breuschpagan, het_white
+
+    x, y = _tanh_pair(5, "changing")
+    policy = Policy()
+    bp, white = _spline_variance_checks(x, y, "y on x", "forward", policy)
+    basis = bspline_basis(x, spline_df(x.shape[0], policy.spline_max_df))
+    residual = ols(full_rank_columns(basis[:, 1:]), y).residuals
+    design = np.column_stack([np.ones_like(x), x])
+    lm, p, _, _ = het_breuschpagan(residual, design, robust=True)
+    assert bp.result.statistic == pytest.approx(lm, rel=1e-9)
+    assert bp.result.p_value == pytest.approx(p, rel=1e-7, abs=1e-300)
+    lm_w, p_w, _, _ = het_white(residual, design)
+    assert white.result.statistic == pytest.approx(lm_w, rel=1e-9)
+    assert white.result.p_value == pytest.approx(p_w, rel=1e-7, abs=1e-300)
+    assert all(SPLINE_RESIDUAL in t.result.name and t.family == "variance" for t in (bp, white))
+
+
+def test_homoscedastic_tanh_pair_rarely_raises_heteroscedastic():
+    # The flag needs a Holm-adjusted rejection in the favoured direction, so
+    # its rate is at most alpha; the count must stay inside the binomial 99 %
+    # interval of alpha over the replicates.
+    replicates = 100
+    results = _pool_map(_flags, [(4000 + k, "constant") for k in range(replicates)])
+    alarms = sum("heteroscedastic" in flags for flags in results)
+    assert sum("nonlinear" in flags for flags in results) >= 0.90 * replicates  # the regime under test
+    assert alarms <= stats.binom.ppf(0.995, replicates, Policy().alpha), (alarms, results)
+
+
+def test_tanh_pair_with_changing_spread_raises_heteroscedastic():
+    replicates = 40
+    results = _pool_map(_flags, [(5000 + k, "changing") for k in range(replicates)])
+    assert sum("nonlinear" in flags and "heteroscedastic" in flags for flags in results) >= 0.90 * replicates, results
