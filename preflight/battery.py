@@ -226,6 +226,27 @@ def _of(checks: list[Tagged], family: str, role: str) -> list[CheckResult]:
     return [t.result for t in checks if t.family == family and t.role == role]
 
 
+def _less_dependent(checks: list[Tagged], family: str, battery: PairBattery) -> str:
+    """The direction whose residual looks less dependent on its regressor in ``family``.
+
+    Adjusted p-values tie often (Holm caps them at 1), so ties go to the
+    larger raw p-value, then to the smaller effect, and only then to the
+    regressor whose name sorts first: never to column order, which must not
+    change a verdict.
+    """
+    def key(role: str) -> tuple[float, float, float]:
+        results = _of(checks, family, role)
+        adjusted = min((r.p_adjusted if r.p_adjusted is not None else 1.0) for r in results) if results else 1.0
+        raw = min((r.p_value if r.p_value is not None else 1.0) for r in results) if results else 1.0
+        effect = max((r.effect for r in results if r.effect is not None), default=0.0)
+        return adjusted, raw, -effect
+
+    forward, reverse = key("forward"), key("reverse")
+    if forward != reverse:
+        return "forward" if forward > reverse else "reverse"
+    return "forward" if battery.x <= battery.y else "reverse"
+
+
 def _spread(checks: list[Tagged], role: str, spline: bool) -> list[CheckResult]:
     """Variance checks of one direction on the straight-line residual, or on the spline residual."""
     return [r for r in _of(checks, "variance", role) if (SPLINE_RESIDUAL in r.name) == spline]
@@ -276,8 +297,6 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     facts.add("adjacent")
     indep = {role: not any(significant(r, alpha) for r in _of(checks, "residual independence", role))
              for role in ("forward", "reverse")}
-    hsic_p = {role: min((r.p_adjusted if r.p_adjusted is not None else 1.0)
-                        for r in _of(checks, "residual independence", role)) for role in ("forward", "reverse")}
     gaussian = {role: not _nongaussian(_of(checks, "noise normality", role), policy) for role in ("forward", "reverse")}
     lr = battery.likelihood_ratio or 0.0
 
@@ -305,7 +324,7 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     elif orientation_found == "y->x":
         favoured = "reverse"
     else:
-        favoured = "forward" if hsic_p["forward"] >= hsic_p["reverse"] else "reverse"
+        favoured = _less_dependent(checks, "residual independence", battery)
 
     if gaussian["forward"] and gaussian["reverse"]:
         flags.append("gaussian-noise")
@@ -319,9 +338,7 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     # construction, so the straight-line favourite is no guide here.
     spread_role = favoured
     if nonlinear and orientation_found == "undetermined" and anm_checks["forward"] and anm_checks["reverse"]:
-        anm_p = {role: min((r.p_adjusted if r.p_adjusted is not None else 1.0) for r in anm_checks[role])
-                 for role in anm_checks}
-        spread_role = "forward" if anm_p["forward"] >= anm_p["reverse"] else "reverse"
+        spread_role = _less_dependent(checks, "additive-noise independence", battery)
     heteroscedastic = _material_departure(_spread(checks, spread_role, spline=nonlinear), alpha,
                                           policy.heteroscedastic_min_r2)
     if nonlinear:
