@@ -978,6 +978,12 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
         add(f"| {n} | {len(rs)} | {t.mean():.2f} s | {np.median(t):.2f} s | {t.max():.2f} s |")
     add("")
 
+    if meta.get("notes"):
+        add("### Reading the results")
+        add("")
+        add(meta["notes"].strip())
+        add("")
+
     # ---- by kind and n
     add("### Scenarios by kind and n (shapes and noise families pooled)")
     add("")
@@ -1203,6 +1209,8 @@ def parse_args(argv=None):
                         help="Markdown file whose validity section is replaced (default benchmarks/RESULTS.md)")
     parser.add_argument("--figures", type=Path, default=DEFAULT_FIGURES, help="directory for the PNG figures")
     parser.add_argument("--no-write", action="store_true", help="print the Markdown instead of writing it")
+    parser.add_argument("--notes", type=Path, default=None,
+                        help="Markdown file of the analyst's reading of the results, placed after the headline")
     return parser.parse_args(argv)
 
 
@@ -1281,6 +1289,7 @@ def main(argv=None) -> int:
         run_meta.write_text(json.dumps(meta))
     meta["not_run"] = not_run
     results_dir = args.results.resolve().parent
+    meta["notes"] = args.notes.read_text() if args.notes else ""
     body = markdown(records, grid.describe(), calibration, curves, figures, meta, results_dir)
     if args.no_write:
         print(body)
