@@ -76,15 +76,27 @@ def _hsic_kwargs(policy: Policy, seed: int) -> dict:
 
 
 def association_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, n_conditioning: int,
-                       policy: Policy, seed: int) -> list[Tagged]:
+                       policy: Policy, seed: int, ready: tuple | None = None) -> list[Tagged]:
+    """Pearson, Spearman and HSIC between x and y.
+
+    ``ready`` holds (pearson, spearman, hsic) results computed beforehand for
+    the same pair (any may be None, which is then computed here).
+    """
     from preflight.checks.association import pearson_fisher_z, spearman
     from preflight.checks.independence import hsic
 
     label = f"({x_name}, {y_name})"
+    pearson_result, spearman_result, hsic_result = ready if ready is not None else (None, None, None)
+    if pearson_result is None:
+        pearson_result = pearson_fisher_z(x, y, n_conditioning=n_conditioning)
+    if spearman_result is None:
+        spearman_result = spearman(x, y)
+    if hsic_result is None:
+        hsic_result = hsic(x, y, **_hsic_kwargs(policy, seed))
     return [
-        Tagged("association", "pair", pearson_fisher_z(x, y, n_conditioning=n_conditioning).with_name(f"pearson {label}")),
-        Tagged("association", "pair", spearman(x, y).with_name(f"spearman {label}")),
-        Tagged("association", "pair", hsic(x, y, **_hsic_kwargs(policy, seed)).with_name(f"hsic {label}")),
+        Tagged("association", "pair", pearson_result.with_name(f"pearson {label}")),
+        Tagged("association", "pair", spearman_result.with_name(f"spearman {label}")),
+        Tagged("association", "pair", hsic_result.with_name(f"hsic {label}")),
     ]
 
 
@@ -185,19 +197,23 @@ def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str
 
 def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: np.ndarray | None,
                      conditioning: tuple[str, ...], adjacent: bool, policy: Policy,
-                     Z_for_y: np.ndarray | None = None, Z_for_x: np.ndarray | None = None) -> PairBattery:
+                     Z_for_y: np.ndarray | None = None, Z_for_x: np.ndarray | None = None,
+                     association: tuple | None = None) -> PairBattery:
     """Run the battery on one pair.
 
     ``Z`` holds the conditioning columns (or None) partialled out of both
     variables; ``Z_for_y`` and ``Z_for_x`` are the other parents of each
-    variable, used by the additive-noise check.
+    variable, used by the additive-noise check.  ``association`` holds
+    (pearson, spearman, hsic) of x and y computed beforehand for many pairs
+    at once (only used when ``Z`` is empty; None entries are computed here).
     """
     from preflight.checks.direction import pairwise_likelihood_ratio
 
     seed = derived_seed(policy.seed, x_name, y_name)
     xr = residualize(x, Z)
     yr = residualize(y, Z)
-    checks = association_checks(xr, yr, x_name, y_name, len(conditioning), policy, seed)
+    checks = association_checks(xr, yr, x_name, y_name, len(conditioning), policy, seed,
+                                ready=association if not conditioning else None)
     lr_value = None
     if adjacent:
         checks += _direction_checks(xr, yr, f"{y_name} on {x_name}", "forward", policy, seed)

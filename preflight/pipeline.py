@@ -153,8 +153,38 @@ def _conditioning_sets(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[
     return conditioning, others_of_j, others_of_i
 
 
+def _shared_association(X: np.ndarray, names, tasks, policy: Policy) -> dict[int, tuple]:
+    """Association checks of every unconditioned pair at once, by task index.
+
+    Pearson and Spearman come from two correlation matrices
+    (:func:`preflight.checks.association.pairwise_associations`).  HSIC is
+    shared too when it runs on random features: each column's features are
+    then drawn once instead of once per pair
+    (:func:`preflight.checks.independence.hsic_pairs`), seeded by column
+    name so that reordering columns changes nothing; exact HSIC (small n)
+    gains nothing from sharing and stays in the parallel pair battery.
+    """
+    from preflight.checks.association import pairwise_associations
+    from preflight.checks.independence import hsic_pairs
+
+    chosen = [k for k, task in enumerate(tasks) if not task[2]]
+    if not chosen:
+        return {}
+    pairs = [(tasks[k][0], tasks[k][1]) for k in chosen]
+    linear = pairwise_associations(X, pairs)
+    if min(X.shape[0], policy.hsic_max_n) <= policy.hsic_exact_max_n:
+        kernel = [None] * len(pairs)
+    else:
+        kernel = hsic_pairs(
+            X, pairs, [derived_seed(policy.seed, names[i], names[j]) for i, j in pairs],
+            exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n, n_features=policy.hsic_features,
+            permutations=policy.hsic_permutations, seed=derived_seed(policy.seed, "association rows"),
+            column_seeds=[derived_seed(policy.seed, "association features", name) for name in names])
+    return {k: (pearson, spearman, hsic) for k, (pearson, spearman), hsic in zip(chosen, linear, kernel)}
+
+
 def _battery_task(args):
-    i, j, conditioning, others_of_j, others_of_i, adjacent, policy = args
+    i, j, conditioning, others_of_j, others_of_i, adjacent, policy, association = args
     X, names = _WORKER["X"], _WORKER["names"]
 
     def columns(index):
@@ -162,7 +192,8 @@ def _battery_task(args):
 
     return run_pair_battery(X[:, i], X[:, j], names[i], names[j], columns(conditioning),
                             tuple(names[c] for c in conditioning), adjacent, policy,
-                            Z_for_y=columns(others_of_j), Z_for_x=columns(others_of_i))
+                            Z_for_y=columns(others_of_j), Z_for_x=columns(others_of_i),
+                            association=association)
 
 
 _WORKER: dict[str, Any] = {}
@@ -177,24 +208,36 @@ def _init_worker(X, names):
 
 
 def _run_batteries(X, names, tasks, policy: Policy, progress: Progress) -> list[PairBattery]:
+    """Every pair's battery, in task order; results do not depend on the number of processes."""
     jobs = policy.jobs or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
-    work = X.shape[0] * sum(2 if t[5] else 1 for t in tasks)
-    results: list[PairBattery] = []
-    if jobs <= 1 or len(tasks) < 4 or work < 200_000:
-        _WORKER["X"], _WORKER["names"] = X, names
-        for k, task in enumerate(tasks):
-            results.append(_battery_task(task))
-            progress("pair battery", k + 1, len(tasks))
+    results: list[PairBattery | None] = [None] * len(tasks)
+    _WORKER["X"], _WORKER["names"] = X, names
+    # A non-adjacent pair whose association checks are all ready needs no more
+    # computation: sending it to a worker would cost more than it does here.
+    ready = [k for k, t in enumerate(tasks) if not t[5] and t[7] is not None and all(r is not None for r in t[7])]
+    for k in ready:
+        results[k] = _battery_task(tasks[k])
+    heavy = [k for k in range(len(tasks)) if results[k] is None]
+    done = len(ready)
+    progress("pair battery", done, len(tasks))
+    work = X.shape[0] * sum(2 if tasks[k][5] else 1 for k in heavy)
+    if jobs <= 1 or len(heavy) < 4 or work < 200_000:
+        for k in heavy:
+            results[k] = _battery_task(tasks[k])
+            done += 1
+            progress("pair battery", done, len(tasks))
         return results
     import concurrent.futures as cf
     import multiprocessing as mp
 
     context = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else None
-    with cf.ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=context,
+    with cf.ProcessPoolExecutor(max_workers=min(jobs, len(heavy)), mp_context=context,
                                 initializer=_init_worker, initargs=(X, names)) as pool:
-        for k, result in enumerate(pool.map(_battery_task, tasks, chunksize=max(1, len(tasks) // (8 * jobs)))):
-            results.append(result)
-            progress("pair battery", k + 1, len(tasks))
+        chunk = max(1, len(heavy) // (8 * jobs))
+        for k, result in zip(heavy, pool.map(_battery_task, [tasks[k] for k in heavy], chunksize=chunk)):
+            results[k] = result
+            done += 1
+            progress("pair battery", done, len(tasks))
     return results
 
 
@@ -252,7 +295,10 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
         tasks = []
         for i, j in pair_index:
             conditioning, others_of_j, others_of_i = _conditioning_sets(i, j, adjacency, view.parents)
-            tasks.append((i, j, conditioning, others_of_j, others_of_i, bool(adjacency[i, j]), policy))
+            tasks.append([i, j, conditioning, others_of_j, others_of_i, bool(adjacency[i, j]), policy, None])
+        for k, ready in _shared_association(X, names, tasks, policy).items():
+            tasks[k][7] = ready
+        tasks = [tuple(task) for task in tasks]
         noise_dep = _noise_dependence(view.noise, names, [ij for ij in pair_index if adjacency[ij]],
                                       policy, progress)
         batteries = _run_batteries(X, names, tasks, policy, progress)

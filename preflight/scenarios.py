@@ -106,13 +106,18 @@ def _compelled(dag: np.ndarray) -> np.ndarray:
 
 
 def simulate(kind: str, shape: str = "chain", p: int = 4, n: int = 2000, noise: str = "uniform",
-             seed: int = 0, shuffle_columns: bool = True) -> Scenario:
-    """Draw one scenario; columns are shuffled so the causal order is not the file order."""
+             seed: int = 0, shuffle_columns: bool = True, density: float = 0.4) -> Scenario:
+    """Draw one scenario; columns are shuffled so the causal order is not the file order.
+
+    ``density`` is the chance of each forward edge in the ``random`` shape
+    (wide tables in the benchmark use a sparser graph, about two parents per
+    variable, as real process or cohort tables have).
+    """
     if kind not in KINDS:
         raise ValueError(f"unknown kind {kind!r}")
     rng = np.random.default_rng(seed)
     p = 2 if shape == "pair" else p
-    dag = dag_of_shape(shape, p, rng)
+    dag = dag_of_shape(shape, p, rng, density=density)
     if kind == "independent":
         dag = np.zeros_like(dag)
     weights = rng.uniform(0.5, 1.0, size=(p, p)) * rng.choice([-1.0, 1.0], size=(p, p)) * dag

@@ -468,6 +468,9 @@ class ComponentScreen:
 STABLE_COMPONENT_CORRELATION = 0.95
 """Components of two FastICA starts match when their |correlation| reaches this."""
 
+COMPONENT_DEPENDENCE_MAX_N = 5000
+"""Rows on which the pairs of ICA components are tested for dependence (seeded subsample above)."""
+
 DEPENDENCE_EFFECT_ROWS = 30.0
 """Default materiality of component dependence: normalised HSIC of at least this / n (see fastica_gaussian_components)."""
 
@@ -537,7 +540,11 @@ def fastica_gaussian_components(
        25 / n in our simulations, 3-5 variables, n = 1000-5000).  A pair
        therefore counts as dependent only when its adjusted p-value is below
        ``alpha`` AND its normalised HSIC is at least
-       ``min_dependence_effect``, by default ``DEPENDENCE_EFFECT_ROWS / n``.
+       ``min_dependence_effect``, by default ``DEPENDENCE_EFFECT_ROWS / m``
+       with m the rows HSIC runs on: at most ``COMPONENT_DEPENDENCE_MAX_N``
+       (a seeded subsample shared by all pairs; k components make
+       k (k - 1) / 2 pairs, so this screen would otherwise dominate the run
+       time of a wide table).
 
     The ``min_abs_*`` defaults are Policy.nongaussian_min_abs_skew and
     Policy.nongaussian_min_abs_excess_kurtosis; the ``hsic_*`` ones mirror
@@ -604,11 +611,13 @@ def fastica_gaussian_components(
     pairs = tuple((a, b) for a in range(k) for b in range(a + 1, k))
     dependence = [result.with_name(f"hsic (ica components {a + 1}, {b + 1})") for (a, b), result in zip(
         pairs, hsic_pairs(S, pairs, [_pair_seed(seed, a + 1, b + 1) for a, b in pairs],
-                          exact_max_n=hsic_exact_max_n, max_n=hsic_max_n, n_features=hsic_features,
+                          exact_max_n=hsic_exact_max_n, max_n=min(hsic_max_n, COMPONENT_DEPENDENCE_MAX_N),
+                          n_features=hsic_features,
                           permutations=hsic_permutations, seed=_pair_seed(seed, 0, 0)))]
     tested = [m for m, r in enumerate(dependence) if r.p_value is not None and np.isfinite(r.p_value)]
     dependent_pairs: list[tuple[int, int]] = []
-    material = DEPENDENCE_EFFECT_ROWS / n if min_dependence_effect is None else float(min_dependence_effect)
+    rows_tested = min(n, hsic_max_n, COMPONENT_DEPENDENCE_MAX_N)
+    material = DEPENDENCE_EFFECT_ROWS / rows_tested if min_dependence_effect is None else float(min_dependence_effect)
     if tested:
         adjusted = adjust_p_values([dependence[m].p_value for m in tested], correction)
         for m, value in zip(tested, adjusted):
@@ -655,26 +664,41 @@ def _with_adjusted(result: CheckResult, p_adjusted: float) -> CheckResult:
 # ------------------------------------------------------------------ multivariate normality
 
 HENZE_ZIRKLER_MAX_N = 2000
-"""pingouin builds several n x n matrices (O(n^2) time and memory); above this many rows a seeded subsample is used.
+"""Above this many rows the test runs on a seeded subsample (its cost grows with n^2).
 
 A whole-table screen: at 2,000 rows it already detects departures far smaller
 than those that matter for the noise-shape checks, which use every row."""
+
+_HZ_BLOCK = 512
+"""Rows per block of the pairwise sum, so memory stays O(block * n)."""
 
 
 def henze_zirkler(X, seed: int = 0, max_n: int = HENZE_ZIRKLER_MAX_N) -> CheckResult:
     """Henze-Zirkler test of multivariate normality of the whole table.
 
     Null hypothesis: the rows are iid draws from a multivariate normal
-    distribution.  The statistic is a weighted L2 distance between the
-    empirical characteristic function of the scaled residuals and the
-    normal one, with the smoothing parameter of Henze & Zirkler (1990) and
-    a lognormal null approximation; computed by
-    ``pingouin.multivariate_normality``.  Above ``max_n`` rows the test runs
-    on a seeded subsample (the note says so).  Constant columns are left
-    out; with fewer than two varying columns, or a singular covariance, no
-    test is run (NaN statistic, p-value None).  Reference: Henze & Zirkler (1990).
+    distribution.  With S the covariance (divisor n), D_j the squared
+    Mahalanobis distance of row j from the mean and D_jk that between rows
+    j and k, and b = ((2p + 1)/4)^(1/(p+4)) n^(1/(p+4)) / sqrt(2),
+
+        HZ = 1/n sum_jk exp(-b^2 D_jk / 2)
+             - 2 (1 + b^2)^(-p/2) sum_j exp(-b^2 D_j / (2 (1 + b^2)))
+             + n (1 + 2 b^2)^(-p/2),
+
+    a weighted L2 distance between the empirical characteristic function of
+    the scaled residuals and the normal one.  The p-value is from the
+    lognormal with the null mean and variance of Henze and Zirkler (1990).
+    The double sum runs in row blocks on whitened rows, so memory is
+    O(block x n) rather than several n x n matrices; values agree with
+    ``pingouin.multivariate_normality`` to round-off (tests/test_structure.py).
+    Above ``max_n`` rows the test runs on a seeded subsample (the note says
+    so).  Constant columns are left out; with fewer than two varying
+    columns, or a singular covariance, no test is run (NaN statistic,
+    p-value None).  Reference: Henze & Zirkler (1990), "A class of invariant
+    consistent tests for multivariate normality", Commun. Statist. Theory
+    Meth. 19(10).
     """
-    import pingouin
+    from scipy import stats
 
     X = as_matrix(X, name="X", min_n=3)
     n_total = X.shape[0]
@@ -687,8 +711,8 @@ def henze_zirkler(X, seed: int = 0, max_n: int = HENZE_ZIRKLER_MAX_N) -> CheckRe
         rows = np.sort(np.random.default_rng(seed).choice(n_total, int(max_n), replace=False))
         X = X[rows]
         notes.append(f"seeded subsample of {int(max_n)} of {n_total} rows (seed {seed})")
-    n = X.shape[0]
-    if X.shape[1] < 2:
+    n, p = X.shape
+    if p < 2:
         return CheckResult(name="henze-zirkler", statistic=math.nan, p_value=None, n=n,
                            note="; ".join(notes + ["fewer than two varying columns: no multivariate test"]))
     centred = X - X.mean(axis=0)
@@ -696,10 +720,32 @@ def henze_zirkler(X, seed: int = 0, max_n: int = HENZE_ZIRKLER_MAX_N) -> CheckRe
     if singular[-1] <= 1e-10 * singular[0]:
         return CheckResult(name="henze-zirkler", statistic=math.nan, p_value=None, n=n,
                            note="; ".join(notes + ["singular covariance (exactly collinear columns): no test"]))
-    hz, p_value, _ = pingouin.multivariate_normality(X, alpha=0.05)
-    notes.append("lognormal approximation of the null distribution (pingouin.multivariate_normality)")
-    return CheckResult(name="henze-zirkler", statistic=float(hz), p_value=float(p_value), n=n,
-                       note="; ".join(notes))
+    from scipy.linalg import solve_triangular
+
+    cholesky = np.linalg.cholesky(centred.T @ centred / n)
+    whitened = solve_triangular(cholesky, centred.T, lower=True).T
+    d_j = np.einsum("ij,ij->i", whitened, whitened)
+    b2 = (((2 * p + 1) / 4) ** (1 / (p + 4)) * n ** (1 / (p + 4)) / math.sqrt(2)) ** 2
+    pair_sum = 0.0
+    for start in range(0, n, _HZ_BLOCK):
+        block = whitened[start:start + _HZ_BLOCK]
+        d_jk = d_j[start:start + _HZ_BLOCK, None] + d_j[None, :] - 2.0 * (block @ whitened.T)
+        np.maximum(d_jk, 0.0, out=d_jk)  # round-off can leave -1e-16 on the diagonal
+        pair_sum += float(np.exp(-0.5 * b2 * d_jk).sum())
+    hz = (pair_sum / n - 2.0 * (1 + b2) ** (-p / 2) * float(np.exp(-b2 / (2 * (1 + b2)) * d_j).sum())
+          + n * (1 + 2 * b2) ** (-p / 2))
+    a = 1 + 2 * b2
+    wb = (1 + b2) * (1 + 3 * b2)
+    b4, b8 = b2 * b2, b2 ** 4
+    mean = 1 - a ** (-p / 2) * (1 + p * b2 / a + p * (p + 2) * b4 / (2 * a * a))
+    variance = (2 * (1 + 4 * b2) ** (-p / 2)
+                + 2 * a ** (-p) * (1 + 2 * p * b4 / a ** 2 + 3 * p * (p + 2) * b8 / (4 * a ** 4))
+                - 4 * wb ** (-p / 2) * (1 + 3 * p * b4 / (2 * wb) + p * (p + 2) * b8 / (2 * wb ** 2)))
+    log_mean = math.log(math.sqrt(mean ** 4 / (variance + mean ** 2)))
+    log_sd = math.sqrt(math.log1p(variance / mean ** 2))
+    p_value = float(stats.lognorm.sf(hz, log_sd, scale=math.exp(log_mean)))
+    notes.append("lognormal approximation of the null distribution (Henze and Zirkler 1990)")
+    return CheckResult(name="henze-zirkler", statistic=float(hz), p_value=p_value, n=n, note="; ".join(notes))
 
 
 # ------------------------------------------------------------------ rows needed

@@ -236,3 +236,26 @@ def test_spearman_is_invariant_to_monotone_transforms_and_calibrated():
 def test_spearman_constant_input():
     result = spearman(np.full(12, 1.0), np.arange(12.0))
     assert math.isnan(result.statistic) and result.p_value is None
+
+
+def test_pairwise_associations_equal_the_pair_by_pair_tests():
+    from preflight.checks.association import pairwise_associations
+
+    rng = np.random.default_rng(77)
+    X = rng.standard_normal((400, 4))
+    X[:, 1] += 0.3 * X[:, 0]
+    X[:, 3] = np.round(X[:, 3] * 2)  # ties: mid-ranks
+    X[:, 2] = 5.0  # a constant column has no correlation
+    pairs = [(0, 1), (0, 3), (1, 3), (0, 2)]
+    for (a, b), (pearson, rank) in zip(pairs, pairwise_associations(X, pairs)):
+        expected_pearson = pearson_fisher_z(X[:, a], X[:, b])
+        expected_rank = spearman(X[:, a], X[:, b])
+        if b == 2:
+            assert pearson.p_value is None and rank.p_value is None
+            continue
+        assert pearson.effect == pytest.approx(expected_pearson.effect, abs=1e-12)
+        assert pearson.p_value == pytest.approx(expected_pearson.p_value, rel=1e-9, abs=1e-300)
+        assert rank.effect == pytest.approx(expected_rank.effect, abs=1e-12)
+        assert rank.p_value == pytest.approx(expected_rank.p_value, rel=1e-9, abs=1e-300)
+        # and scipy, the reference library, on the same numbers
+        assert rank.effect == pytest.approx(stats.spearmanr(X[:, a], X[:, b]).statistic, abs=1e-12)

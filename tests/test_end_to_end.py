@@ -174,3 +174,19 @@ def test_python_api_matches_cli(tmp_path, linear_uniform_csv):
     validate_report(api_data)
     assert api_data["pairs"] == cli_data["pairs"]
     assert api_data["conclusion"] == cli_data["conclusion"]
+
+
+def test_results_do_not_depend_on_the_number_of_worker_processes():
+    # Large enough that the pair battery goes to a process pool with jobs=2
+    # (and random-feature HSIC is shared across pairs); the reports must be
+    # identical, settings.jobs apart.
+    import preflight
+    from preflight.scenarios import simulate, to_frame
+
+    frame = to_frame(simulate("linear-non-gaussian", "chain", p=6, n=30000, noise="laplace", seed=3))
+    serial = preflight.check(frame, seed=4, jobs=1, keep_samples=False).to_dict()
+    pooled = preflight.check(frame, seed=4, jobs=2, keep_samples=False).to_dict()
+    for report in (serial, pooled):
+        report.pop("generated_at")
+        report["settings"].pop("jobs")
+    assert serial == pooled
