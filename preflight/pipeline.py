@@ -207,9 +207,13 @@ def _init_worker(X, names):
     threadpool_limits(1)  # a worker process's own setting: it ends with the pool
 
 
+def _jobs(policy: Policy) -> int:
+    return policy.jobs or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
+
+
 def _run_batteries(X, names, tasks, policy: Policy, progress: Progress) -> list[PairBattery]:
     """Every pair's battery, in task order; results do not depend on the number of processes."""
-    jobs = policy.jobs or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
+    jobs = _jobs(policy)
     results: list[PairBattery | None] = [None] * len(tasks)
     _WORKER["X"], _WORKER["names"] = X, names
     # A non-adjacent pair whose association checks are all ready needs no more

@@ -190,3 +190,19 @@ def test_results_do_not_depend_on_the_number_of_worker_processes():
         report.pop("generated_at")
         report["settings"].pop("jobs")
     assert serial == pooled
+
+
+@pytest.mark.parametrize("argument", ["--help", "--version"])
+def test_help_and_version_import_no_heavy_module(argument):
+    # Start-up stays fast because nothing numerical is imported before a check runs.
+    import subprocess
+    import sys
+
+    probe = ("import sys\n"
+             f"sys.argv = ['preflight', {argument!r}]\n"
+             "from preflight.cli import main\n"
+             "try:\n    main()\nexcept SystemExit:\n    pass\n"
+             "heavy = ('numpy', 'scipy', 'pandas', 'statsmodels', 'sklearn', 'matplotlib', 'pingouin', 'pyarrow')\n"
+             "print('LOADED=' + ','.join(m for m in heavy if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, check=True).stdout
+    assert out.strip().splitlines()[-1] == "LOADED=", out
