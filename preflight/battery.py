@@ -367,7 +367,7 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     # either counts as dependence here.  A heteroscedastic mechanism cannot
     # be told apart from confounding at the pair level; both flags then stand.
     dependent = {role: (not indep[role]) or _material_departure(_spread(checks, role, spline=False), alpha,
-                                                                 policy.heteroscedastic_min_r2)
+                                                                 policy.confounding_spread_min_r2)
                  for role in ("forward", "reverse")}
     if dependent["forward"] and dependent["reverse"] and not nonlinear and "gaussian-noise" not in flags:
         flags.append("confounding-suspected")
