@@ -89,11 +89,15 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
         for result in normality_checks(noise[:, j], max_n=policy.shapiro_max_n, seed=seed):
             variable_checks[j].append(Tagged("noise normality", "variable",
                                              result.with_name(f"{result.name} (noise of {name})")))
+    from preflight.checks.confounding import SPECTRAL_MIN_PREDICTORS, spectral_confounding
+
+    for j, name in enumerate(names):
+        if len(parents[j]) >= SPECTRAL_MIN_PREDICTORS:
+            strength = spectral_confounding(X, j, parents[j])
+            variable_checks[j].append(Tagged(None, "variable", strength.with_name(
+                f"spectral confounding strength ({name} on its {len(parents[j])} parents)")))
     global_checks: list[Tagged] = []
-    try:
-        global_checks.append(Tagged(None, "global", structure.henze_zirkler(X, seed=policy.seed)))
-    except TypeError:
-        global_checks.append(Tagged(None, "global", structure.henze_zirkler(X)))
+    global_checks.append(Tagged(None, "global", structure.henze_zirkler(X, seed=policy.seed)))
     ica = structure.fastica_gaussian_components(X, seed=policy.seed, alpha=policy.alpha)
     for result in getattr(ica, "checks", ()):
         global_checks.append(Tagged(None, "global", result))

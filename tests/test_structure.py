@@ -493,3 +493,20 @@ def test_spectral_confounding_is_unit_free_and_guarded():
     unrelated = np.column_stack([rng.normal(size=500), rng.normal(size=(500, 6))])
     unrelated_result = spectral_confounding(unrelated, 0, range(1, 7))
     assert math.isnan(unrelated_result.statistic) or 0.0 <= unrelated_result.statistic <= 1.0
+
+
+def test_report_carries_spectral_confounding_for_a_variable_with_five_parents():
+    # A collider of six causes: the common child has six estimated parents,
+    # so its regression gets the spectral confounding indicator (no p-value).
+    import preflight
+    from preflight.scenarios import simulate, to_frame
+
+    scenario = simulate("linear-non-gaussian", "collider", p=7, n=3000, noise="uniform", seed=5)
+    report = preflight.check(to_frame(scenario), seed=1, keep_samples=False).to_dict()
+    child = scenario.names[int(np.flatnonzero(scenario.dag.sum(axis=0) == 6)[0])]
+    (variable,) = [v for v in report["variables"] if v["name"] == child]
+    (check,) = [c for c in variable["checks"] if c["name"].startswith("spectral confounding strength")]
+    assert check["p_value"] is None and 0.0 <= check["effect"] <= 1.0
+    assert "generic orientation" in check["note"]
+    others = [c for v in report["variables"] if v["name"] != child for c in v["checks"]]
+    assert not any(c["name"].startswith("spectral confounding") for c in others)

@@ -199,6 +199,9 @@ REFERENCES = {
                      "analysis and projection pursuit. Advances in Neural Information Processing Systems 10.",
     "hyvarinen1999": "Hyv\u00e4rinen, A. (1999). Fast and robust fixed-point algorithms for independent component "
                      "analysis. IEEE Transactions on Neural Networks 10(3), 626-634.",
+    "janzing2018": "Janzing, D. and Schoelkopf, B. (2018). Detecting non-causal artifacts in multivariate linear "
+                   "regression models. Proceedings of the 35th International Conference on Machine Learning, "
+                   "PMLR 80, 2245-2253.",
     "hyvarinen2013": "Hyv\u00e4rinen, A. and Smith, S. M. (2013). Pairwise likelihood ratios for estimation of "
                      "non-Gaussian structural equation models. Journal of Machine Learning Research 14, 111-152.",
     "jarque1980": "Jarque, C. M. and Bera, A. K. (1980). Efficient tests for normality, homoscedasticity and serial "
@@ -314,6 +317,9 @@ METHODS: tuple[Method, ...] = (
            ("henze1990",), _has("henze")),
     Method("fastica", "whole", "FastICA unmixing with a count of Gaussian-looking components "
            "(Hyv\u00e4rinen 1999)", ("hyvarinen1999",), _has("fastica", "ica ", "independent component")),
+    Method("spectral-confounding", "whole", "the spectral confounding strength of each variable's regression "
+           "on five or more estimated parents, an indicator read from the eigenvectors of the parents' "
+           "correlation matrix (after Janzing and Schoelkopf 2018)", ("janzing2018",), _has("spectral confounding")),
     Method("varsortability", "whole", "varsortability, the share of estimated edges along which marginal "
            "variance increases (Reisach et al. 2021)", ("reisach2021",), _has("varsortab")),
 )
