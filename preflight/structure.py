@@ -468,6 +468,9 @@ class ComponentScreen:
 STABLE_COMPONENT_CORRELATION = 0.95
 """Components of two FastICA starts match when their |correlation| reaches this."""
 
+ICA_FIT_MAX_N = 20000
+"""Rows FastICA is fitted on (a seeded subsample above); the unmixing is then applied to every row."""
+
 COMPONENT_DEPENDENCE_MAX_N = 5000
 """Rows on which the pairs of ICA components are tested for dependence (seeded subsample above)."""
 
@@ -503,7 +506,7 @@ def fastica_gaussian_components(
     hsic_features: int = 64,
     hsic_permutations: int = 0,
     min_dependence_effect: float | None = None,
-    restarts: int = 3,
+    restarts: int = 8,
     max_iter: int = 1000,
     tol: float = 1e-4,
 ) -> ComponentScreen:
@@ -511,7 +514,8 @@ def fastica_gaussian_components(
 
     The non-constant columns are standardised and unmixed with
     ``sklearn.decomposition.FastICA`` (``whiten="unit-variance"``, as many
-    components as the covariance has rank), from ``restarts`` seeded
+    components as the covariance has rank; fitted on at most
+    ``ICA_FIT_MAX_N`` rows), from ``restarts`` seeded
     starts (the first with ``random_state=seed``); the unmixing with the
     largest summed log-cosh negentropy is kept.  When the starts disagree
     (some component of the kept unmixing has |correlation| below
@@ -574,20 +578,29 @@ def fastica_gaussian_components(
     rank = int(np.sum(singular > 1e-10 * singular[0]))
     if rank < Z.shape[1]:
         notes.append(f"covariance rank {rank} < {Z.shape[1]} columns: {rank} components")
+    # C order whatever the caller's layout: FastICA's result on weakly
+    # identified data otherwise depended on the memory layout of the input.
+    Z = np.ascontiguousarray(Z)
+    Z_fit = Z
+    if n > ICA_FIT_MAX_N:
+        Z_fit = Z[np.sort(np.random.default_rng(_pair_seed(seed, -1, -1)).choice(n, ICA_FIT_MAX_N, replace=False))]
+        notes.append(f"unmixing fitted on a seeded subsample of {ICA_FIT_MAX_N} rows and applied to all {n}")
     runs = []
     for restart in range(max(1, int(restarts))):
         state = seed if restart == 0 else _pair_seed(seed, -1 - restart, restart)
         ica = FastICA(n_components=rank, whiten="unit-variance", random_state=state, max_iter=max_iter, tol=tol)
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", ConvergenceWarning)
-            S_run = ica.fit_transform(Z)
+            S_run = ica.fit_transform(Z_fit)
         runs.append((_logcosh_negentropy(_standardise_columns(S_run)[0]).sum(), restart,
-                     not any(issubclass(w.category, ConvergenceWarning) for w in caught), S_run))
+                     not any(issubclass(w.category, ConvergenceWarning) for w in caught), S_run, ica))
     # The most non-Gaussian unmixing is the ICA estimate (ties: earliest run).
-    _, best_run, converged, S = max(runs, key=lambda r: (r[0], -r[1]))
+    _, best_run, converged, S, best_ica = max(runs, key=lambda r: (r[0], -r[1]))
     if not converged:
         notes.append(f"FastICA did not converge in {max_iter} iterations (seed {seed})")
     stable = _same_components(S, [r[3] for r in runs if r[1] != best_run])
+    if Z_fit is not Z:
+        S = best_ica.transform(Z)
     if not stable:
         notes.append(f"the unmixing differs between {len(runs)} FastICA starts: components are not identified "
                      "(too little non-Gaussianity), so their dependence is not interpreted")
