@@ -121,9 +121,8 @@ def hand_battery(data: np.ndarray, names: list[str]) -> dict:
             exog = sm.add_constant(x)
             fit = sm.OLS(y, exog).fit()
             r = fit.resid
-            anderson = stats.anderson(r)
             normal = [stats.shapiro(r[:5000]).pvalue, stats.normaltest(r).pvalue, stats.jarque_bera(r).pvalue,
-                      0.01 if anderson.statistic > anderson.critical_values[2] else 0.5]
+                      stats.anderson(r, method="interpolate").pvalue]
             reset = linear_reset(fit, power=3, use_f=True).pvalue
             spline_design = patsy.dmatrix("bs(x, df=8, degree=3)", {"x": x}, return_type="matrix")
             spline_p = sm.OLS(y, np.asarray(spline_design)).fit().compare_f_test(fit)[1]

@@ -428,3 +428,29 @@ def test_distance_correlation_detects_nonmonotone_dependence():
     y = x**2 + 0.5 * rng.standard_normal(300)
     result = distance_correlation(x, y)
     assert result.p_value < 1e-6 and result.effect > 0.05
+
+
+@pytest.mark.parametrize("kind", ["normal", "rounded", "binary", "mostly-zero", "heavy-tailed"])
+def test_median_bandwidth_equals_numpy_median_of_all_differences(kind):
+    # The selection algorithm must give exactly np.median of the m(m-1)/2
+    # absolute differences (and the non-zero fallback on heavy ties).
+    from preflight.checks.independence import _median_bandwidth
+
+    for seed in range(25):
+        rng = np.random.default_rng(9000 + seed)
+        n = int(rng.integers(2, 1200))
+        v = {"normal": lambda: rng.standard_normal(n),
+             "rounded": lambda: np.round(rng.standard_normal(n) * rng.uniform(0.1, 3)),
+             "binary": lambda: rng.integers(0, 2, n).astype(float),
+             "mostly-zero": lambda: np.concatenate([np.zeros(n), rng.standard_normal(max(1, n // 10))]),
+             "heavy-tailed": lambda: rng.standard_t(1, n)}[kind]()
+        if v.shape[0] > 1000:
+            v = v[:1000]  # below the subsample limit, so no rows are drawn
+        rows, cols = np.triu_indices(v.shape[0], k=1)
+        diffs = np.abs(v[rows] - v[cols])
+        expected = float(np.median(diffs))
+        fallback = not expected > 0
+        if fallback:
+            positive = diffs[diffs > 0]
+            expected = float(np.median(positive)) if positive.size else 1.0
+        assert _median_bandwidth(v, np.random.default_rng(0)) == (expected, fallback)

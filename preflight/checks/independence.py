@@ -90,22 +90,42 @@ def _smallest_difference_above(s: np.ndarray, t: float) -> float:
 def _kth_difference(s: np.ndarray, k: int) -> float:
     """The k-th smallest (1-based) of the m(m-1)/2 differences s_j - s_i, i < j, of sorted s.
 
-    Bisection on the value with a counting step (searchsorted), then a snap
-    to the observed difference just above the lower end, so the result is
-    bit-identical to sorting all differences, without forming them:
-    O(m log m) per step instead of O(m^2) memory.
+    Bisection on the value with a counting step (searchsorted) until at most
+    ``_ENUMERATE_AT`` differences lie in the bracket, which are then listed
+    and sorted; the result is one of the observed differences, bit-identical
+    to sorting all of them, without forming them: O(m log m) per step
+    instead of O(m^2) memory.
     """
+    m = s.shape[0]
     lo, hi = -1.0, float(s[-1] - s[0])
-    # invariant: count(<= lo) < k <= count(<= hi)
+    below, above = 0, m * (m - 1) // 2  # count(<= lo) < k <= count(<= hi)
     for _ in range(200):
+        if above - below <= _ENUMERATE_AT:
+            return _enumerate_kth(s, lo, hi, k - below)
         mid = 0.5 * (lo + hi)
         if not lo < mid < hi:
             break
-        if _count_differences_at_most(s, mid) >= k:
-            hi = mid
+        count = _count_differences_at_most(s, mid)
+        if count >= k:
+            hi, above = mid, count
         else:
-            lo = mid
+            lo, below = mid, count
     return _smallest_difference_above(s, lo)
+
+
+def _enumerate_kth(s: np.ndarray, lo: float, hi: float, rank: int) -> float:
+    """The rank-th smallest (1-based) difference s_j - s_i, i < j, lying in (lo, hi]."""
+    m = s.shape[0]
+    first = np.maximum(np.searchsorted(s, s + lo, side="right"), np.arange(1, m + 1))
+    widths = np.maximum(np.searchsorted(s, s + hi, side="right") - first, 0)
+    rows = np.repeat(np.arange(m), widths)
+    offsets = np.arange(int(widths.sum())) - np.repeat(np.cumsum(widths) - widths, widths)
+    candidates = np.sort(s[np.repeat(first, widths) + offsets] - s[rows])
+    return float(candidates[rank - 1])
+
+
+_ENUMERATE_AT = 4096
+"""Differences left in the bisection bracket at which they are listed and sorted directly."""
 
 
 def _median_difference(s: np.ndarray, skip: int = 0) -> float:
