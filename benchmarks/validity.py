@@ -233,6 +233,22 @@ def _new_flag_tally() -> dict:
     return {flag: [0, 0, 0, 0] for flag in FLAGS}  # hits, expected, alarms, clean
 
 
+CONFLICT_REASON = "contradicts an orientation compelled by conditional independences"
+"""Wording of the rule ``orientation-disagrees-with-class`` in preflight/rules.toml; its reason names the edges."""
+
+
+def conflict_pairs(report: dict) -> set:
+    """Edges the report names as having a noise-based orientation that contradicts the compelled one."""
+    import re
+
+    named = set()
+    for reason in report["conclusion"].get("reasons") or []:
+        if CONFLICT_REASON in reason:
+            items = reason.split(":", 1)[0]
+            named.update(frozenset(m) for m in re.findall(r"(\S+) - (\S+?)(?:,|$)", items))
+    return named
+
+
 def score(scenario, spec: Spec, report: dict) -> dict:
     """Compare one report with the scenario's truth; returns counts (see RESULTS.md for definitions)."""
     names = list(scenario.names)
@@ -254,7 +270,8 @@ def score(scenario, spec: Spec, report: dict) -> dict:
             flags[flag][2] += int(raised)
             flags[flag][3] += 1
 
-    wrong: list[tuple[str, str | None]] = []  # (what went wrong, the basis the report gave)
+    wrong: list[tuple] = []  # (what went wrong, the basis the report gave, named by the conflict rule)
+    conflicted = conflict_pairs(report)
     counts["true_edges"] = int(dag.sum())
     counts["identifiable_edges"] = int((dag & ident).sum())
     seen = set()
@@ -283,21 +300,21 @@ def score(scenario, spec: Spec, report: dict) -> dict:
                         counts["correct"] += 1
                     else:
                         counts["reversed"] += 1
-                        wrong.append(("reversed", pair.get("basis")))
+                        wrong.append(("reversed", pair.get("basis"), frozenset((pair["x"], pair["y"])) in conflicted))
                 else:
                     counts["not_identifiable_adjacent"] += 1
                     if direction is not None:
                         counts["oriented_not_identifiable"] += 1
                         if direction != true_edge:
                             counts["reversed_not_identifiable"] += 1
-                        wrong.append(("not identifiable", pair.get("basis")))
+                        wrong.append(("not identifiable", pair.get("basis"), frozenset((pair["x"], pair["y"])) in conflicted))
             else:
                 counts["skeleton_missed"] += 1
         elif adjacent:
             counts["spurious"] += 1
             if direction is not None:
                 counts["spurious_oriented"] += 1
-                wrong.append(("spurious", pair.get("basis")))
+                wrong.append(("spurious", pair.get("basis"), frozenset((pair["x"], pair["y"])) in conflicted))
         if is_hidden:
             counts["hidden_pairs"] += 1
             counts["hidden_adjacent"] += int(adjacent)
@@ -943,6 +960,32 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
         add(f"| {shape} | {n} | {len(rs)} | {c['reversed']} | {c['spurious_oriented']} | {edges} | "
             f"{_frac((wrong, edges))} |")
     add("")
+    culprits = [r for r in lingam if r.get("wrong")]
+    if culprits:
+        add("The replicates behind them (seed = the replicate's seed for `simulate` and `check`; "
+            "skeleton misses = true edges the report does not list as adjacent):")
+        add("")
+        add("| shape | p | noise | n | seed | level reached | wrong orientations (what, basis) | skeleton misses | rules fired |")
+        add("|---|---|---|---|---|---|---|---|---|")
+        for r in sorted(culprits, key=lambda r: (SHAPES.index(r["spec"]["shape"]), r["spec"]["n"], r["spec"]["seed"])):
+            s_ = r["spec"]
+            what = ", ".join(f"{k} × {what} ({basis or 'null'})"
+                             for (what, basis), k in sorted(Counter(tuple(w[:2]) for w in r["wrong"]).items()))
+            add(f"| {s_['shape']} | {s_['p']} | {s_['noise']} | {s_['n']} | {s_['seed']} | {r['level']} | {what} | "
+                f"{r['counts'].get('skeleton_missed', 0)} of {r['counts'].get('true_edges', 0)} | "
+                f"{', '.join(r['rules_fired']) or '–'} |")
+        add("")
+    recheck = meta.get("recheck")
+    if recheck:
+        add(f"Re-running those {recheck['replicates']} replicates with the same seeds (`--recheck-culprits`) "
+            f"reproduced {recheck['wrong']} wrong orientations ({recheck['reversed']} reversed true edges); "
+            f"{recheck['named_reversed']} of the reversed edges and {recheck['named']} of all the wrong ones are edges "
+            "the report itself names under the rule `orientation-disagrees-with-class`: the noise-based direction "
+            "contradicts the one compelled by conditional independences and the report publishes the compelled one; "
+            "for the reversed edges among them the noise-based direction was the true one. Had exactly those edges "
+            "been left undetermined, everything else unchanged (a first-order estimate: Meek propagation could move "
+            f"other edges), the first figure would read {_frac((o['wrong'] - recheck['named'], o['edges']), 2)}.")
+        add("")
     add("Where the `linear-non-gaussian` conclusions of the second figure come from:")
     add("")
     add("| kind | expected level | n | replicates | concluded linear-non-gaussian |")
@@ -952,6 +995,21 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
         hits = sum(r["level"] == "linear-non-gaussian" for r in rs)
         add(f"| {kind} | {EXPECTED_LEVEL[kind]} | {n} | {len(rs)} | {_frac((hits, len(rs)))} |")
     add("")
+    wrongly_strong = [r for r in chosen if r["level"] == "linear-non-gaussian"]
+    if wrongly_strong:
+        add("The replicates concluding `linear-non-gaussian` there:")
+        add("")
+        add("| kind | shape | p | noise | n | seed | hidden pair adjacent in the report | hidden pair flagged `confounding-suspected` | rules fired |")
+        add("|---|---|---|---|---|---|---|---|---|")
+        for r in sorted(wrongly_strong, key=lambda r: (r["spec"]["kind"], r["spec"]["n"], r["spec"]["seed"])):
+            s_ = r["spec"]
+            c_ = r["counts"]
+            hidden = c_.get("hidden_pairs", 0)
+            adjacent = f"{c_.get('hidden_adjacent', 0)} of {hidden}" if hidden else "–"
+            flagged = f"{r['flags']['confounding-suspected'][0]} of {hidden}" if hidden else "–"
+            add(f"| {s_['kind']} | {s_['shape']} | {s_['p']} | {s_['noise']} | {s_['n']} | {s_['seed']} | {adjacent} | "
+                f"{flagged} | {', '.join(r['rules_fired']) or '–'} |")
+        add("")
 
     add("Every false orientation, by kind, what went wrong and the `basis` the report gave for it (all n):")
     add("")
@@ -959,8 +1017,8 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
     add("|---|---|---|---|")
     tally = Counter()
     for r in records:
-        for what, basis in r.get("wrong", []):
-            tally[(r["spec"]["kind"], what, basis or "null")] += 1
+        for entry in r.get("wrong", []):
+            tally[(r["spec"]["kind"], entry[0], entry[1] or "null")] += 1
     order = {k: i for i, k in enumerate(_all_kinds())}
     for (kind, what, basis), count in sorted(tally.items(), key=lambda kv: (order[kv[0][0]], -kv[1])):
         add(f"| {kind} | {what} | {basis} | {count} |")
@@ -1201,6 +1259,9 @@ def parse_args(argv=None):
                         help="start no new scenario replicate after this many minutes (serial runs); the ones left are listed as not run")
     parser.add_argument("--only-recorded", action="store_true",
                         help="run no scenario: tabulate the replicates already in --records, list the rest as not run")
+    parser.add_argument("--recheck-culprits", action="store_true",
+                        help="re-run the linear non-Gaussian replicates (n >= 1000) with wrong orientations and count "
+                             "those the report names under orientation-disagrees-with-class")
     parser.add_argument("--skip-scenarios", action="store_true")
     parser.add_argument("--skip-calibration", action="store_true")
     parser.add_argument("--records", type=Path, default=None,
@@ -1290,6 +1351,16 @@ def main(argv=None) -> int:
     meta["not_run"] = not_run
     results_dir = args.results.resolve().parent
     meta["notes"] = args.notes.read_text() if args.notes else ""
+    if args.recheck_culprits:
+        culprits = [r for r in records if r["spec"]["kind"] == "linear-non-gaussian" and r["spec"]["n"] >= 1000
+                    and r.get("wrong")]
+        rerun = [run_spec(Spec(**r["spec"])) for r in culprits]
+        entries = [w for r in rerun for w in r.get("wrong", [])]
+        meta["recheck"] = {"replicates": len(rerun), "wrong": len(entries),
+                           "reversed": sum(w[0] == "reversed" for w in entries),
+                           "named_reversed": sum(w[0] == "reversed" and w[2] for w in entries),
+                           "named": sum(bool(w[2]) for w in entries)}
+        print(f"recheck: {meta['recheck']}", file=sys.stderr)
     body = markdown(records, grid.describe(), calibration, curves, figures, meta, results_dir)
     if args.no_write:
         print(body)
