@@ -30,6 +30,8 @@ class Rule:
     kind: str
     explain: str
     reference: str
+    edge_rules_out: tuple[str, ...] = ()
+    """Rungs ruled out for the edges it touches only, not for the overall conclusion."""
 
     def holds(self, facts: frozenset[str] | set[str]) -> bool:
         for fact in self.when:
@@ -66,7 +68,7 @@ class RulesOutcome:
 
 
 def _parse_rule(raw: dict, position: int) -> Rule:
-    known = {"id", "scope", "when", "rules_out", "edges", "kind", "explain", "reference"}
+    known = {"id", "scope", "when", "rules_out", "edge_rules_out", "edges", "kind", "explain", "reference"}
     unknown = set(raw) - known
     if unknown:
         raise ValueError(f"rule {position}: unknown field(s) {sorted(unknown)}")
@@ -77,16 +79,21 @@ def _parse_rule(raw: dict, position: int) -> Rule:
     for level in rules_out:
         if level not in LEVELS or level == "none":
             raise ValueError(f"rule {raw['id']}: cannot rule out {level!r}")
+    edge_rules_out = tuple(raw.get("edge_rules_out", ()))
+    for level in edge_rules_out:
+        if level not in LEVELS or level == "none":
+            raise ValueError(f"rule {raw['id']}: cannot rule out {level!r} for an edge")
     edges = raw.get("edges", "touching" if scope != "global" else "all")
     if edges not in EDGE_REACH:
         raise ValueError(f"rule {raw['id']}: edges must be one of {EDGE_REACH}")
     kind = raw.get("kind", "limit")
     if kind not in KINDS:
         raise ValueError(f"rule {raw['id']}: kind must be one of {KINDS}")
-    if kind == "caution" and rules_out:
+    if kind == "caution" and (rules_out or edge_rules_out):
         raise ValueError(f"rule {raw['id']}: a caution rules nothing out")
     return Rule(id=raw["id"], scope=scope, when=tuple(raw["when"]), rules_out=rules_out, edges=edges,
-                kind=kind, explain=" ".join(raw["explain"].split()), reference=raw.get("reference", ""))
+                kind=kind, explain=" ".join(raw["explain"].split()), reference=raw.get("reference", ""),
+                edge_rules_out=edge_rules_out)
 
 
 @lru_cache(maxsize=1)
@@ -147,17 +154,18 @@ def evaluate(
         items = tuple(h for h in hits if h)
         fired.append(FiredRule(rule, items, _render(rule, items, context)))
         ruled_out_overall.update(rule.rules_out)
+        for_edges = rule.rules_out + rule.edge_rules_out
         if rule.scope == "pair":
             for (x, y) in adjacent:
                 if f"{x} - {y}" in hits:
-                    edge_out[(x, y)].update(rule.rules_out)
+                    edge_out[(x, y)].update(for_edges)
         elif rule.edges == "all":
             for pair in adjacent:
-                edge_out[pair].update(rule.rules_out)
+                edge_out[pair].update(for_edges)
         elif rule.edges == "touching":
             for (x, y) in adjacent:
                 if x in hits or y in hits:
-                    edge_out[(x, y)].update(rule.rules_out)
+                    edge_out[(x, y)].update(for_edges)
     level = next(lvl for lvl in LEVELS if lvl not in ruled_out_overall)
     # An edge may never rest on a rung stronger than the overall conclusion's
     # orienting rungs allow once the data have been judged void.
@@ -181,6 +189,8 @@ def rules_table_text() -> str:
         lines.append(f"{rule.id}  [{rule.scope}{reach}]")
         lines.append(f"  when:      {' and '.join(rule.when)}")
         lines.append(f"  rules out: {out}")
+        if rule.edge_rules_out:
+            lines.append(f"  and for its edges only: {', '.join(rule.edge_rules_out)}")
         lines.append(f"  says:      {rule.explain}")
         lines.append(f"  source:    {rule.reference}")
         lines.append("")
