@@ -97,10 +97,6 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
             variable_checks[j].append(Tagged(None, "variable", strength.with_name(
                 f"spectral confounding strength ({name} on its {len(parents[j])} parents)")))
     global_checks: list[Tagged] = []
-    global_checks.append(Tagged(None, "global", structure.henze_zirkler(X, seed=policy.seed)))
-    ica = structure.fastica_gaussian_components(X, seed=policy.seed, alpha=policy.alpha)
-    for result in getattr(ica, "checks", ()):
-        global_checks.append(Tagged(None, "global", result))
     edges = [(parent, child) for child, ps in enumerate(parents) for parent in ps]
     flags: list[str] = []
     if edges:
@@ -111,10 +107,26 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
             note=f"varsortable when at least {policy.varsortable_min_share:.0%} (Reisach et al. 2021)")))
         if share >= policy.varsortable_min_share and len(edges) >= 2:
             flags.append("varsortable")
-    if getattr(ica, "dependent", False):
-        flags.append("dependent-components")
     return StructuralView(order=order, parents=parents, noise=noise, variable_checks=variable_checks,
                           global_checks=global_checks, global_flags=tuple(flags), gaussian_noises=())
+
+
+def _whole_table_screens(X: np.ndarray, policy: Policy) -> tuple[list[CheckResult], bool]:
+    """Henze-Zirkler and the FastICA cross-check: their checks, and whether components are dependent.
+
+    Neither feeds the pair battery, so with worker processes they run in one
+    of them while the main process builds the structural view and the pairs.
+    """
+    from preflight import structure
+
+    checks = [structure.henze_zirkler(X, seed=policy.seed)]
+    ica = structure.fastica_gaussian_components(X, seed=policy.seed, alpha=policy.alpha)
+    checks += list(ica.checks)
+    return checks, bool(ica.dependent)
+
+
+def _whole_table_task(policy: Policy) -> tuple[list[CheckResult], bool]:
+    return _whole_table_screens(_WORKER["X"], policy)
 
 
 def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str | None):
@@ -215,7 +227,21 @@ def _jobs(policy: Policy) -> int:
     return policy.jobs or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
 
 
-def _run_batteries(X, names, tasks, policy: Policy, progress: Progress) -> list[PairBattery]:
+def _start_pool(X: np.ndarray, names, policy: Policy):
+    """Worker processes for the run, or None when the table is too small to gain from them."""
+    jobs = _jobs(policy)
+    n, p = X.shape
+    if jobs <= 1 or n * p * (p - 1) // 2 < 200_000:
+        return None
+    import concurrent.futures as cf
+    import multiprocessing as mp
+
+    context = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else None
+    return cf.ProcessPoolExecutor(max_workers=jobs, mp_context=context, initializer=_init_worker,
+                                  initargs=(X, names))
+
+
+def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=None) -> list[PairBattery]:
     """Every pair's battery, in task order; results do not depend on the number of processes."""
     jobs = _jobs(policy)
     results: list[PairBattery | None] = [None] * len(tasks)
@@ -228,24 +254,17 @@ def _run_batteries(X, names, tasks, policy: Policy, progress: Progress) -> list[
     heavy = [k for k in range(len(tasks)) if results[k] is None]
     done = len(ready)
     progress("pair battery", done, len(tasks))
-    work = X.shape[0] * sum(2 if tasks[k][5] else 1 for k in heavy)
-    if jobs <= 1 or len(heavy) < 4 or work < 200_000:
+    if pool is None or len(heavy) < 2:
         for k in heavy:
             results[k] = _battery_task(tasks[k])
             done += 1
             progress("pair battery", done, len(tasks))
         return results
-    import concurrent.futures as cf
-    import multiprocessing as mp
-
-    context = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else None
-    with cf.ProcessPoolExecutor(max_workers=min(jobs, len(heavy)), mp_context=context,
-                                initializer=_init_worker, initargs=(X, names)) as pool:
-        chunk = max(1, len(heavy) // (8 * jobs))
-        for k, result in zip(heavy, pool.map(_battery_task, [tasks[k] for k in heavy], chunksize=chunk)):
-            results[k] = result
-            done += 1
-            progress("pair battery", done, len(tasks))
+    chunk = max(1, len(heavy) // (8 * jobs))
+    for k, result in zip(heavy, pool.map(_battery_task, [tasks[k] for k in heavy], chunksize=chunk)):
+        results[k] = result
+        done += 1
+        progress("pair battery", done, len(tasks))
     return results
 
 
@@ -264,6 +283,24 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
 
 
 # ---------------------------------------------------------------- the run
+
+
+def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progress, pool):
+    """Structural view, adjacency, every pair's battery and the whole-table screens."""
+    whole = pool.submit(_whole_table_task, policy) if pool is not None else None
+    view = _structural_view(X, names, policy, progress)
+    adjacency, cpdag, adjacency_source = _adjacency(X, names, policy, graph)
+    tasks = []
+    for i, j in pair_index:
+        conditioning, others_of_j, others_of_i = _conditioning_sets(i, j, adjacency, view.parents)
+        tasks.append([i, j, conditioning, others_of_j, others_of_i, bool(adjacency[i, j]), policy, None])
+    for k, ready in _shared_association(X, names, tasks, policy).items():
+        tasks[k][7] = ready
+    tasks = [tuple(task) for task in tasks]
+    noise_dep = _noise_dependence(view.noise, names, [ij for ij in pair_index if adjacency[ij]], policy, progress)
+    batteries = _run_batteries(X, names, tasks, policy, progress, pool)
+    whole_result = whole.result() if whole is not None else _whole_table_screens(X, policy)
+    return view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole_result
 
 def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
         keep_samples: bool) -> Report:
@@ -294,22 +331,19 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
     batteries: list[PairBattery] = []
     pair_index = list(itertools.combinations(range(p), 2))
     if not void:
-        view = _structural_view(X, names, policy, progress)
-        global_checks += view.global_checks
-        global_flags += list(view.global_flags)
+        pool = _start_pool(X, names, policy)
+        try:
+            view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole = _analyse_table(
+                X, names, pair_index, policy, graph, progress, pool)
+        finally:
+            if pool is not None:
+                pool.shutdown()
+        whole_checks, dependent = whole
+        # Report order: Henze-Zirkler, the FastICA checks, then the view's own (varsortability).
+        global_checks += [Tagged(None, "global", c) for c in whole_checks] + view.global_checks
+        global_flags += list(view.global_flags) + (["dependent-components"] if dependent else [])
         for j in range(p):
             var_checks[names[j]] += view.variable_checks[j]
-        adjacency, cpdag, adjacency_source = _adjacency(X, names, policy, graph)
-        tasks = []
-        for i, j in pair_index:
-            conditioning, others_of_j, others_of_i = _conditioning_sets(i, j, adjacency, view.parents)
-            tasks.append([i, j, conditioning, others_of_j, others_of_i, bool(adjacency[i, j]), policy, None])
-        for k, ready in _shared_association(X, names, tasks, policy).items():
-            tasks[k][7] = ready
-        tasks = [tuple(task) for task in tasks]
-        noise_dep = _noise_dependence(view.noise, names, [ij for ij in pair_index if adjacency[ij]],
-                                      policy, progress)
-        batteries = _run_batteries(X, names, tasks, policy, progress)
     elif graph is not None:
         from preflight import graph as graphs
 

@@ -454,3 +454,19 @@ def test_median_bandwidth_equals_numpy_median_of_all_differences(kind):
             positive = diffs[diffs > 0]
             expected = float(np.median(positive)) if positive.size else 1.0
         assert _median_bandwidth(v, np.random.default_rng(0)) == (expected, fallback)
+
+
+def test_remembered_features_change_no_result():
+    # A pair's regressor enters several HSICs with the same seed; its features
+    # are then reused.  Results must equal a run with nothing remembered.
+    from preflight.checks import independence
+
+    rng = np.random.default_rng(44)
+    x = rng.uniform(size=3000)
+    others = [x + rng.uniform(size=3000), rng.uniform(size=3000), np.abs(x - 0.5) + 0.1 * rng.normal(size=3000)]
+    warm = [hsic_rff(x, other, seed=12) for other in others]
+    cold = []
+    for other in others:
+        independence._FEATURE_CACHE.clear()
+        cold.append(hsic_rff(x, other, seed=12))
+    assert [(r.statistic, r.p_value, r.effect) for r in warm] == [(r.statistic, r.p_value, r.effect) for r in cold]

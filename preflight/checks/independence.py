@@ -29,7 +29,9 @@ Conventions shared by every HSIC function here:
 
 from __future__ import annotations
 
+import hashlib
 import math
+from collections import OrderedDict
 from dataclasses import replace
 
 import numpy as np
@@ -319,7 +321,11 @@ def _fourier_features(v: np.ndarray, sigma: float, n_frequencies: int, rng: np.r
     order 1e-7, and cosines, sines and the products below run several
     times faster.  Sums that make the statistic are accumulated in double.
     """
-    omega = rng.standard_normal(n_frequencies) / sigma
+    return _features_from(v, rng.standard_normal(n_frequencies) / sigma)
+
+
+def _features_from(v: np.ndarray, omega: np.ndarray) -> np.ndarray:
+    n_frequencies = omega.shape[0]
     angles = np.multiply.outer(v.astype(np.float32), omega.astype(np.float32))
     features = np.empty((v.shape[0], 2 * n_frequencies), dtype=np.float32)
     np.cos(angles, out=features[:, :n_frequencies])
@@ -329,19 +335,47 @@ def _fourier_features(v: np.ndarray, sigma: float, n_frequencies: int, rng: np.r
     return features
 
 
+_FEATURE_CACHE: OrderedDict = OrderedDict()
+_FEATURE_CACHE_SIZE = 6
+
+
+def _features_and_covariance(v: np.ndarray, sigma: float, n_frequencies: int,
+                             rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_fourier_features` of v and their covariance, remembered for the last few (v, frequencies).
+
+    Within one pair the same seed draws the same frequencies for the
+    regressor in every HSIC it enters (association, residual, spline
+    residual), so its features are computed once.  The frequencies are
+    always drawn, so the generator's stream, and every result, is the same
+    with or without a hit.
+    """
+    omega = rng.standard_normal(n_frequencies) / sigma
+    key = (v.shape[0], hashlib.blake2b(v.tobytes(), digest_size=16).digest(), omega.tobytes())
+    hit = _FEATURE_CACHE.get(key)
+    if hit is not None:
+        _FEATURE_CACHE.move_to_end(key)
+        return hit
+    features = _features_from(v, omega)
+    covariance = (features.T @ features).astype(np.float64) / v.shape[0]
+    _FEATURE_CACHE[key] = (features, covariance)
+    while len(_FEATURE_CACHE) > _FEATURE_CACHE_SIZE:
+        _FEATURE_CACHE.popitem(last=False)
+    return features, covariance
+
+
 def _hsic_rff(xs: np.ndarray, ys: np.ndarray, n_features: int, rng: np.random.Generator) -> CheckResult:
     from scipy import stats
 
     n = xs.shape[0]
     sigma_x, fallback_x = _median_bandwidth(xs, rng)
     sigma_y, fallback_y = _median_bandwidth(ys, rng)
-    phi = _fourier_features(xs, sigma_x, n_features, rng)
-    psi = _fourier_features(ys, sigma_y, n_features, rng)
-    if phi.shape[1] <= n:
+    if 2 * n_features <= n:
+        phi, c_xx = _features_and_covariance(xs, sigma_x, n_features, rng)
+        psi, c_yy = _features_and_covariance(ys, sigma_y, n_features, rng)
         c_xy = (phi.T @ psi).astype(np.float64) / n
-        c_xx = (phi.T @ phi).astype(np.float64) / n
-        c_yy = (psi.T @ psi).astype(np.float64) / n
     else:
+        phi = _fourier_features(xs, sigma_x, n_features, rng)
+        psi = _fourier_features(ys, sigma_y, n_features, rng)
         # More features than rows: tr(A'B B'A) = tr(AA' BB') gives the same norms
         # and traces from the smaller n x n Gram matrices.
         c_xx = (phi @ phi.T).astype(np.float64) / n
