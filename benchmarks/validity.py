@@ -1171,21 +1171,19 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
         add(f"Replicates per point: {', '.join(map(str, replicates))}.")
         add("")
     if figures:
+        def relative(path):
+            try:
+                return path.resolve().relative_to(results_dir.resolve()).as_posix()
+            except ValueError:
+                return path.as_posix()
+
         add("Figures:")
         add("")
         for path in figures:
-            try:
-                rel = path.resolve().relative_to(results_dir.resolve())
-            except ValueError:
-                rel = path
-            add(f"- [{path.name}]({rel.as_posix()})")
+            add(f"- [{path.name}]({relative(path)})")
         add("")
         for path in figures:
-            try:
-                rel = path.resolve().relative_to(results_dir.resolve())
-            except ValueError:
-                rel = path
-            add(f"![{path.stem}]({rel.as_posix()})")
+            add(f"![{path.stem}]({relative(path)})")
             add("")
     timing = meta.get("timing")
     if timing:

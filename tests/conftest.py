@@ -67,3 +67,23 @@ def valid_report():
 def load_json(path) -> dict:
     with open(path) as handle:
         return json.load(handle)
+
+
+def judged_pair(x, y):
+    """The findings of one pair (x, y) after the battery and the multiplicity correction, default policy."""
+    from preflight.battery import judge_pair, run_pair_battery
+    from preflight.evidence import adjust_families
+    from preflight.policy import Policy
+
+    policy = Policy()
+    battery = run_pair_battery(x, y, "x", "y", None, (), True, policy)
+    checks = adjust_families([list(battery.checks)], policy.correction)[0]
+    return judge_pair(battery, checks, policy)
+
+
+def pool_map(func, tasks):
+    """Seeded replicates in two worker processes (the CI machine has two cores)."""
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=2) as pool:
+        return list(pool.map(func, tasks))

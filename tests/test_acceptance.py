@@ -7,21 +7,17 @@ the number of replicates run here (fewer than the validity study in
 benchmarks/validity.py, to keep the suite within its time budget).
 """
 
-from concurrent.futures import ProcessPoolExecutor
-
 import numpy as np
 import pandas as pd
 import pytest
 
 from preflight.scenarios import simulate
 
+from conftest import judged_pair, pool_map
+
 
 def _pair_finding(args):
     family, seed = args
-    from preflight.battery import judge_pair, run_pair_battery
-    from preflight.evidence import adjust_families
-    from preflight.policy import Policy
-
     rng = np.random.default_rng(seed)
     n = 1000
     draw = {
@@ -31,19 +27,12 @@ def _pair_finding(args):
     }[family]
     x = draw()
     y = 0.8 * x + 0.6 * draw()
-    policy = Policy()
-    battery = run_pair_battery(x, y, "x", "y", None, (), True, policy)
-    checks = adjust_families([list(battery.checks)], policy.correction)[0]
-    finding = judge_pair(battery, checks, policy)
+    finding = judged_pair(x, y)
     return finding.orientation, finding.flags
 
 
 def _mechanism_finding(args):
     kind, seed = args
-    from preflight.battery import judge_pair, run_pair_battery
-    from preflight.evidence import adjust_families
-    from preflight.policy import Policy
-
     rng = np.random.default_rng(seed)
     n = 1000
     x = rng.uniform(-np.sqrt(3), np.sqrt(3), n)
@@ -51,15 +40,10 @@ def _mechanism_finding(args):
         y = np.tanh(2 * x) + 0.3 * rng.normal(size=n)
     else:
         y = 0.8 * x + np.abs(x) * rng.normal(size=n)
-    policy = Policy()
-    battery = run_pair_battery(x, y, "x", "y", None, (), True, policy)
-    checks = adjust_families([list(battery.checks)], policy.correction)[0]
-    return judge_pair(battery, checks, policy).flags
+    return judged_pair(x, y).flags
 
 
-def _pool_map(func, tasks):
-    with ProcessPoolExecutor(max_workers=2) as pool:
-        return list(pool.map(func, tasks))
+_pool_map = pool_map
 
 
 @pytest.mark.parametrize("family", ["uniform", "laplace"])

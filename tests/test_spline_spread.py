@@ -5,8 +5,6 @@ on the same residual; seeded simulation (false alarms within the binomial
 99 % interval of alpha; power under a changing spread).
 """
 
-from concurrent.futures import ProcessPoolExecutor
-
 import numpy as np
 import pytest
 from scipy import stats
@@ -15,6 +13,8 @@ from preflight.battery import SPLINE_RESIDUAL, _spline_variance_checks
 from preflight.checks.linearity import full_rank_columns
 from preflight.fit import bspline_basis, ols, spline_df
 from preflight.policy import Policy
+
+from conftest import judged_pair, pool_map
 
 
 def _tanh_pair(seed: int, spread: str):
@@ -27,19 +27,10 @@ def _tanh_pair(seed: int, spread: str):
 
 def _flags(args):
     seed, spread = args
-    from preflight.battery import judge_pair, run_pair_battery
-    from preflight.evidence import adjust_families
-
-    x, y = _tanh_pair(seed, spread)
-    policy = Policy()
-    battery = run_pair_battery(x, y, "x", "y", None, (), True, policy)
-    checks = adjust_families([list(battery.checks)], policy.correction)[0]
-    return judge_pair(battery, checks, policy).flags
+    return judged_pair(*_tanh_pair(seed, spread)).flags
 
 
-def _pool_map(func, tasks):
-    with ProcessPoolExecutor(max_workers=2) as pool:
-        return list(pool.map(func, tasks))
+_pool_map = pool_map
 
 
 def test_spline_residual_checks_match_statsmodels():
