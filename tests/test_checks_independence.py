@@ -470,3 +470,22 @@ def test_remembered_features_change_no_result():
         independence._FEATURE_CACHE.clear()
         cold.append(hsic_rff(x, other, seed=12))
     assert [(r.statistic, r.p_value, r.effect) for r in warm] == [(r.statistic, r.p_value, r.effect) for r in cold]
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "known shortfall: HSIC of a regressor against its own OLS residual ignores that the slope was "
+    "estimated from the same rows (Sen and Sen 2014, Biometrika 101); with skewed variables this "
+    "seeded run rejects 28 of 300 true nulls (9.3 %) against the 99 % interval 7-24, while the same "
+    "test on the true noise rejects at the nominal rate; a residual bootstrap or a null corrected for "
+    "the estimated slope is the fix"))
+def test_hsic_of_regressor_and_ols_residual_is_calibrated_under_the_null():
+    replicates, n = 300, 2500
+    rejections = 0
+    for k in range(replicates):
+        rng = np.random.default_rng(k)
+        x = rng.exponential(size=n) + rng.exponential(size=n)
+        y = 0.7 * x + rng.exponential(size=n) - 1.0
+        slope = np.cov(x, y)[0, 1] / np.var(x, ddof=1)
+        rejections += hsic(x, y - slope * x, seed=k).p_value < ALPHA
+    low, high = _binomial_99(replicates)
+    assert low <= rejections <= high, rejections
