@@ -33,21 +33,31 @@ class StructuralView:
     gaussian_noises: tuple[str, ...]
 
 
+def _many_pair_hsic(X: np.ndarray, names, pairs, label: str, policy: Policy, pair_seeds) -> list[CheckResult]:
+    """HSIC of many column pairs at once (:func:`preflight.checks.independence.hsic_pairs`) under the policy.
+
+    Row subsample and random features are seeded by ``label`` and the column
+    names, never by positions, so reordering columns changes nothing.
+    """
+    from preflight.checks.independence import hsic_pairs
+
+    return hsic_pairs(
+        X, pairs, pair_seeds, exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
+        n_features=policy.hsic_features, permutations=policy.hsic_permutations,
+        seed=derived_seed(policy.seed, f"{label} rows"),
+        column_seeds=[derived_seed(policy.seed, f"{label} features", name) for name in names])
+
+
 def _noise_dependence(noise: np.ndarray, names, pairs, policy: Policy, progress: Progress) -> dict:
     """HSIC between the noise estimates of every adjacent pair.
 
     Seeds follow the column names, not positions, so reordering the columns
     draws the same subsamples and features.
     """
-    from preflight.checks.independence import hsic_pairs
-
     if not pairs:
         return {}
-    results = hsic_pairs(
-        noise, pairs, [derived_seed(policy.seed, "noise dependence", names[i], names[j]) for i, j in pairs],
-        exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n, n_features=policy.hsic_features,
-        permutations=policy.hsic_permutations, seed=derived_seed(policy.seed, "noise dependence rows"),
-        column_seeds=[derived_seed(policy.seed, "noise dependence features", name) for name in names])
+    results = _many_pair_hsic(noise, names, pairs, "noise dependence", policy,
+                              [derived_seed(policy.seed, "noise dependence", names[i], names[j]) for i, j in pairs])
     progress("noise dependence", len(pairs), len(pairs))
     return {(i, j): Tagged("noise dependence", "pair",
                            result.with_name(f"noise dependence (hsic) ({names[i]}, {names[j]})"))
@@ -169,34 +179,26 @@ def _conditioning_sets(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[
     return conditioning, others_of_j, others_of_i
 
 
-def _shared_association(X: np.ndarray, names, tasks, policy: Policy) -> dict[int, tuple]:
-    """Association checks of every unconditioned pair at once, by task index.
+def _shared_association(X: np.ndarray, names, pairs, policy: Policy) -> dict[tuple[int, int], tuple]:
+    """Association checks of the given pairs (unconditioned) at once: (i, j) -> (pearson, spearman, hsic).
 
     Pearson and Spearman come from two correlation matrices
     (:func:`preflight.checks.association.pairwise_associations`).  HSIC is
     shared too when it runs on random features: each column's features are
-    then drawn once instead of once per pair
-    (:func:`preflight.checks.independence.hsic_pairs`), seeded by column
-    name so that reordering columns changes nothing; exact HSIC (small n)
-    gains nothing from sharing and stays in the parallel pair battery.
+    then drawn once instead of once per pair; exact HSIC (small n) gains
+    nothing from sharing and stays in the parallel pair battery (None here).
     """
     from preflight.checks.association import pairwise_associations
-    from preflight.checks.independence import hsic_pairs
 
-    chosen = [k for k, task in enumerate(tasks) if not task[2]]
-    if not chosen:
+    if not pairs:
         return {}
-    pairs = [(tasks[k][0], tasks[k][1]) for k in chosen]
     linear = pairwise_associations(X, pairs)
     if min(X.shape[0], policy.hsic_max_n) <= policy.hsic_exact_max_n:
         kernel = [None] * len(pairs)
     else:
-        kernel = hsic_pairs(
-            X, pairs, [derived_seed(policy.seed, names[i], names[j]) for i, j in pairs],
-            exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n, n_features=policy.hsic_features,
-            permutations=policy.hsic_permutations, seed=derived_seed(policy.seed, "association rows"),
-            column_seeds=[derived_seed(policy.seed, "association features", name) for name in names])
-    return {k: (pearson, spearman, hsic) for k, (pearson, spearman), hsic in zip(chosen, linear, kernel)}
+        kernel = _many_pair_hsic(X, names, pairs, "association", policy,
+                                 [derived_seed(policy.seed, names[i], names[j]) for i, j in pairs])
+    return {pair: (pearson, spearman, hsic) for pair, (pearson, spearman), hsic in zip(pairs, linear, kernel)}
 
 
 def _battery_task(args):
@@ -290,13 +292,9 @@ def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progre
     whole = pool.submit(_whole_table_task, policy) if pool is not None else None
     view = _structural_view(X, names, policy, progress)
     adjacency, cpdag, adjacency_source = _adjacency(X, names, policy, graph)
-    tasks = []
-    for i, j in pair_index:
-        conditioning, others_of_j, others_of_i = _conditioning_sets(i, j, adjacency, view.parents)
-        tasks.append([i, j, conditioning, others_of_j, others_of_i, bool(adjacency[i, j]), policy, None])
-    for k, ready in _shared_association(X, names, tasks, policy).items():
-        tasks[k][7] = ready
-    tasks = [tuple(task) for task in tasks]
+    sets = {(i, j): _conditioning_sets(i, j, adjacency, view.parents) for i, j in pair_index}
+    ready = _shared_association(X, names, [pair for pair in pair_index if not sets[pair][0]], policy)
+    tasks = [(i, j, *sets[(i, j)], bool(adjacency[i, j]), policy, ready.get((i, j))) for i, j in pair_index]
     noise_dep = _noise_dependence(view.noise, names, [ij for ij in pair_index if adjacency[ij]], policy, progress)
     batteries = _run_batteries(X, names, tasks, policy, progress, pool)
     whole_result = whole.result() if whole is not None else _whole_table_screens(X, policy)

@@ -363,9 +363,25 @@ def _features_and_covariance(v: np.ndarray, sigma: float, n_frequencies: int,
     return features, covariance
 
 
-def _hsic_rff(xs: np.ndarray, ys: np.ndarray, n_features: int, rng: np.random.Generator) -> CheckResult:
+def _rff_gamma_p_value(statistic: float, n: int, trace_xx: float, trace_yy: float,
+                       norm_xx: float, norm_yy: float) -> tuple[float | None, str]:
+    """p-value of n ||C_xy||_F^2 and a note, from the traces and squared norms of C_xx and C_yy.
+
+    Under H0, sqrt(n) vec(C_xy) -> N(0, C_xx kron C_yy), so n ||C_xy||^2 tends to
+    sum_ij lambda_i eta_j chi2_1 over the eigenvalues of C_xx and C_yy.  The
+    gamma matches that mixture's mean (with the exact permutation factor
+    n/(n-1)) and its variance 2 ||C_xx||_F^2 ||C_yy||_F^2.
+    """
     from scipy import stats
 
+    null_mean = n / (n - 1) * trace_xx * trace_yy
+    null_var = 2.0 * norm_xx * norm_yy
+    if null_mean <= 0 or null_var <= 0:
+        return None, "; degenerate null moments, no p-value"
+    return float(stats.gamma.sf(statistic, null_mean**2 / null_var, scale=null_var / null_mean)), ""
+
+
+def _hsic_rff(xs: np.ndarray, ys: np.ndarray, n_features: int, rng: np.random.Generator) -> CheckResult:
     n = xs.shape[0]
     sigma_x, fallback_x = _median_bandwidth(xs, rng)
     sigma_y, fallback_y = _median_bandwidth(ys, rng)
@@ -386,18 +402,8 @@ def _hsic_rff(xs: np.ndarray, ys: np.ndarray, n_features: int, rng: np.random.Ge
     cross = float(np.einsum("ij,ij->", c_xx, c_yy)) if c_xy is None else float(np.einsum("ij,ij->", c_xy, c_xy))
     statistic = n * cross
     effect = _normalised(cross, norm_xx, norm_yy)
-    # Under H0, sqrt(n) vec(C_xy) -> N(0, C_xx kron C_yy), so n ||C_xy||^2 tends to
-    # sum_ij lambda_i eta_j chi2_1 over the eigenvalues of C_xx and C_yy.  The
-    # gamma below matches that mixture's mean (with the exact permutation factor
-    # n/(n-1)) and its variance 2 ||C_xx||_F^2 ||C_yy||_F^2.
-    null_mean = n / (n - 1) * float(np.trace(c_xx)) * float(np.trace(c_yy))
-    null_var = 2.0 * norm_xx * norm_yy
-    if null_mean <= 0 or null_var <= 0:
-        p_value = None
-        null_note = "; degenerate null moments, no p-value"
-    else:
-        p_value = float(stats.gamma.sf(statistic, null_mean**2 / null_var, scale=null_var / null_mean))
-        null_note = ""
+    p_value, null_note = _rff_gamma_p_value(statistic, n, float(np.trace(c_xx)), float(np.trace(c_yy)),
+                                            norm_xx, norm_yy)
     return CheckResult(
         name="hsic random fourier features", statistic=statistic, p_value=p_value,
         effect=effect, effect_name=_NORMALISED_HSIC, n=n,
@@ -540,8 +546,6 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
         phi = _fourier_features(column, sigma, n_features, rng)
         c_self = (phi.T @ phi).astype(np.float64) / m
         features[c] = (phi, float(np.trace(c_self)), float(np.einsum("ij,ij->", c_self, c_self)), fallback)
-    from scipy import stats
-
     out = []
     for a, b in pairs:
         if features[a] is None or features[b] is None:
@@ -552,13 +556,7 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
         psi, trace_y, norm_yy, fallback_y = features[b]
         c_xy = (phi.T @ psi).astype(np.float64) / m
         cross = float(np.einsum("ij,ij->", c_xy, c_xy))
-        null_mean = m / (m - 1) * trace_x * trace_y
-        null_var = 2.0 * norm_xx * norm_yy
-        if null_mean <= 0 or null_var <= 0:
-            p_value, null_note = None, "; degenerate null moments, no p-value"
-        else:
-            p_value = float(stats.gamma.sf(m * cross, null_mean**2 / null_var, scale=null_var / null_mean))
-            null_note = ""
+        p_value, null_note = _rff_gamma_p_value(m * cross, m, trace_x, trace_y, norm_xx, norm_yy)
         out.append(CheckResult(
             name="hsic", statistic=m * cross, p_value=p_value, effect=_normalised(cross, norm_xx, norm_yy),
             effect_name=_NORMALISED_HSIC, n=m,
