@@ -653,6 +653,18 @@ def _shared_latent(rng, n):
     return rng.uniform(-np.sqrt(3), np.sqrt(3), n) + 0.5 * z, rng.uniform(-np.sqrt(3), np.sqrt(3), n) + 0.5 * z
 
 
+def _fitted_skewed(rng, n):
+    """x = sum of two exponentials, y = 0.7 x + e with e exponential: x and the OLS residual of y on x."""
+    x = rng.exponential(size=n) + rng.exponential(size=n)
+    return x, _ols_residual(x, 0.7 * x + rng.exponential(size=n))
+
+
+def _fitted_uniform(rng, n):
+    """x and e uniform, y = 0.8 x + 0.6 e: x and the OLS residual of y on x."""
+    x = rng.uniform(-1, 1, n)
+    return x, _ols_residual(x, 0.8 * x + 0.6 * rng.uniform(-1, 1, n))
+
+
 def _p(result) -> float | None:
     return None if result.p_value is None else float(result.p_value)
 
@@ -696,6 +708,17 @@ def test_cases() -> list[TestCase]:
         TestCase("HSIC random Fourier features", "independence",
                  lambda d, s: _p(independence.hsic_rff(*d, seed=s)), _independent_pair, independent,
                  (1000, 5000), _reverse_residual, reverse, (200, 500, 1000, 2000, 5000)),
+        TestCase("HSIC of a regressor and its OLS residual, null corrected for the fit (skewed)", "independence",
+                 lambda d, s: _p(independence.hsic(*d, residual_design=d[0], seed=s)), _fitted_skewed,
+                 "x and e skewed (exponential)", (200, 1000, 5000), _reverse_residual, reverse,
+                 (100, 200, 500, 1000, 5000)),
+        TestCase("HSIC of a regressor and its OLS residual, null corrected for the fit (uniform)", "independence",
+                 lambda d, s: _p(independence.hsic(*d, residual_design=d[0], seed=s)), _fitted_uniform,
+                 "x and e uniform", (200, 1000, 5000), _reverse_residual, reverse, (100, 200, 500, 1000, 5000)),
+        TestCase("HSIC of a regressor and its OLS residual, plain null (contrast)", "independence",
+                 lambda d, s: _p(independence.hsic(*d, seed=s)), _fitted_skewed,
+                 "x and e skewed (exponential)", (200, 1000, 5000), _reverse_residual, reverse,
+                 (100, 200, 500, 1000, 5000)),
         TestCase("distance correlation t-test", "independence",
                  lambda d, s: _p(independence.distance_correlation(*d, seed=s)), _independent_pair, independent,
                  (200, 1000), _reverse_residual, reverse, (50, 100, 200, 500, 1000)),
