@@ -341,9 +341,9 @@ def prune_parents(X, order: Sequence[int], alpha: float = 0.05, correction: str 
 
 
 def _two_sided_t(t: np.ndarray, df: int) -> np.ndarray:
-    from scipy import stats
+    from preflight.checks._distributions import t_sf
 
-    return 2.0 * stats.t.sf(np.abs(t), df)
+    return 2.0 * t_sf(np.abs(t), df)
 
 
 def _nested_t_tests(X: np.ndarray, active: list[int]):

@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from preflight.checks._distributions import norm_sf, t_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
 from preflight.results import CheckResult
@@ -70,8 +71,6 @@ def pearson_fisher_z(x, y, n_conditioning: int = 0) -> CheckResult:
 
 
 def _pearson_result(r: float, n: int, k: int) -> CheckResult:
-    from scipy import stats
-
     name = "pearson fisher z"
     scale = math.sqrt(n - 3 - k)
     if abs(r) >= 1.0:
@@ -79,7 +78,7 @@ def _pearson_result(r: float, n: int, k: int) -> CheckResult:
         p_value = 0.0
     else:
         z = math.atanh(r) * scale
-        p_value = float(2.0 * stats.norm.sf(abs(z)))
+        p_value = float(2.0 * norm_sf(abs(z)))
     conditioning = f", {k} conditioning variables" if k else ""
     return CheckResult(
         name=name, statistic=z, p_value=p_value, effect=r, effect_name="Pearson r", n=n,
@@ -109,15 +108,13 @@ def spearman(x, y) -> CheckResult:
 
 
 def _spearman_result(rho: float, n: int) -> CheckResult:
-    from scipy import stats
-
     name = "spearman"
     dof = n - 2
     if abs(rho) >= 1.0:
         p_value = 0.0
     else:
         t = rho * math.sqrt(dof / ((1.0 - rho) * (1.0 + rho)))
-        p_value = float(2.0 * stats.t.sf(abs(t), dof))
+        p_value = float(2.0 * t_sf(abs(t), dof))
     return CheckResult(
         name=name, statistic=rho, p_value=p_value, effect=rho, effect_name="Spearman rho", n=n,
         note=f"mid-ranks for ties, t-approximation with {dof} degrees of freedom, two-sided",

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from preflight.checks._distributions import f_sf, t_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
 from preflight.fit import bspline_basis, ols, spline_df
@@ -65,8 +66,6 @@ def _nested_f(
     rss_small: float, rank_small: int, rss_large: float, rank_large: int, n: int
 ) -> tuple[float, float | None, int, int]:
     """F statistic and p-value of a nested least-squares comparison."""
-    from scipy import stats
-
     df_num = rank_large - rank_small
     df_den = n - rank_large
     if df_num <= 0 or df_den <= 0:
@@ -77,7 +76,7 @@ def _nested_f(
     # Round-off can make the larger model's RSS exceed the smaller one's by an ulp.
     gain = max(rss_small - rss_large, 0.0)
     f_stat = (gain / df_num) / (rss_large / df_den)
-    return f_stat, float(stats.f.sf(f_stat, df_num, df_den)), df_num, df_den
+    return f_stat, float(f_sf(f_stat, df_num, df_den)), df_num, df_den
 
 
 def ramsey_reset(x, y, powers: tuple[int, ...] = (2, 3)) -> CheckResult:
@@ -258,8 +257,6 @@ def harvey_collier(x, y) -> CheckResult:
     whatever the number of regressors, so with [1, x] it leaves out one
     residual more than this function does.
     """
-    from scipy import stats
-
     xv, yv = _pair(x, y, min_n=5)
     order = np.argsort(xv, kind="stable")
     residuals = recursive_residuals(xv[order], yv[order])
@@ -272,7 +269,7 @@ def harvey_collier(x, y) -> CheckResult:
     mean = float(residuals.mean())
     sd = float(residuals.std(ddof=1))
     t_stat = mean / sd * math.sqrt(m)
-    p_value = float(2.0 * stats.t.sf(abs(t_stat), m - 1))
+    p_value = float(2.0 * t_sf(abs(t_stat), m - 1))
     note = f"sorted by x; t on {m - 1} df from {m} recursive residuals"
     return CheckResult(name=HARVEY_COLLIER, statistic=t_stat, p_value=p_value, effect=mean / sd,
                        effect_name="standardised mean recursive residual", n=n, note=note)

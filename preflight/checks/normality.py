@@ -20,6 +20,7 @@ from typing import Sequence
 
 import numpy as np
 
+from preflight.checks._distributions import chi2_sf
 from preflight.checks._validate import as_vector
 from preflight.errors import InputError
 from preflight.results import CheckResult
@@ -205,13 +206,11 @@ def jarque_bera(x) -> CheckResult:
     the asymptotic chi-squared(2) p-value, which is conservative in small
     samples.  Reference: Jarque & Bera (1980).  Effect: sample skewness g1.
     """
-    from scipy import stats
-
     values = _vector(x)
     n = values.shape[0]
     skewness, excess_kurtosis = _skew_and_excess_kurtosis(values)
     statistic = n / 6.0 * (skewness**2 + 0.25 * excess_kurtosis**2)
-    return CheckResult(name=JARQUE_BERA, statistic=statistic, p_value=float(stats.chi2.sf(statistic, 2)),
+    return CheckResult(name=JARQUE_BERA, statistic=statistic, p_value=float(chi2_sf(statistic, 2)),
                        effect=skewness, effect_name=SKEWNESS, n=n, note="asymptotic chi-squared(2) p-value")
 
 
@@ -252,8 +251,6 @@ def dagostino_pearson(x) -> CheckResult:
     Effect: sample excess kurtosis g2.  Below 20 values the p-value is None
     (the kurtosis approximation is unreliable there) and the statistic NaN.
     """
-    from scipy import stats
-
     values = _vector(x)
     n = values.shape[0]
     skewness, excess_kurtosis = _skew_and_excess_kurtosis(values)
@@ -263,7 +260,7 @@ def dagostino_pearson(x) -> CheckResult:
                            note=(f"fewer than {_DAGOSTINO_MIN_N} values: the kurtosis approximation is "
                                  "unreliable, no test"))
     statistic = _skewness_z(skewness, n) ** 2 + _kurtosis_z(excess_kurtosis, n) ** 2
-    return CheckResult(name=DAGOSTINO_PEARSON, statistic=statistic, p_value=float(stats.chi2.sf(statistic, 2)),
+    return CheckResult(name=DAGOSTINO_PEARSON, statistic=statistic, p_value=float(chi2_sf(statistic, 2)),
                        effect=excess_kurtosis, effect_name=EXCESS_KURTOSIS, n=n,
                        note="chi-squared(2) p-value of Z(skewness)^2 + Z(kurtosis)^2")
 
