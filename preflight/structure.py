@@ -18,6 +18,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Iterable, Sequence
@@ -777,8 +778,6 @@ def rows_needed(skewness: float, excess_kurtosis: float, alpha: float = 0.05, po
     The approximation ignores that the moments' variance also changes under
     the alternative, so treat it as an order of magnitude.
     """
-    from scipy import optimize, stats
-
     for label, value in (("skewness", skewness), ("excess_kurtosis", excess_kurtosis)):
         if value is None or not math.isfinite(float(value)):
             raise InputError(f"{label} must be a finite number, got {value!r}")
@@ -789,6 +788,20 @@ def rows_needed(skewness: float, excess_kurtosis: float, alpha: float = 0.05, po
     per_row = float(skewness) ** 2 / 6.0 + float(excess_kurtosis) ** 2 / 24.0
     if per_row == 0.0:
         return None
+    rows = math.ceil(_noncentrality_for_power(float(alpha), float(power)) / per_row)
+    return int(max(rows, 3))
+
+
+@functools.lru_cache(maxsize=16)
+def _noncentrality_for_power(alpha: float, power: float) -> float:
+    """The lambda at which chi-squared(2, lambda) exceeds its null alpha critical value with probability ``power``.
+
+    It depends on alpha and power only, and a report asks for it once per
+    variable with the same two, so the root search (some 16 noncentral
+    chi-squared evaluations) runs once per process.
+    """
+    from scipy import optimize, stats
+
     critical = stats.chi2.isf(alpha, 2)
 
     def shortfall(lam: float) -> float:
@@ -797,9 +810,7 @@ def rows_needed(skewness: float, excess_kurtosis: float, alpha: float = 0.05, po
     upper = 1.0
     while shortfall(upper) < 0:
         upper *= 2.0
-    lam = optimize.brentq(shortfall, 0.0, upper, xtol=1e-10)
-    rows = math.ceil(lam / per_row)
-    return int(max(rows, 3))
+    return optimize.brentq(shortfall, 0.0, upper, xtol=1e-10)
 
 
 # ------------------------------------------------------------------ sortability
