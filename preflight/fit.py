@@ -6,6 +6,9 @@ checks compare it with statsmodels OLS and the NIST StRD certified values.
 
 from __future__ import annotations
 
+import hashlib
+import math
+from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
@@ -155,13 +158,43 @@ def spline_df(n: int, max_df: int = 10) -> int:
     return int(min(max(round(n**0.2) + 2, 4), max_df))
 
 
+_BASIS_CACHE: OrderedDict = OrderedDict()
+_BASIS_CACHE_ENTRIES = 16
+_BASIS_CACHE_BYTES = 64 * 2**20
+
+
 def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     """Cubic B-spline basis with ``df`` columns and interior knots at quantiles of x.
 
     The columns sum to one, so the basis spans the constant; callers fitting
     with an intercept drop the first column.
+
+    The result is read-only: the bases of the last few regressors are
+    remembered and handed out again, because one pair's battery builds the
+    same basis for the spline F-test and for the spread of the spline
+    residual, and a variable is the regressor of every pair it belongs to.
+    Copy it before writing to it.
     """
     x = np.asarray(x, dtype=np.float64)
+    raw = x.tobytes()
+    key = (x.shape, int(df), int(degree), hashlib.blake2b(raw, digest_size=16).digest())
+    hit = _BASIS_CACHE.get(key)
+    if hit is not None and hit[0] == raw:
+        _BASIS_CACHE.move_to_end(key)
+        return hit[1]
+    basis = _bspline_basis(x, df, degree)
+    basis.flags.writeable = False
+    # Handing out a view of the read-only array keeps callers from making
+    # the remembered one writeable again.
+    basis = basis.view()
+    if basis.nbytes <= _BASIS_CACHE_BYTES // _BASIS_CACHE_ENTRIES:
+        _BASIS_CACHE[key] = (raw, basis)
+        while len(_BASIS_CACHE) > _BASIS_CACHE_ENTRIES:
+            _BASIS_CACHE.popitem(last=False)
+    return basis
+
+
+def _bspline_basis(x: np.ndarray, df: int, degree: int) -> np.ndarray:
     n_interior = df - degree - 1
     if n_interior < 0:
         raise ValueError("df must be at least degree + 1")
@@ -174,5 +207,10 @@ def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     else:
         interior = np.array([])
     knots = np.concatenate([[lo] * (degree + 1), interior, [hi] * (degree + 1)])
-    basis = BSpline.design_matrix(np.clip(x, lo, hi), knots, degree, extrapolate=False)
+    # With finite ends every clipped x lies within the knots, where SciPy's
+    # interval search is the same with or without extrapolation; only
+    # without it does design_matrix first scan x with Python's min and max,
+    # which took half its time.  Non-finite values keep the checked path.
+    in_knots = math.isfinite(lo) and math.isfinite(hi)
+    basis = BSpline.design_matrix(np.clip(x, lo, hi), knots, degree, extrapolate=in_knots)
     return basis.toarray()
