@@ -15,7 +15,7 @@ import numpy as np
 from preflight.checks._distributions import f_sf, t_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
-from preflight.fit import bspline_basis, ols, spline_df
+from preflight.fit import LinearFit, bspline_basis, ols, spline_df
 from preflight.results import CheckResult
 
 RAMSEY_RESET = "ramsey reset"
@@ -93,12 +93,21 @@ def ramsey_reset(x, y, powers: tuple[int, ...] = (2, 3)) -> CheckResult:
     powers (2, ..., p) the span is that of s^2, ..., s^p, which are used.  Reference:
     Ramsey (1969).  Effect: the gain in R-squared.
     """
+    powers = _reset_powers(powers)
+    xv, yv = _pair(x, y, min_n=len(powers) + 3)
+    return _ramsey_reset(xv, yv, powers, ols(xv, yv))
+
+
+def _reset_powers(powers) -> tuple[int, ...]:
     powers = tuple(int(p) for p in powers)
     if not powers or len(set(powers)) != len(powers) or min(powers) < 2:
         raise InputError(f"powers must be distinct whole numbers of at least 2, got {powers}")
-    xv, yv = _pair(x, y, min_n=len(powers) + 3)
+    return powers
+
+
+def _ramsey_reset(xv: np.ndarray, yv: np.ndarray, powers: tuple[int, ...], linear: LinearFit) -> CheckResult:
+    """:func:`ramsey_reset` on validated input, given the straight-line fit ``linear = ols(xv, yv)``."""
     n = xv.shape[0]
-    linear = ols(xv, yv)
     fitted = yv - linear.residuals
     spread = fitted.std()
     if spread <= 1e-12 * yv.std():
@@ -160,13 +169,20 @@ def spline_comparison(x, y, df: int | None = None, max_df: int = 10) -> SplineCo
     so the straight line is nested in it.
     """
     xv, yv = _pair(x, y, min_n=6)
+    return _spline_comparison(xv, yv, df, max_df, None)
+
+
+def _spline_comparison(xv: np.ndarray, yv: np.ndarray, df: int | None, max_df: int,
+                       linear: LinearFit | None) -> SplineComparison:
+    """:func:`spline_comparison` on validated input; ``linear`` is ``ols(xv, yv)`` when already at hand."""
     n = xv.shape[0]
     chosen = spline_df(n, max_df) if df is None else int(df)
     if chosen < 4:
         raise InputError(f"spline df must be at least 4 (a cubic), got {chosen}")
     if n < chosen + 2:
         raise InputError(f"the spline F-test with df={chosen} needs at least {chosen + 2} observations, got {n}")
-    linear = ols(xv, yv)
+    if linear is None:
+        linear = ols(xv, yv)
     basis = bspline_basis(xv, chosen)
     usable = bool(np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8))
     if not usable:
@@ -191,7 +207,10 @@ def spline_f_test(x, y, df: int | None = None, max_df: int = 10) -> CheckResult:
     (1978).  Effect: gain in R-squared.  The note records df and the change
     in BIC (spline minus linear; negative favours the spline).
     """
-    comparison = spline_comparison(x, y, df=df, max_df=max_df)
+    return _spline_f_result(spline_comparison(x, y, df=df, max_df=max_df))
+
+
+def _spline_f_result(comparison: SplineComparison) -> CheckResult:
     if not comparison.usable:
         return CheckResult(name=SPLINE_F_TEST, statistic=math.nan, p_value=None, effect=0.0, effect_name=_R2_GAIN,
                            n=comparison.n, note=f"df={comparison.df}; x is too tied for quantile knots, no test")
@@ -281,4 +300,12 @@ def linearity_checks(x, y, max_df: int = 10) -> tuple[CheckResult, ...]:
     Null hypothesis of both: E[y | x] is linear in x.  References: see the
     individual functions.
     """
-    return (ramsey_reset(x, y), spline_f_test(x, y, max_df=max_df))
+    # Both tests start from the same straight-line fit of y on x; it is
+    # computed once.  Validation runs as in the two functions, in their order,
+    # so the same input raises the same error.
+    powers = _reset_powers((2, 3))
+    xv, yv = _pair(x, y, min_n=len(powers) + 3)
+    linear = ols(xv, yv)
+    reset = _ramsey_reset(xv, yv, powers, linear)
+    xv, yv = _pair(xv, yv, min_n=6)
+    return (reset, _spline_f_result(_spline_comparison(xv, yv, None, max_df, linear)))
