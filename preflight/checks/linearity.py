@@ -56,7 +56,9 @@ def full_rank_columns(X: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
     candidates = np.flatnonzero(norms > tolerance * max(scale, np.finfo(float).tiny))
     if candidates.size == 0:
         return X[:, :0]
-    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="economic", pivoting=True)
+    # mode="raw" runs the same pivoted factorisation as "economic" and
+    # returns the same R and pivots, without forming the unused Q.
+    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="raw", pivoting=True)
     diagonal = np.abs(np.diag(r))
     kept = pivots[: int(np.sum(diagonal > tolerance * diagonal[0]))]
     return X[:, np.sort(candidates[kept])]
