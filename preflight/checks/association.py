@@ -35,6 +35,30 @@ def _correlation(xv: np.ndarray, yv: np.ndarray) -> float | None:
     return min(max(r, -1.0), 1.0)
 
 
+def _mid_ranks(values: np.ndarray) -> np.ndarray:
+    """Ranks 1..n of a finite 1-D array, ties sharing the mean of their positions.
+
+    The values of ``scipy.stats.rankdata(values)`` (method "average"): every
+    rank is an integer or half-integer, exact in float64, so any correct
+    computation gives the same bits; this one skips rankdata's generic
+    axis, NaN and array-namespace handling.
+    """
+    n = values.shape[0]
+    order = np.argsort(values, kind="stable")
+    ordered = values[order]
+    starts_group = np.empty(n, dtype=bool)
+    starts_group[:1] = True
+    np.not_equal(ordered[1:], ordered[:-1], out=starts_group[1:])
+    ranks = np.empty(n)
+    if starts_group.all():
+        ranks[order] = np.arange(1.0, n + 1.0)
+        return ranks
+    starts = np.flatnonzero(starts_group)
+    sizes = np.diff(starts, append=n)
+    ranks[order] = np.repeat(starts + 1 + (sizes - 1) / 2.0, sizes)
+    return ranks
+
+
 def _undefined(name: str, n: int, effect_name: str, xv: np.ndarray) -> CheckResult:
     which = "x" if _is_constant(xv, xv - xv.mean()) else "y"
     return CheckResult(name=name, statistic=math.nan, p_value=None, effect=None, effect_name=effect_name,
@@ -98,10 +122,8 @@ def spearman(x, y) -> CheckResult:
     Spearman rank correlation coefficient", JASA 67, for the t
     approximation.
     """
-    from scipy import stats
-
     xv, yv, n = _pair(x, y, min_n=3)
-    rho = _correlation(stats.rankdata(xv), stats.rankdata(yv))
+    rho = _correlation(_mid_ranks(xv), _mid_ranks(yv))
     if rho is None:
         return _undefined("spearman", n, "Spearman rho", xv)
     return _spearman_result(rho, n)
@@ -129,8 +151,6 @@ def pairwise_associations(X, pairs) -> list[tuple[CheckResult, CheckResult]]:
     O(n p^2 + p n log n) instead of O(#pairs n log n).  Values agree with the
     pair-by-pair functions to round-off (tests/test_checks_direction_association.py).
     """
-    from scipy import stats
-
     from preflight.checks._validate import as_matrix
 
     X = as_matrix(X, name="X", min_n=4)
@@ -148,7 +168,7 @@ def pairwise_associations(X, pairs) -> list[tuple[CheckResult, CheckResult]]:
     where = {c: k for k, c in enumerate(varying)}
     if varying:
         pearson = correlations(X[:, varying])
-        spearman_ = correlations(np.column_stack([stats.rankdata(X[:, c]) for c in varying]))
+        spearman_ = correlations(np.column_stack([_mid_ranks(X[:, c]) for c in varying]))
     out = []
     for a, b in pairs:
         if constant[a] or constant[b]:
