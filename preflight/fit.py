@@ -182,16 +182,47 @@ def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     if hit is not None and hit[0] == raw:
         _BASIS_CACHE.move_to_end(key)
         return hit[1]
-    basis = _bspline_basis(x, df, degree)
-    basis.flags.writeable = False
-    # Handing out a view of the read-only array keeps callers from making
-    # the remembered one writeable again.
-    basis = basis.view()
+    basis = _read_only(_bspline_basis(x, df, degree))
     if basis.nbytes <= _BASIS_CACHE_BYTES // _BASIS_CACHE_ENTRIES:
-        _BASIS_CACHE[key] = (raw, basis)
+        # (x's bytes, the basis, arrays derived from the basis alone)
+        _BASIS_CACHE[key] = (raw, basis, {})
         while len(_BASIS_CACHE) > _BASIS_CACHE_ENTRIES:
             _BASIS_CACHE.popitem(last=False)
     return basis
+
+
+def derived_from_basis(basis: np.ndarray, name: str, build) -> np.ndarray:
+    """``build()``, an array computed from ``basis`` alone, remembered with the basis while it is cached.
+
+    ``basis`` is an array returned by :func:`bspline_basis`.  It is looked
+    up by identity, which is sound: the cache holds the object, so no other
+    array can be it, and it is read-only, so its values cannot have changed.
+    A basis no longer (or never) cached gets ``build()`` computed afresh.
+    What is remembered is read-only.
+    """
+    for entry in reversed(_BASIS_CACHE.values()):
+        if entry[1] is basis:
+            derived = entry[2]
+            if name not in derived:
+                value = _read_only(build())
+                held = basis.nbytes + sum(a.nbytes for a in derived.values())
+                if held + value.nbytes > _BASIS_CACHE_BYTES // _BASIS_CACHE_ENTRIES:
+                    return value
+                derived[name] = value
+            return derived[name]
+    return build()
+
+
+def _read_only(array: np.ndarray) -> np.ndarray:
+    """A read-only view of an array that owns its data and that nothing else can write to."""
+    if array.base is not None:
+        # order="K" keeps the memory layout, on which the round-off of later
+        # reductions over the array depends.
+        array = array.copy(order="K")
+    array.flags.writeable = False
+    # A view of the read-only owner cannot be made writeable again, the
+    # owner itself could.
+    return array.view()
 
 
 def _bspline_basis(x: np.ndarray, df: int, degree: int) -> np.ndarray:

@@ -103,3 +103,47 @@ def test_cache_stays_bounded():
 def test_too_small_df_still_raises():
     with pytest.raises(ValueError, match="df must be at least"):
         fit.bspline_basis(np.arange(10.0), 3)
+
+
+def test_design_derived_from_a_cached_basis_is_the_fresh_one_bit_for_bit():
+    from preflight.checks.linearity import full_rank_columns
+
+    rng = np.random.default_rng(5)
+    fit._BASIS_CACHE.clear()
+    for x in (rng.normal(size=3000), np.round(rng.normal(size=3000), 1), rng.integers(0, 5, 800).astype(float)):
+        y = np.sin(x) + rng.normal(size=x.shape[0])
+        basis = fit.bspline_basis(x, 8)
+        fresh = full_rank_columns(basis[:, 1:])
+        calls = []
+
+        def build():
+            calls.append(1)
+            return full_rank_columns(basis[:, 1:])
+
+        derived = fit.derived_from_basis(basis, "design", build)
+        assert fit.derived_from_basis(fit.bspline_basis(x.copy(), 8), "design", build) is derived
+        assert len(calls) == 1
+        # Same values and the same memory layout, so least squares on it rounds the same way.
+        assert derived.strides == fresh.strides and np.array_equal(derived, fresh)
+        assert not derived.flags.writeable
+        with pytest.raises(ValueError):
+            derived.flags.writeable = True
+        expected, got = fit.ols(fresh, y), fit.ols(derived, y)
+        assert got.rss == expected.rss and got.rank == expected.rank
+        assert np.array_equal(got.residuals, expected.residuals) and np.array_equal(got.coef, expected.coef)
+
+
+def test_design_of_an_uncached_basis_is_built_each_time():
+    x = np.random.default_rng(6).normal(size=400)
+    basis = fit.bspline_basis(x, 6)
+    fit._BASIS_CACHE.clear()
+    calls = []
+
+    def build():
+        calls.append(1)
+        return basis[:, 1:] * 1.0
+
+    first = fit.derived_from_basis(basis, "design", build)
+    second = fit.derived_from_basis(basis, "design", build)
+    assert len(calls) == 2 and first is not second and first.flags.writeable
+    assert len(fit._BASIS_CACHE) == 0

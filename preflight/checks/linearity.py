@@ -15,7 +15,7 @@ import numpy as np
 from preflight.checks._distributions import f_sf, t_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
-from preflight.fit import LinearFit, bspline_basis, ols, spline_df
+from preflight.fit import LinearFit, bspline_basis, derived_from_basis, ols, spline_df
 from preflight.results import CheckResult
 
 RAMSEY_RESET = "ramsey reset"
@@ -191,7 +191,9 @@ def _spline_comparison(xv: np.ndarray, yv: np.ndarray, df: int | None, max_df: i
         return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=linear.rss, rank_linear=linear.rank,
                                 rank_spline=linear.rank, tss=linear.tss, f_statistic=math.nan, p_value=None,
                                 df_num=0, df_den=n - linear.rank, usable=False)
-    spline = ols(full_rank_columns(basis[:, 1:]), yv)
+    # Several pairs share a regressor, and so its basis and this design.
+    design = derived_from_basis(basis, "full-rank columns after the first", lambda: full_rank_columns(basis[:, 1:]))
+    spline = ols(design, yv)
     f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, spline.rss, spline.rank, n)
     return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=min(spline.rss, linear.rss),
                             rank_linear=linear.rank, rank_spline=spline.rank, tss=linear.tss, f_statistic=f_stat,
