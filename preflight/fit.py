@@ -6,6 +6,9 @@ checks compare it with statsmodels OLS and the NIST StRD certified values.
 
 from __future__ import annotations
 
+import hashlib
+import math
+from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
@@ -155,13 +158,74 @@ def spline_df(n: int, max_df: int = 10) -> int:
     return int(min(max(round(n**0.2) + 2, 4), max_df))
 
 
+_BASIS_CACHE: OrderedDict = OrderedDict()
+_BASIS_CACHE_ENTRIES = 16
+_BASIS_CACHE_BYTES = 64 * 2**20
+
+
 def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     """Cubic B-spline basis with ``df`` columns and interior knots at quantiles of x.
 
     The columns sum to one, so the basis spans the constant; callers fitting
     with an intercept drop the first column.
+
+    The result is read-only: the bases of the last few regressors are
+    remembered and handed out again, because one pair's battery builds the
+    same basis for the spline F-test and for the spread of the spline
+    residual, and a variable is the regressor of every pair it belongs to.
+    Copy it before writing to it.
     """
     x = np.asarray(x, dtype=np.float64)
+    raw = x.tobytes()
+    key = (x.shape, int(df), int(degree), hashlib.blake2b(raw, digest_size=16).digest())
+    hit = _BASIS_CACHE.get(key)
+    if hit is not None and hit[0] == raw:
+        _BASIS_CACHE.move_to_end(key)
+        return hit[1]
+    basis = _read_only(_bspline_basis(x, df, degree))
+    if basis.nbytes <= _BASIS_CACHE_BYTES // _BASIS_CACHE_ENTRIES:
+        # (x's bytes, the basis, arrays derived from the basis alone)
+        _BASIS_CACHE[key] = (raw, basis, {})
+        while len(_BASIS_CACHE) > _BASIS_CACHE_ENTRIES:
+            _BASIS_CACHE.popitem(last=False)
+    return basis
+
+
+def derived_from_basis(basis: np.ndarray, name: str, build) -> np.ndarray:
+    """``build()``, an array computed from ``basis`` alone, remembered with the basis while it is cached.
+
+    ``basis`` is an array returned by :func:`bspline_basis`.  It is looked
+    up by identity, which is sound: the cache holds the object, so no other
+    array can be it, and it is read-only, so its values cannot have changed.
+    A basis no longer (or never) cached gets ``build()`` computed afresh.
+    What is remembered is read-only.
+    """
+    for entry in reversed(_BASIS_CACHE.values()):
+        if entry[1] is basis:
+            derived = entry[2]
+            if name not in derived:
+                value = _read_only(build())
+                held = basis.nbytes + sum(a.nbytes for a in derived.values())
+                if held + value.nbytes > _BASIS_CACHE_BYTES // _BASIS_CACHE_ENTRIES:
+                    return value
+                derived[name] = value
+            return derived[name]
+    return build()
+
+
+def _read_only(array: np.ndarray) -> np.ndarray:
+    """A read-only view of an array that owns its data and that nothing else can write to."""
+    if array.base is not None:
+        # order="K" keeps the memory layout, on which the round-off of later
+        # reductions over the array depends.
+        array = array.copy(order="K")
+    array.flags.writeable = False
+    # A view of the read-only owner cannot be made writeable again, the
+    # owner itself could.
+    return array.view()
+
+
+def _bspline_basis(x: np.ndarray, df: int, degree: int) -> np.ndarray:
     n_interior = df - degree - 1
     if n_interior < 0:
         raise ValueError("df must be at least degree + 1")
@@ -174,5 +238,10 @@ def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     else:
         interior = np.array([])
     knots = np.concatenate([[lo] * (degree + 1), interior, [hi] * (degree + 1)])
-    basis = BSpline.design_matrix(np.clip(x, lo, hi), knots, degree, extrapolate=False)
+    # With finite ends every clipped x lies within the knots, where SciPy's
+    # interval search is the same with or without extrapolation; only
+    # without it does design_matrix first scan x with Python's min and max,
+    # which took half its time.  Non-finite values keep the checked path.
+    in_knots = math.isfinite(lo) and math.isfinite(hi)
+    basis = BSpline.design_matrix(np.clip(x, lo, hi), knots, degree, extrapolate=in_knots)
     return basis.toarray()

@@ -10,7 +10,7 @@ them at ``None``.
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, replace
+from dataclasses import dataclass, replace
 from typing import Any
 
 
@@ -64,10 +64,17 @@ class CheckResult:
         return replace(self, name=name)
 
     def to_dict(self) -> dict[str, Any]:
-        out = asdict(self)
-        out["statistic"] = _finite_or_none(self.statistic)
-        out["p_value"] = _finite_or_none(self.p_value)
-        out["p_adjusted"] = _finite_or_none(self.p_adjusted)
-        out["effect"] = _finite_or_none(self.effect)
-        out["n"] = int(self.n)
-        return out
+        # Every field is a number, a string, a bool or None, so a flat dict in
+        # field order is what dataclasses.asdict builds, without its
+        # recursive deep copy (a report converts hundreds of results).
+        return {
+            "name": self.name,
+            "statistic": _finite_or_none(self.statistic),
+            "p_value": _finite_or_none(self.p_value),
+            "effect": _finite_or_none(self.effect),
+            "effect_name": self.effect_name,
+            "n": int(self.n),
+            "note": self.note,
+            "p_adjusted": _finite_or_none(self.p_adjusted),
+            "passed": self.passed,
+        }

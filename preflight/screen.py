@@ -173,7 +173,7 @@ def ljung_box_check(x: np.ndarray, lags: int) -> CheckResult | None:
     largest |r_k| over the lags.  Returns None when there are too few rows
     for one lag.
     """
-    from scipy import stats
+    from preflight.checks._distributions import chi2_sf
 
     n = int(x.shape[0])
     used_lags = min(int(lags), n - 2)
@@ -186,7 +186,7 @@ def ljung_box_check(x: np.ndarray, lags: int) -> CheckResult | None:
     if used_lags < lags:
         note += f" (fewer than the {int(lags)} asked for: only {n} rows)"
     return CheckResult(
-        name=f"ljung-box ({used_lags} lags)", statistic=statistic, p_value=float(stats.chi2.sf(statistic, used_lags)),
+        name=f"ljung-box ({used_lags} lags)", statistic=statistic, p_value=float(chi2_sf(statistic, used_lags)),
         effect=float(np.max(np.abs(r))), effect_name="max |autocorrelation|", n=n, note=note,
     )
 

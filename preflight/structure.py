@@ -18,6 +18,7 @@
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Iterable, Sequence
@@ -89,10 +90,24 @@ def _logcosh_negentropy_of_residuals(Z: np.ndarray, rho: np.ndarray, s: np.ndarr
     for start in range(0, k, block):
         rows = slice(start, min(start + block, k))
         # residuals[t, b, j] = (z_j - rho[i_b, j] z_{i_b}) / s[i_b, j]
-        residuals = (Z[:, None, :] - Z[:, rows, None] * rho[None, rows, :]) / s[None, rows, :]
+        residuals = Z[:, rows, None] * rho[None, rows, :]
+        np.subtract(Z[:, None, :], residuals, out=residuals)
+        residuals /= s[None, rows, :]
         magnitude = np.abs(residuals)
-        even = (magnitude + np.log1p(np.exp(-2.0 * magnitude))).mean(axis=0) - log2 - LOGCOSH_GAMMA
-        odd = (residuals * np.exp(-0.5 * residuals * residuals)).mean(axis=0)
+        # The two means below, E[|r| + log1p(exp(-2|r|))] and
+        # E[r exp(-r^2 / 2)], are formed in one reused buffer: the same
+        # operations in the same order as with temporaries (so the same
+        # bits), without allocating a fresh tensor for every step.
+        work = np.multiply(magnitude, -2.0)
+        np.exp(work, out=work)
+        np.log1p(work, out=work)
+        work += magnitude
+        even = work.mean(axis=0) - log2 - LOGCOSH_GAMMA
+        np.multiply(residuals, -0.5, out=work)
+        work *= residuals
+        np.exp(work, out=work)
+        work *= residuals
+        odd = work.mean(axis=0)
         J[rows] = LOGCOSH_K_EVEN * even * even + LOGCOSH_K_ODD * odd * odd
     return J
 
@@ -341,9 +356,9 @@ def prune_parents(X, order: Sequence[int], alpha: float = 0.05, correction: str 
 
 
 def _two_sided_t(t: np.ndarray, df: int) -> np.ndarray:
-    from scipy import stats
+    from preflight.checks._distributions import t_sf
 
-    return 2.0 * stats.t.sf(np.abs(t), df)
+    return 2.0 * t_sf(np.abs(t), df)
 
 
 def _nested_t_tests(X: np.ndarray, active: list[int]):
@@ -742,9 +757,17 @@ def henze_zirkler(X, seed: int = 0, max_n: int = HENZE_ZIRKLER_MAX_N) -> CheckRe
     pair_sum = 0.0
     for start in range(0, n, _HZ_BLOCK):
         block = whitened[start:start + _HZ_BLOCK]
-        d_jk = d_j[start:start + _HZ_BLOCK, None] + d_j[None, :] - 2.0 * (block @ whitened.T)
+        # d_jk = d_j + d_k - 2 <w_j, w_k>, then exp(-b^2 d_jk / 2), each step
+        # in place: the arithmetic of the plain expression without its four
+        # block-sized temporaries.
+        cross = block @ whitened.T
+        cross *= 2.0
+        d_jk = np.add(d_j[start:start + _HZ_BLOCK, None], d_j[None, :])
+        d_jk -= cross
         np.maximum(d_jk, 0.0, out=d_jk)  # round-off can leave -1e-16 on the diagonal
-        pair_sum += float(np.exp(-0.5 * b2 * d_jk).sum())
+        d_jk *= -0.5 * b2
+        np.exp(d_jk, out=d_jk)
+        pair_sum += float(d_jk.sum())
     hz = (pair_sum / n - 2.0 * (1 + b2) ** (-p / 2) * float(np.exp(-b2 / (2 * (1 + b2)) * d_j).sum())
           + n * (1 + 2 * b2) ** (-p / 2))
     a = 1 + 2 * b2
@@ -777,8 +800,6 @@ def rows_needed(skewness: float, excess_kurtosis: float, alpha: float = 0.05, po
     The approximation ignores that the moments' variance also changes under
     the alternative, so treat it as an order of magnitude.
     """
-    from scipy import optimize, stats
-
     for label, value in (("skewness", skewness), ("excess_kurtosis", excess_kurtosis)):
         if value is None or not math.isfinite(float(value)):
             raise InputError(f"{label} must be a finite number, got {value!r}")
@@ -789,6 +810,20 @@ def rows_needed(skewness: float, excess_kurtosis: float, alpha: float = 0.05, po
     per_row = float(skewness) ** 2 / 6.0 + float(excess_kurtosis) ** 2 / 24.0
     if per_row == 0.0:
         return None
+    rows = math.ceil(_noncentrality_for_power(float(alpha), float(power)) / per_row)
+    return int(max(rows, 3))
+
+
+@functools.lru_cache(maxsize=16)
+def _noncentrality_for_power(alpha: float, power: float) -> float:
+    """The lambda at which chi-squared(2, lambda) exceeds its null alpha critical value with probability ``power``.
+
+    It depends on alpha and power only, and a report asks for it once per
+    variable with the same two, so the root search (some 16 noncentral
+    chi-squared evaluations) runs once per process.
+    """
+    from scipy import optimize, stats
+
     critical = stats.chi2.isf(alpha, 2)
 
     def shortfall(lam: float) -> float:
@@ -797,9 +832,7 @@ def rows_needed(skewness: float, excess_kurtosis: float, alpha: float = 0.05, po
     upper = 1.0
     while shortfall(upper) < 0:
         upper *= 2.0
-    lam = optimize.brentq(shortfall, 0.0, upper, xtol=1e-10)
-    rows = math.ceil(lam / per_row)
-    return int(max(rows, 3))
+    return optimize.brentq(shortfall, 0.0, upper, xtol=1e-10)
 
 
 # ------------------------------------------------------------------ sortability

@@ -259,3 +259,31 @@ def test_pairwise_associations_equal_the_pair_by_pair_tests():
         assert rank.p_value == pytest.approx(expected_rank.p_value, rel=1e-9, abs=1e-300)
         # and scipy, the reference library, on the same numbers
         assert rank.effect == pytest.approx(stats.spearmanr(X[:, a], X[:, b]).statistic, abs=1e-12)
+
+
+def _rank_cases():
+    rng = np.random.default_rng(31)
+    normal = rng.standard_normal(3000)
+    return {
+        "continuous": normal,
+        "rounded": np.round(normal, 1),
+        "few-levels": rng.integers(0, 3, 500).astype(float),
+        "all-equal": np.full(40, 2.5),
+        "one-value": np.array([7.0]),
+        "two-tied": np.array([1.0, 1.0]),
+        "signed-zeros": np.array([0.0, -0.0, 1.0, -0.0, -1.0, 0.0]),
+        "infinities": np.array([np.inf, -np.inf, 3.0, np.inf, -2.0]),
+        "sorted-with-runs": np.repeat(np.arange(50.0), rng.integers(1, 6, 50)),
+        "strided-column": rng.standard_normal((600, 3)).round(1)[:, 1],
+    }
+
+
+@pytest.mark.parametrize("name", list(_rank_cases()))
+def test_mid_ranks_are_scipy_rankdata_bit_for_bit(name):
+    # Mid-ranks are integers or half-integers, so they must agree exactly.
+    from preflight.checks.association import _mid_ranks
+
+    values = _rank_cases()[name]
+    ranks, expected = _mid_ranks(values), stats.rankdata(values)
+    assert ranks.dtype == expected.dtype == np.float64
+    assert np.array_equal(ranks, expected)

@@ -171,6 +171,33 @@ def test_full_rank_columns_drops_repeated_directions():
     assert np.linalg.matrix_rank(np.column_stack([np.ones(200), kept])) == 4
 
 
+def _full_rank_columns_with_q(X, tolerance=1e-10):
+    """The selection as first written: pivoted QR in "economic" mode, which also forms Q."""
+    from scipy.linalg import qr
+
+    centred = X - X.mean(axis=0)
+    norms = np.sqrt((centred**2).sum(axis=0))
+    candidates = np.flatnonzero(norms > tolerance * max(norms.max(), np.finfo(float).tiny))
+    if candidates.size == 0:
+        return X[:, :0]
+    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="economic", pivoting=True)
+    diagonal = np.abs(np.diag(r))
+    return X[:, np.sort(candidates[pivots[: int(np.sum(diagonal > tolerance * diagonal[0]))]])]
+
+
+def test_full_rank_columns_select_as_with_the_economic_factorisation():
+    rng = np.random.default_rng(25)
+    z = rng.normal(size=300)
+    b = rng.integers(0, 2, size=300).astype(float)
+    designs = [z[:, None], np.column_stack([z, z * z]), np.column_stack([b, b * b]),
+               np.column_stack([b, z, b * b, 2 * b - 3 * z, np.ones(300), z**2]),
+               bspline_basis(np.round(z, 1), 8)[:, 1:], bspline_basis(z, 10)[:, 1:],
+               np.column_stack([z, z + 1e-12 * rng.normal(size=300)]), rng.normal(size=(6, 9))]
+    for X in designs:
+        kept, expected = lin.full_rank_columns(X), _full_rank_columns_with_q(X)
+        assert kept.shape == expected.shape and np.array_equal(kept, expected)
+
+
 # ---------------------------------------------------------------- Harvey-Collier
 
 def _direct_recursive_residuals(x, y, first):

@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from preflight.checks._distributions import norm_sf, t_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
 from preflight.results import CheckResult
@@ -32,6 +33,30 @@ def _correlation(xv: np.ndarray, yv: np.ndarray) -> float | None:
         return None
     r = float(xc @ yc) / math.sqrt(float(xc @ xc) * float(yc @ yc))
     return min(max(r, -1.0), 1.0)
+
+
+def _mid_ranks(values: np.ndarray) -> np.ndarray:
+    """Ranks 1..n of a finite 1-D array, ties sharing the mean of their positions.
+
+    The values of ``scipy.stats.rankdata(values)`` (method "average"): every
+    rank is an integer or half-integer, exact in float64, so any correct
+    computation gives the same bits; this one skips rankdata's generic
+    axis, NaN and array-namespace handling.
+    """
+    n = values.shape[0]
+    order = np.argsort(values, kind="stable")
+    ordered = values[order]
+    starts_group = np.empty(n, dtype=bool)
+    starts_group[:1] = True
+    np.not_equal(ordered[1:], ordered[:-1], out=starts_group[1:])
+    ranks = np.empty(n)
+    if starts_group.all():
+        ranks[order] = np.arange(1.0, n + 1.0)
+        return ranks
+    starts = np.flatnonzero(starts_group)
+    sizes = np.diff(starts, append=n)
+    ranks[order] = np.repeat(starts + 1 + (sizes - 1) / 2.0, sizes)
+    return ranks
 
 
 def _undefined(name: str, n: int, effect_name: str, xv: np.ndarray) -> CheckResult:
@@ -70,8 +95,6 @@ def pearson_fisher_z(x, y, n_conditioning: int = 0) -> CheckResult:
 
 
 def _pearson_result(r: float, n: int, k: int) -> CheckResult:
-    from scipy import stats
-
     name = "pearson fisher z"
     scale = math.sqrt(n - 3 - k)
     if abs(r) >= 1.0:
@@ -79,7 +102,7 @@ def _pearson_result(r: float, n: int, k: int) -> CheckResult:
         p_value = 0.0
     else:
         z = math.atanh(r) * scale
-        p_value = float(2.0 * stats.norm.sf(abs(z)))
+        p_value = float(2.0 * norm_sf(abs(z)))
     conditioning = f", {k} conditioning variables" if k else ""
     return CheckResult(
         name=name, statistic=z, p_value=p_value, effect=r, effect_name="Pearson r", n=n,
@@ -99,25 +122,21 @@ def spearman(x, y) -> CheckResult:
     Spearman rank correlation coefficient", JASA 67, for the t
     approximation.
     """
-    from scipy import stats
-
     xv, yv, n = _pair(x, y, min_n=3)
-    rho = _correlation(stats.rankdata(xv), stats.rankdata(yv))
+    rho = _correlation(_mid_ranks(xv), _mid_ranks(yv))
     if rho is None:
         return _undefined("spearman", n, "Spearman rho", xv)
     return _spearman_result(rho, n)
 
 
 def _spearman_result(rho: float, n: int) -> CheckResult:
-    from scipy import stats
-
     name = "spearman"
     dof = n - 2
     if abs(rho) >= 1.0:
         p_value = 0.0
     else:
         t = rho * math.sqrt(dof / ((1.0 - rho) * (1.0 + rho)))
-        p_value = float(2.0 * stats.t.sf(abs(t), dof))
+        p_value = float(2.0 * t_sf(abs(t), dof))
     return CheckResult(
         name=name, statistic=rho, p_value=p_value, effect=rho, effect_name="Spearman rho", n=n,
         note=f"mid-ranks for ties, t-approximation with {dof} degrees of freedom, two-sided",
@@ -132,8 +151,6 @@ def pairwise_associations(X, pairs) -> list[tuple[CheckResult, CheckResult]]:
     O(n p^2 + p n log n) instead of O(#pairs n log n).  Values agree with the
     pair-by-pair functions to round-off (tests/test_checks_direction_association.py).
     """
-    from scipy import stats
-
     from preflight.checks._validate import as_matrix
 
     X = as_matrix(X, name="X", min_n=4)
@@ -151,7 +168,7 @@ def pairwise_associations(X, pairs) -> list[tuple[CheckResult, CheckResult]]:
     where = {c: k for k, c in enumerate(varying)}
     if varying:
         pearson = correlations(X[:, varying])
-        spearman_ = correlations(np.column_stack([stats.rankdata(X[:, c]) for c in varying]))
+        spearman_ = correlations(np.column_stack([_mid_ranks(X[:, c]) for c in varying]))
     out = []
     for a, b in pairs:
         if constant[a] or constant[b]:

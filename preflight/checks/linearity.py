@@ -12,9 +12,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from preflight.checks._distributions import f_sf, t_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
-from preflight.fit import bspline_basis, ols, spline_df
+from preflight.fit import LinearFit, bspline_basis, derived_from_basis, ols, spline_df
 from preflight.results import CheckResult
 
 RAMSEY_RESET = "ramsey reset"
@@ -55,7 +56,9 @@ def full_rank_columns(X: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
     candidates = np.flatnonzero(norms > tolerance * max(scale, np.finfo(float).tiny))
     if candidates.size == 0:
         return X[:, :0]
-    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="economic", pivoting=True)
+    # mode="raw" runs the same pivoted factorisation as "economic" and
+    # returns the same R and pivots, without forming the unused Q.
+    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="raw", pivoting=True)
     diagonal = np.abs(np.diag(r))
     kept = pivots[: int(np.sum(diagonal > tolerance * diagonal[0]))]
     return X[:, np.sort(candidates[kept])]
@@ -65,8 +68,6 @@ def _nested_f(
     rss_small: float, rank_small: int, rss_large: float, rank_large: int, n: int
 ) -> tuple[float, float | None, int, int]:
     """F statistic and p-value of a nested least-squares comparison."""
-    from scipy import stats
-
     df_num = rank_large - rank_small
     df_den = n - rank_large
     if df_num <= 0 or df_den <= 0:
@@ -77,7 +78,7 @@ def _nested_f(
     # Round-off can make the larger model's RSS exceed the smaller one's by an ulp.
     gain = max(rss_small - rss_large, 0.0)
     f_stat = (gain / df_num) / (rss_large / df_den)
-    return f_stat, float(stats.f.sf(f_stat, df_num, df_den)), df_num, df_den
+    return f_stat, float(f_sf(f_stat, df_num, df_den)), df_num, df_den
 
 
 def ramsey_reset(x, y, powers: tuple[int, ...] = (2, 3)) -> CheckResult:
@@ -94,12 +95,21 @@ def ramsey_reset(x, y, powers: tuple[int, ...] = (2, 3)) -> CheckResult:
     powers (2, ..., p) the span is that of s^2, ..., s^p, which are used.  Reference:
     Ramsey (1969).  Effect: the gain in R-squared.
     """
+    powers = _reset_powers(powers)
+    xv, yv = _pair(x, y, min_n=len(powers) + 3)
+    return _ramsey_reset(xv, yv, powers, ols(xv, yv))
+
+
+def _reset_powers(powers) -> tuple[int, ...]:
     powers = tuple(int(p) for p in powers)
     if not powers or len(set(powers)) != len(powers) or min(powers) < 2:
         raise InputError(f"powers must be distinct whole numbers of at least 2, got {powers}")
-    xv, yv = _pair(x, y, min_n=len(powers) + 3)
+    return powers
+
+
+def _ramsey_reset(xv: np.ndarray, yv: np.ndarray, powers: tuple[int, ...], linear: LinearFit) -> CheckResult:
+    """:func:`ramsey_reset` on validated input, given the straight-line fit ``linear = ols(xv, yv)``."""
     n = xv.shape[0]
-    linear = ols(xv, yv)
     fitted = yv - linear.residuals
     spread = fitted.std()
     if spread <= 1e-12 * yv.std():
@@ -161,20 +171,29 @@ def spline_comparison(x, y, df: int | None = None, max_df: int = 10) -> SplineCo
     so the straight line is nested in it.
     """
     xv, yv = _pair(x, y, min_n=6)
+    return _spline_comparison(xv, yv, df, max_df, None)
+
+
+def _spline_comparison(xv: np.ndarray, yv: np.ndarray, df: int | None, max_df: int,
+                       linear: LinearFit | None) -> SplineComparison:
+    """:func:`spline_comparison` on validated input; ``linear`` is ``ols(xv, yv)`` when already at hand."""
     n = xv.shape[0]
     chosen = spline_df(n, max_df) if df is None else int(df)
     if chosen < 4:
         raise InputError(f"spline df must be at least 4 (a cubic), got {chosen}")
     if n < chosen + 2:
         raise InputError(f"the spline F-test with df={chosen} needs at least {chosen + 2} observations, got {n}")
-    linear = ols(xv, yv)
+    if linear is None:
+        linear = ols(xv, yv)
     basis = bspline_basis(xv, chosen)
     usable = bool(np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8))
     if not usable:
         return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=linear.rss, rank_linear=linear.rank,
                                 rank_spline=linear.rank, tss=linear.tss, f_statistic=math.nan, p_value=None,
                                 df_num=0, df_den=n - linear.rank, usable=False)
-    spline = ols(full_rank_columns(basis[:, 1:]), yv)
+    # Several pairs share a regressor, and so its basis and this design.
+    design = derived_from_basis(basis, "full-rank columns after the first", lambda: full_rank_columns(basis[:, 1:]))
+    spline = ols(design, yv)
     f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, spline.rss, spline.rank, n)
     return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=min(spline.rss, linear.rss),
                             rank_linear=linear.rank, rank_spline=spline.rank, tss=linear.tss, f_statistic=f_stat,
@@ -192,7 +211,10 @@ def spline_f_test(x, y, df: int | None = None, max_df: int = 10) -> CheckResult:
     (1978).  Effect: gain in R-squared.  The note records df and the change
     in BIC (spline minus linear; negative favours the spline).
     """
-    comparison = spline_comparison(x, y, df=df, max_df=max_df)
+    return _spline_f_result(spline_comparison(x, y, df=df, max_df=max_df))
+
+
+def _spline_f_result(comparison: SplineComparison) -> CheckResult:
     if not comparison.usable:
         return CheckResult(name=SPLINE_F_TEST, statistic=math.nan, p_value=None, effect=0.0, effect_name=_R2_GAIN,
                            n=comparison.n, note=f"df={comparison.df}; x is too tied for quantile knots, no test")
@@ -258,8 +280,6 @@ def harvey_collier(x, y) -> CheckResult:
     whatever the number of regressors, so with [1, x] it leaves out one
     residual more than this function does.
     """
-    from scipy import stats
-
     xv, yv = _pair(x, y, min_n=5)
     order = np.argsort(xv, kind="stable")
     residuals = recursive_residuals(xv[order], yv[order])
@@ -272,7 +292,7 @@ def harvey_collier(x, y) -> CheckResult:
     mean = float(residuals.mean())
     sd = float(residuals.std(ddof=1))
     t_stat = mean / sd * math.sqrt(m)
-    p_value = float(2.0 * stats.t.sf(abs(t_stat), m - 1))
+    p_value = float(2.0 * t_sf(abs(t_stat), m - 1))
     note = f"sorted by x; t on {m - 1} df from {m} recursive residuals"
     return CheckResult(name=HARVEY_COLLIER, statistic=t_stat, p_value=p_value, effect=mean / sd,
                        effect_name="standardised mean recursive residual", n=n, note=note)
@@ -284,4 +304,12 @@ def linearity_checks(x, y, max_df: int = 10) -> tuple[CheckResult, ...]:
     Null hypothesis of both: E[y | x] is linear in x.  References: see the
     individual functions.
     """
-    return (ramsey_reset(x, y), spline_f_test(x, y, max_df=max_df))
+    # Both tests start from the same straight-line fit of y on x; it is
+    # computed once.  Validation runs as in the two functions, in their order,
+    # so the same input raises the same error.
+    powers = _reset_powers((2, 3))
+    xv, yv = _pair(x, y, min_n=len(powers) + 3)
+    linear = ols(xv, yv)
+    reset = _ramsey_reset(xv, yv, powers, linear)
+    xv, yv = _pair(xv, yv, min_n=6)
+    return (reset, _spline_f_result(_spline_comparison(xv, yv, None, max_df, linear)))

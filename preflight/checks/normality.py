@@ -20,6 +20,7 @@ from typing import Sequence
 
 import numpy as np
 
+from preflight.checks._distributions import chi2_sf
 from preflight.checks._validate import as_vector
 from preflight.errors import InputError
 from preflight.results import CheckResult
@@ -115,9 +116,12 @@ def shapiro_wilk(x, max_n: int = 5000, seed: int = 0) -> CheckResult:
     p-value come from ``scipy.stats.shapiro`` (Royston 1995, algorithm AS R94,
     valid up to n = 5000).  Effect: 1 - W, which shrinks to 0 under the null.
     """
+    return _shapiro_wilk(_vector(x), max_n, seed)
+
+
+def _shapiro_wilk(values: np.ndarray, max_n: int, seed: int) -> CheckResult:
     from scipy import stats
 
-    values = _vector(x)
     if not 3 <= int(max_n) <= 5000:
         raise InputError(f"max_n must lie between 3 and 5000 (the range of Royston's approximation), got {max_n}")
     n_total = values.shape[0]
@@ -139,9 +143,13 @@ def anderson_darling_statistic(x) -> float:
     Computed on the log scale (log Phi and log(1 - Phi) directly) so that
     values far in a tail do not round to log(0).
     """
+    return _anderson_darling_statistic(_vector(x))
+
+
+def _anderson_darling_statistic(values: np.ndarray) -> float:
     from scipy.special import log_ndtr
 
-    values = np.sort(_vector(x))
+    values = np.sort(values)
     n = values.shape[0]
     standardised = (values - values.mean()) / values.std(ddof=1)
     log_cdf = log_ndtr(standardised)
@@ -181,9 +189,12 @@ def anderson_darling(x) -> CheckResult:
     fitted normal distribution function, which settles to a population value
     instead of growing with n.  Below 8 values the p-value is None.
     """
-    values = _vector(x)
+    return _anderson_darling(_vector(x))
+
+
+def _anderson_darling(values: np.ndarray) -> CheckResult:
     n = values.shape[0]
-    a2 = anderson_darling_statistic(values)
+    a2 = _anderson_darling_statistic(values)
     modified = a2 * (1.0 + 0.75 / n + 2.25 / (n * n))
     if n < _ANDERSON_MIN_N:
         p_value = None
@@ -205,13 +216,13 @@ def jarque_bera(x) -> CheckResult:
     the asymptotic chi-squared(2) p-value, which is conservative in small
     samples.  Reference: Jarque & Bera (1980).  Effect: sample skewness g1.
     """
-    from scipy import stats
-
     values = _vector(x)
-    n = values.shape[0]
-    skewness, excess_kurtosis = _skew_and_excess_kurtosis(values)
+    return _jarque_bera(values.shape[0], *_skew_and_excess_kurtosis(values))
+
+
+def _jarque_bera(n: int, skewness: float, excess_kurtosis: float) -> CheckResult:
     statistic = n / 6.0 * (skewness**2 + 0.25 * excess_kurtosis**2)
-    return CheckResult(name=JARQUE_BERA, statistic=statistic, p_value=float(stats.chi2.sf(statistic, 2)),
+    return CheckResult(name=JARQUE_BERA, statistic=statistic, p_value=float(chi2_sf(statistic, 2)),
                        effect=skewness, effect_name=SKEWNESS, n=n, note="asymptotic chi-squared(2) p-value")
 
 
@@ -252,18 +263,18 @@ def dagostino_pearson(x) -> CheckResult:
     Effect: sample excess kurtosis g2.  Below 20 values the p-value is None
     (the kurtosis approximation is unreliable there) and the statistic NaN.
     """
-    from scipy import stats
-
     values = _vector(x)
-    n = values.shape[0]
-    skewness, excess_kurtosis = _skew_and_excess_kurtosis(values)
+    return _dagostino_pearson(values.shape[0], *_skew_and_excess_kurtosis(values))
+
+
+def _dagostino_pearson(n: int, skewness: float, excess_kurtosis: float) -> CheckResult:
     if n < _DAGOSTINO_MIN_N:
         return CheckResult(name=DAGOSTINO_PEARSON, statistic=math.nan, p_value=None, effect=excess_kurtosis,
                            effect_name=EXCESS_KURTOSIS, n=n,
                            note=(f"fewer than {_DAGOSTINO_MIN_N} values: the kurtosis approximation is "
                                  "unreliable, no test"))
     statistic = _skewness_z(skewness, n) ** 2 + _kurtosis_z(excess_kurtosis, n) ** 2
-    return CheckResult(name=DAGOSTINO_PEARSON, statistic=statistic, p_value=float(stats.chi2.sf(statistic, 2)),
+    return CheckResult(name=DAGOSTINO_PEARSON, statistic=statistic, p_value=float(chi2_sf(statistic, 2)),
                        effect=excess_kurtosis, effect_name=EXCESS_KURTOSIS, n=n,
                        note="chi-squared(2) p-value of Z(skewness)^2 + Z(kurtosis)^2")
 
@@ -276,7 +287,10 @@ def negentropy(x) -> CheckResult:
     It is 0 for a Gaussian and positive otherwise, up to sampling noise.
     No null hypothesis is tested (p-value None).  Reference: Hyvärinen (1998).
     """
-    values = _vector(x)
+    return _negentropy(_vector(x))
+
+
+def _negentropy(values: np.ndarray) -> CheckResult:
     value = _negentropy_value(values)
     return CheckResult(name=NEGENTROPY, statistic=value, p_value=None, effect=value, effect_name="negentropy",
                        n=int(values.shape[0]),
@@ -289,13 +303,18 @@ def normality_checks(x, max_n: int = 5000, seed: int = 0) -> tuple[CheckResult, 
     Null hypothesis of every test among them: ``x`` is an iid normal sample.
     References: see the individual functions.
     """
+    # Validated once, and the moments shared by Jarque-Bera and
+    # D'Agostino-Pearson computed once: the same values the five public
+    # functions compute each for themselves.
     values = _vector(x)
+    n = values.shape[0]
+    moments = _skew_and_excess_kurtosis(values)
     return (
-        shapiro_wilk(values, max_n=max_n, seed=seed),
-        anderson_darling(values),
-        jarque_bera(values),
-        dagostino_pearson(values),
-        negentropy(values),
+        _shapiro_wilk(values, max_n, seed),
+        _anderson_darling(values),
+        _jarque_bera(n, *moments),
+        _dagostino_pearson(n, *moments),
+        _negentropy(values),
     )
 
 

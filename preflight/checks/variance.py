@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from preflight.checks._distributions import chi2_sf
 from preflight.checks._validate import as_matrix, as_vector, same_length
 from preflight.checks.linearity import full_rank_columns
 from preflight.errors import InputError
@@ -36,14 +37,12 @@ def _require_rows(n: int, columns: int) -> None:
 
 def _lagrange_multiplier(squared: np.ndarray, design: np.ndarray) -> tuple[float, float, float, int]:
     """n R^2 of the auxiliary regression on [1, design], its chi-squared p-value, R^2 and df."""
-    from scipy import stats
-
     aux = ols(full_rank_columns(design), squared)
     n = squared.shape[0]
     df = aux.rank - 1
     r2 = aux.r_squared
     lm = n * r2
-    p_value = float(stats.chi2.sf(lm, df)) if df > 0 else 1.0
+    p_value = float(chi2_sf(lm, df)) if df > 0 else 1.0
     return lm, p_value, r2, df
 
 
