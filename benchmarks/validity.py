@@ -701,6 +701,7 @@ def test_cases() -> list[TestCase]:
                                   "y = 0.8 x + (0.3 + |x|) e, e Laplace (the generator's heteroscedastic mechanism)",
                                   (50, 100, 200, 500, 1000)))
     independent = "x uniform, y Laplace, independent"
+    fit_corrected = lambda d, s: _p(independence.hsic(*d, residual_design=d[0], seed=s))  # noqa: E731
     reverse = "anti-causal residual: x on y with y = x + 0.5 e, x uniform, e Laplace"
     cases += [
         TestCase("HSIC gamma", "independence", lambda d, s: _p(independence.hsic_gamma(*d, seed=s)),
@@ -709,11 +710,11 @@ def test_cases() -> list[TestCase]:
                  lambda d, s: _p(independence.hsic_rff(*d, seed=s)), _independent_pair, independent,
                  (1000, 5000), _reverse_residual, reverse, (200, 500, 1000, 2000, 5000)),
         TestCase("HSIC of a regressor and its OLS residual, null corrected for the fit (skewed)", "independence",
-                 lambda d, s: _p(independence.hsic(*d, residual_design=d[0], seed=s)), _fitted_skewed,
+                 fit_corrected, _fitted_skewed,
                  "x and e skewed (exponential)", (200, 1000, 5000), _reverse_residual, reverse,
                  (100, 200, 500, 1000, 5000)),
         TestCase("HSIC of a regressor and its OLS residual, null corrected for the fit (uniform)", "independence",
-                 lambda d, s: _p(independence.hsic(*d, residual_design=d[0], seed=s)), _fitted_uniform,
+                 fit_corrected, _fitted_uniform,
                  "x and e uniform", (200, 1000, 5000), _reverse_residual, reverse, (100, 200, 500, 1000, 5000)),
         TestCase("HSIC of a regressor and its OLS residual, plain null (contrast)", "independence",
                  lambda d, s: _p(independence.hsic(*d, seed=s)), _fitted_skewed,

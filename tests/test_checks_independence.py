@@ -575,7 +575,7 @@ def test_residual_design_correction_in_feature_form_approaches_the_kernel_form()
     fit = ind._ResidualFit(ind._orthonormal_basis(design), 1.0)
     u = ind._standardise(rng.exponential(size=n))
     sigma_x, sigma_u = 0.9, 0.8
-    kc, _ = ind._centred_gram(x, sigma_x)
+    kc, _, _ = ind._centred_gram(x, sigma_x)
     exact_x = ind._regressor_terms_exact(kc, fit)
     _, _, exact_u = ind._centred_gram(u, sigma_u, fitted_residual=True)
     omega_rng = np.random.default_rng(0)

@@ -162,11 +162,11 @@ def _median_bandwidth(v: np.ndarray, rng: np.random.Generator) -> tuple[float, b
 
 
 def _centred_gram(v: np.ndarray, sigma: float, fitted_residual: bool = False):
-    """Centred Gaussian Gram matrix H K H (built in place) and the mean off-diagonal of K.
+    """Centred Gaussian Gram matrix H K H (built in place), the mean off-diagonal of K, and residual terms.
 
-    With ``fitted_residual`` also the residual-side terms of the correction
-    for estimated coefficients (:func:`_residual_terms_exact`), computed from
-    K before it is centred.
+    The residual terms are those of the correction for estimated
+    coefficients (:func:`_residual_terms_exact`), computed from K before it
+    is centred, when ``fitted_residual`` asks for them; None otherwise.
     """
     n = v.shape[0]
     gram = np.subtract.outer(v, v)
@@ -183,9 +183,7 @@ def _centred_gram(v: np.ndarray, sigma: float, fitted_residual: bool = False):
     gram -= means[None, :]
     gram -= means[:, None]
     gram += means.mean()
-    if fitted_residual:
-        return gram, off_diagonal_mean, residual_terms
-    return gram, off_diagonal_mean
+    return gram, off_diagonal_mean, residual_terms
 
 
 def _bandwidth_note(fallback_x: bool, fallback_y: bool) -> str:
@@ -271,10 +269,9 @@ def _check_residual_design(design, y: np.ndarray) -> np.ndarray:
     centred = design - design.mean(axis=0)
     y_centred = y - y.mean()
     norms = np.sqrt(np.einsum("ij,ij->j", centred, centred)) * math.sqrt(float(y_centred @ y_centred))
-    inner = np.abs(centred.T @ y_centred)
     live = norms > 0
-    if live.any() and float((inner[live] / norms[live]).max()) > RESIDUAL_ORTHOGONALITY_TOLERANCE:
-        worst = float((inner[live] / norms[live]).max())
+    worst = float((np.abs(centred.T @ y_centred)[live] / norms[live]).max(initial=0.0))
+    if worst > RESIDUAL_ORTHOGONALITY_TOLERANCE:
         raise InputError("y is not the least-squares residual of residual_design "
                          f"(its correlation with a design column is {worst:.3g})")
     return design
@@ -351,12 +348,8 @@ def _exact_parts(xs: np.ndarray, ys: np.ndarray, rng: np.random.Generator, fitte
     """Centred Gram matrices, their off-diagonal means, the tie note, and (or None) the residual-side terms."""
     sigma_x, fallback_x = _median_bandwidth(xs, rng)
     sigma_y, fallback_y = _median_bandwidth(ys, rng)
-    kc, mu_x = _centred_gram(xs, sigma_x)
-    residual_terms = None
-    if fitted_residual:
-        lc, mu_y, residual_terms = _centred_gram(ys, sigma_y, fitted_residual=True)
-    else:
-        lc, mu_y = _centred_gram(ys, sigma_y)
+    kc, mu_x, _ = _centred_gram(xs, sigma_x)
+    lc, mu_y, residual_terms = _centred_gram(ys, sigma_y, fitted_residual)
     return kc, lc, mu_x, mu_y, _bandwidth_note(fallback_x, fallback_y), residual_terms
 
 
