@@ -98,9 +98,16 @@ def _holm(p) -> np.ndarray:
     return multipletests(np.asarray(p, float), method="holm")[1]
 
 
+def _hand_spline(x: np.ndarray, y: np.ndarray):
+    """statsmodels OLS of y on a cubic B-spline of x with 8 df built by patsy (intercept included)."""
+    import patsy
+    import statsmodels.api as sm
+
+    return sm.OLS(y, np.asarray(patsy.dmatrix("bs(x, df=8, degree=3)", {"x": x}, return_type="matrix"))).fit()
+
+
 def _hand_pair(x: np.ndarray, y: np.ndarray) -> dict:
     """OLS of y on x and every test on its residual: the p-values, and the statistics that effect sizes come from."""
-    import patsy
     import statsmodels.api as sm
     from scipy import stats
     from statsmodels.stats.diagnostic import het_breuschpagan, het_white, linear_reset
@@ -111,8 +118,7 @@ def _hand_pair(x: np.ndarray, y: np.ndarray) -> dict:
     normal = [stats.shapiro(r[:5000]).pvalue, stats.normaltest(r).pvalue, stats.jarque_bera(r).pvalue,
               stats.anderson(r, method="interpolate").pvalue]
     reset = linear_reset(fit, power=3, use_f=True)
-    spline_design = patsy.dmatrix("bs(x, df=8, degree=3)", {"x": x}, return_type="matrix")
-    spline_fit = sm.OLS(y, np.asarray(spline_design)).fit()
+    spline_fit = _hand_spline(x, y)
     spline_f, spline_p, spline_q = spline_fit.compare_f_test(fit)
     bp = het_breuschpagan(r, exog, robust=True)
     white = het_white(r, exog)
@@ -258,7 +264,6 @@ def _preflight_favoured(pair: dict) -> tuple[str, str] | None:
 def _reasons(pair: dict, flag: str, kept: dict, names: list[str], settings: dict, effects: dict,
              adjacent_keys: list) -> list[str]:
     """Every preflight ingredient that, swapped into the hand battery alone, makes it agree on this cell."""
-    import patsy
     import statsmodels.api as sm
     from statsmodels.stats.diagnostic import het_breuschpagan, het_white
 
@@ -281,7 +286,7 @@ def _reasons(pair: dict, flag: str, kept: dict, names: list[str], settings: dict
     own = _hand_favoured(raw, key)
     if flag == "heteroscedastic" and _hand_flags(raw, adjusted, [key])[key]["nonlinear"]:
         x, y = column[own[0]], column[own[1]]
-        spline = sm.OLS(y, np.asarray(patsy.dmatrix("bs(x, df=8, degree=3)", {"x": x}, return_type="matrix"))).fit()
+        spline = _hand_spline(x, y)
         exog = sm.add_constant(x)
         spread = dict(raw[own], variance=[het_breuschpagan(spline.resid, exog, robust=True)[1],
                                           het_white(spline.resid, exog)[1]])
