@@ -6,8 +6,8 @@ checks compare it with statsmodels OLS and the NIST StRD certified values.
 
 from __future__ import annotations
 
-import hashlib
 import math
+import zlib
 from collections import OrderedDict
 from dataclasses import dataclass
 
@@ -177,7 +177,9 @@ def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     """
     x = np.asarray(x, dtype=np.float64)
     raw = x.tobytes()
-    key = (x.shape, int(df), int(degree), hashlib.blake2b(raw, digest_size=16).digest())
+    # A checksum picks the entry and the bytes themselves confirm it, so a
+    # collision costs a recomputation, never a wrong basis.
+    key = (x.shape, int(df), int(degree), zlib.crc32(raw))
     hit = _BASIS_CACHE.get(key)
     if hit is not None and hit[0] == raw:
         _BASIS_CACHE.move_to_end(key)
@@ -211,6 +213,21 @@ def derived_from_basis(basis: np.ndarray, name: str, build) -> np.ndarray:
                 derived[name] = value
             return derived[name]
     return build()
+
+
+def basis_of_tail(view: np.ndarray) -> np.ndarray | None:
+    """The cached basis of which ``view`` is exactly ``basis[:, 1:]`` (the design of a fit with intercept), or None."""
+    owner = view.base
+    if owner is None or owner.flags.writeable or view.ndim != 2:
+        return None
+    start = view.__array_interface__["data"][0]
+    for entry in reversed(_BASIS_CACHE.values()):
+        basis = entry[1]
+        if (basis.base is owner and view.shape == (basis.shape[0], basis.shape[1] - 1)
+                and view.strides == basis.strides
+                and start == basis.__array_interface__["data"][0] + basis.itemsize):
+            return basis
+    return None
 
 
 def _read_only(array: np.ndarray) -> np.ndarray:

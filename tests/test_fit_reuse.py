@@ -147,3 +147,24 @@ def test_design_of_an_uncached_basis_is_built_each_time():
     second = fit.derived_from_basis(basis, "design", build)
     assert len(calls) == 2 and first is not second and first.flags.writeable
     assert len(fit._BASIS_CACHE) == 0
+
+
+def test_full_rank_columns_of_a_cached_basis_tail_is_remembered_and_exact():
+    from preflight.checks.linearity import _full_rank_columns, full_rank_columns
+
+    rng = np.random.default_rng(7)
+    fit._BASIS_CACHE.clear()
+    x = np.round(rng.normal(size=2500), 1)
+    basis = fit.bspline_basis(x, 9)
+    first = full_rank_columns(basis[:, 1:])
+    again = full_rank_columns(fit.bspline_basis(x.copy(), 9)[:, 1:])
+    fresh = _full_rank_columns(basis[:, 1:].copy(), 1e-10)
+    assert again is first and not first.flags.writeable
+    assert first.strides == fresh.strides and np.array_equal(first, fresh)
+    # Anything that is not exactly basis[:, 1:] of a cached basis is computed afresh.
+    assert fit.basis_of_tail(basis[:, 1:]) is basis
+    for other in (basis[:, 1:].copy(), basis[:, 2:], basis[1:, 1:], basis[:, :-1], basis[:, 1::2]):
+        assert fit.basis_of_tail(other) is None
+        assert full_rank_columns(other).flags.writeable
+    fit._BASIS_CACHE.clear()
+    assert fit.basis_of_tail(basis[:, 1:]) is None
