@@ -178,8 +178,8 @@ class _Remembered:
 def remembered(x: np.ndarray, name, build) -> np.ndarray:
     """``build(x)`` for a vector x, remembered read-only for the last few vectors seen.
 
-    ``name`` identifies the computation; ``build`` must depend on the values
-    of x only (not on its memory layout).  A check computes the same
+    ``name`` identifies the computation; ``build`` must return a new array
+    that depends on the values of x only (not on its memory layout).  A check computes the same
     function of the same regressor many times: every pair a variable
     belongs to, and the spline F-test and the spread of the spline residual
     within a pair.  The entry is found by a CRC of the values and confirmed
@@ -234,7 +234,8 @@ def _holding(array: np.ndarray):
 def derived_from_basis(basis: np.ndarray, name: str, build) -> np.ndarray:
     """``build()``, an array computed from ``basis`` alone, remembered with the basis while it is remembered.
 
-    ``basis`` is an array returned by :func:`bspline_basis`.  It is looked
+    ``basis`` is an array returned by :func:`bspline_basis` and ``build``
+    returns a new array.  The basis is looked
     up by identity, which is sound: the memo holds the object, so no other
     array can be it, and it is read-only, so its values cannot have changed.
     A basis no longer (or never) remembered gets ``build()`` computed afresh.
