@@ -6,8 +6,8 @@ checks compare it with statsmodels OLS and the NIST StRD certified values.
 
 from __future__ import annotations
 
-import hashlib
 import math
+import zlib
 from collections import OrderedDict
 from dataclasses import dataclass
 
@@ -158,9 +158,54 @@ def spline_df(n: int, max_df: int = 10) -> int:
     return int(min(max(round(n**0.2) + 2, 4), max_df))
 
 
-_BASIS_CACHE: OrderedDict = OrderedDict()
-_BASIS_CACHE_ENTRIES = 16
-_BASIS_CACHE_BYTES = 64 * 2**20
+_MEMO: OrderedDict = OrderedDict()
+"""(shape, CRC of the values) -> _Remembered, least recently used first."""
+_MEMO_ENTRIES = 16
+_MEMO_BYTES = 64 * 2**20
+
+
+class _Remembered:
+    """Read-only arrays computed from one vector's values alone, by name."""
+
+    __slots__ = ("raw", "arrays", "nbytes")
+
+    def __init__(self, raw: bytes):
+        self.raw = raw
+        self.arrays: dict = {}
+        self.nbytes = len(raw)
+
+
+def remembered(x: np.ndarray, name, build) -> np.ndarray:
+    """``build(x)`` for a vector x, remembered read-only for the last few vectors seen.
+
+    ``name`` identifies the computation; ``build`` must return a new array
+    that depends on the values of x only (not on its memory layout).  A check computes the same
+    function of the same regressor many times: every pair a variable
+    belongs to, and the spline F-test and the spread of the spline residual
+    within a pair.  The entry is found by a CRC of the values and confirmed
+    by the bytes themselves, so a collision costs a recomputation, never a
+    wrong result.  At most ``_MEMO_ENTRIES`` vectors and ``_MEMO_BYTES``
+    bytes are kept.
+    """
+    x = np.asarray(x, dtype=np.float64)
+    raw = x.tobytes()
+    key = (x.shape, zlib.crc32(raw))
+    entry = _MEMO.get(key)
+    if entry is None or entry.raw != raw:
+        entry = _MEMO[key] = _Remembered(raw)
+    _MEMO.move_to_end(key)
+    value = entry.arrays.get(name)
+    if value is None:
+        value = _read_only(build(x))
+        _keep(entry, name, value)
+    return value
+
+
+def _keep(entry: _Remembered, name, value: np.ndarray) -> None:
+    entry.arrays[name] = value
+    entry.nbytes += value.nbytes
+    while len(_MEMO) > _MEMO_ENTRIES or sum(e.nbytes for e in _MEMO.values()) > _MEMO_BYTES:
+        _MEMO.popitem(last=False)
 
 
 def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
@@ -169,48 +214,56 @@ def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     The columns sum to one, so the basis spans the constant; callers fitting
     with an intercept drop the first column.
 
-    The result is read-only: the bases of the last few regressors are
-    remembered and handed out again, because one pair's battery builds the
-    same basis for the spline F-test and for the spread of the spline
-    residual, and a variable is the regressor of every pair it belongs to.
-    Copy it before writing to it.
+    The result is read-only: it is :func:`remembered`, because one pair's
+    battery builds the same basis for the spline F-test and for the spread
+    of the spline residual, and a variable is the regressor of every pair
+    it belongs to.  Copy it before writing to it.
     """
-    x = np.asarray(x, dtype=np.float64)
-    raw = x.tobytes()
-    key = (x.shape, int(df), int(degree), hashlib.blake2b(raw, digest_size=16).digest())
-    hit = _BASIS_CACHE.get(key)
-    if hit is not None and hit[0] == raw:
-        _BASIS_CACHE.move_to_end(key)
-        return hit[1]
-    basis = _read_only(_bspline_basis(x, df, degree))
-    if basis.nbytes <= _BASIS_CACHE_BYTES // _BASIS_CACHE_ENTRIES:
-        # (x's bytes, the basis, arrays derived from the basis alone)
-        _BASIS_CACHE[key] = (raw, basis, {})
-        while len(_BASIS_CACHE) > _BASIS_CACHE_ENTRIES:
-            _BASIS_CACHE.popitem(last=False)
-    return basis
+    return remembered(x, ("bspline basis", int(df), int(degree)), lambda v: _bspline_basis(v, df, degree))
+
+
+def _holding(array: np.ndarray):
+    """The (entry, name) under which ``array`` itself is remembered, or (None, None)."""
+    for entry in reversed(_MEMO.values()):
+        for name, value in entry.arrays.items():
+            if value is array:
+                return entry, name
+    return None, None
 
 
 def derived_from_basis(basis: np.ndarray, name: str, build) -> np.ndarray:
-    """``build()``, an array computed from ``basis`` alone, remembered with the basis while it is cached.
+    """``build()``, an array computed from ``basis`` alone, remembered with the basis while it is remembered.
 
-    ``basis`` is an array returned by :func:`bspline_basis`.  It is looked
-    up by identity, which is sound: the cache holds the object, so no other
+    ``basis`` is an array returned by :func:`bspline_basis` and ``build``
+    returns a new array.  The basis is looked
+    up by identity, which is sound: the memo holds the object, so no other
     array can be it, and it is read-only, so its values cannot have changed.
-    A basis no longer (or never) cached gets ``build()`` computed afresh.
-    What is remembered is read-only.
+    A basis no longer (or never) remembered gets ``build()`` computed afresh.
     """
-    for entry in reversed(_BASIS_CACHE.values()):
-        if entry[1] is basis:
-            derived = entry[2]
-            if name not in derived:
-                value = _read_only(build())
-                held = basis.nbytes + sum(a.nbytes for a in derived.values())
-                if held + value.nbytes > _BASIS_CACHE_BYTES // _BASIS_CACHE_ENTRIES:
-                    return value
-                derived[name] = value
-            return derived[name]
-    return build()
+    entry, basis_name = _holding(basis)
+    if entry is None:
+        return build()
+    derived_name = (basis_name, name)
+    value = entry.arrays.get(derived_name)
+    if value is None:
+        value = _read_only(build())
+        _keep(entry, derived_name, value)
+    return value
+
+
+def basis_of_tail(view: np.ndarray) -> np.ndarray | None:
+    """The remembered basis of which ``view`` is exactly ``basis[:, 1:]`` (the design of a fit with intercept), or None."""
+    owner = view.base
+    if owner is None or owner.flags.writeable or view.ndim != 2:
+        return None
+    start = view.__array_interface__["data"][0]
+    for entry in reversed(_MEMO.values()):
+        for name, basis in entry.arrays.items():
+            if (name[0] == "bspline basis" and basis.base is owner
+                    and view.shape == (basis.shape[0], basis.shape[1] - 1) and view.strides == basis.strides
+                    and start == basis.__array_interface__["data"][0] + basis.itemsize):
+                return basis
+    return None
 
 
 def _read_only(array: np.ndarray) -> np.ndarray:

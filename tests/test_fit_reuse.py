@@ -50,7 +50,7 @@ def _regressors():
 def test_basis_equals_the_checked_design_matrix_bit_for_bit(name, df):
     x = _regressors()[name]
     expected = _checked_basis(x, df)
-    fit._BASIS_CACHE.clear()
+    fit._MEMO.clear()
     first = fit.bspline_basis(x, df)
     again = fit.bspline_basis(x.copy(), df)  # equal content, another array: served from the cache
     assert again is first or np.shares_memory(again, first)
@@ -77,27 +77,30 @@ def test_cache_tells_apart_regressors_df_and_degree():
     x = rng.normal(size=500)
     y = x.copy()
     y[17] = np.nextafter(y[17], np.inf)  # one ulp apart in one value
-    fit._BASIS_CACHE.clear()
+    fit._MEMO.clear()
     bases = {(name, df, degree): fit.bspline_basis(v, df, degree)
              for name, v in (("x", x), ("y", y)) for df in (5, 6) for degree in (2, 3)}
     for (name, df, degree), basis in bases.items():
         assert np.array_equal(basis, _checked_basis(x if name == "x" else y, df, degree))
     assert not np.array_equal(bases[("x", 6, 3)], bases[("y", 6, 3)])
-    assert len(fit._BASIS_CACHE) == len(bases)
+    assert len(fit._MEMO) == 2 and all(len(entry.arrays) == 4 for entry in fit._MEMO.values())
 
 
-def test_cache_stays_bounded():
+def test_cache_stays_bounded(monkeypatch):
     rng = np.random.default_rng(4)
-    fit._BASIS_CACHE.clear()
-    for _ in range(3 * fit._BASIS_CACHE_ENTRIES):
+    fit._MEMO.clear()
+    for _ in range(3 * fit._MEMO_ENTRIES):
         fit.bspline_basis(rng.normal(size=300), 6)
-    assert len(fit._BASIS_CACHE) == fit._BASIS_CACHE_ENTRIES
-    # A basis too large for its share of the byte budget is computed but not kept.
-    rows = fit._BASIS_CACHE_BYTES // fit._BASIS_CACHE_ENTRIES // (8 * 4) + 1
-    fit._BASIS_CACHE.clear()
-    large = fit.bspline_basis(rng.normal(size=rows), 4)
-    assert large.nbytes > fit._BASIS_CACHE_BYTES // fit._BASIS_CACHE_ENTRIES
-    assert len(fit._BASIS_CACHE) == 0
+    assert len(fit._MEMO) == fit._MEMO_ENTRIES
+    # Old entries go when the bytes run out; a basis larger than the whole
+    # budget is computed but not kept.
+    monkeypatch.setattr(fit, "_MEMO_BYTES", 2**20)
+    fit.bspline_basis(rng.normal(size=20_000), 4)
+    assert sum(entry.nbytes for entry in fit._MEMO.values()) <= fit._MEMO_BYTES
+    x = rng.normal(size=40_000)
+    large = fit.bspline_basis(x, 4)
+    assert large.nbytes > fit._MEMO_BYTES and len(fit._MEMO) == 0
+    assert np.array_equal(large, _checked_basis(x, 4))
 
 
 def test_too_small_df_still_raises():
@@ -109,7 +112,7 @@ def test_design_derived_from_a_cached_basis_is_the_fresh_one_bit_for_bit():
     from preflight.checks.linearity import full_rank_columns
 
     rng = np.random.default_rng(5)
-    fit._BASIS_CACHE.clear()
+    fit._MEMO.clear()
     for x in (rng.normal(size=3000), np.round(rng.normal(size=3000), 1), rng.integers(0, 5, 800).astype(float)):
         y = np.sin(x) + rng.normal(size=x.shape[0])
         basis = fit.bspline_basis(x, 8)
@@ -136,7 +139,7 @@ def test_design_derived_from_a_cached_basis_is_the_fresh_one_bit_for_bit():
 def test_design_of_an_uncached_basis_is_built_each_time():
     x = np.random.default_rng(6).normal(size=400)
     basis = fit.bspline_basis(x, 6)
-    fit._BASIS_CACHE.clear()
+    fit._MEMO.clear()
     calls = []
 
     def build():
@@ -146,4 +149,42 @@ def test_design_of_an_uncached_basis_is_built_each_time():
     first = fit.derived_from_basis(basis, "design", build)
     second = fit.derived_from_basis(basis, "design", build)
     assert len(calls) == 2 and first is not second and first.flags.writeable
-    assert len(fit._BASIS_CACHE) == 0
+    assert len(fit._MEMO) == 0
+
+
+def test_full_rank_columns_of_a_cached_basis_tail_is_remembered_and_exact():
+    from preflight.checks.linearity import _full_rank_columns, full_rank_columns
+
+    rng = np.random.default_rng(7)
+    fit._MEMO.clear()
+    x = np.round(rng.normal(size=2500), 1)
+    basis = fit.bspline_basis(x, 9)
+    first = full_rank_columns(basis[:, 1:])
+    again = full_rank_columns(fit.bspline_basis(x.copy(), 9)[:, 1:])
+    fresh = _full_rank_columns(basis[:, 1:].copy(), 1e-10)
+    assert again is first and not first.flags.writeable
+    assert first.strides == fresh.strides and np.array_equal(first, fresh)
+    # Anything that is not exactly basis[:, 1:] of a cached basis is computed afresh.
+    assert fit.basis_of_tail(basis[:, 1:]) is basis
+    for other in (basis[:, 1:].copy(), basis[:, 2:], basis[1:, 1:], basis[:, :-1], basis[:, 1::2]):
+        assert fit.basis_of_tail(other) is None
+        assert full_rank_columns(other).flags.writeable
+    fit._MEMO.clear()
+    assert fit.basis_of_tail(basis[:, 1:]) is None
+
+
+def test_white_test_with_a_remembered_design_equals_the_direct_one():
+    from preflight.checks import variance
+
+    rng = np.random.default_rng(9)
+    fit._MEMO.clear()
+    for x in (rng.normal(size=3000), rng.integers(0, 2, 3000).astype(float), rng.exponential(size=3000)):
+        for _ in range(2):  # the second time from the memo
+            e = rng.normal(size=x.shape[0]) * (1.0 + 0.3 * np.abs(x))
+            remembered = variance.variance_checks(e, x)[1]
+            direct = variance.white_test(e, x)
+            assert remembered == direct
+    # A strided view of the same values gets the same remembered design.
+    table = np.column_stack([x, x])
+    e = rng.normal(size=x.shape[0])
+    assert variance.variance_checks(e, table[:, 1])[1] == variance.white_test(e, x)

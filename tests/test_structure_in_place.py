@@ -90,3 +90,21 @@ def test_henze_zirkler_statistic_matches_plain_expression(table):
     result = structure.henze_zirkler(X, max_n=X.shape[0])
     expected = _plain_henze_zirkler_statistic(X)
     assert np.float64(result.statistic).view(np.int64) == np.float64(expected).view(np.int64)
+
+
+@pytest.mark.parametrize("table", range(len(_tables())))
+def test_logcosh_negentropy_of_residuals_does_not_depend_on_the_block_size(table, monkeypatch):
+    # Each entry is a mean over the rows (axis 0) of its own residuals; the
+    # block only decides how many entries share one tensor.
+    X = _tables()[table]
+    Z, _ = structure._standardise_columns(X)
+    n, k = Z.shape
+    rho = np.clip(Z.T @ Z / n, -1.0, 1.0)
+    invalid = (np.abs(rho) >= 1.0 - 1e-10) | np.eye(k, dtype=bool)
+    s = np.sqrt(np.where(invalid, 1.0, 1.0 - rho * rho))
+    rho = np.where(invalid, 0.0, rho)
+    results = []
+    for rows_per_block in sorted({1, 2, max(1, k // 2), k}):
+        monkeypatch.setattr(structure, "_TENSOR_MAX_ELEMENTS", n * k * rows_per_block)
+        results.append(structure._logcosh_negentropy_of_residuals(Z, rho, s))
+    assert all(_same_bits(J, results[0]) for J in results[1:])

@@ -76,8 +76,13 @@ def pairwise_likelihood_ratio(x, y, density: str = "entropy") -> CheckResult:
         from preflight.structure import pairwise_likelihood_ratios
 
         # Averaging both orders makes R(x, y) = -R(y, x) hold to the last bit.
-        forward = float(pairwise_likelihood_ratios(np.column_stack([xs, ys]), measure="logcosh")[0, 1])
-        backward = float(pairwise_likelihood_ratios(np.column_stack([ys, xs]), measure="logcosh")[0, 1])
+        # The order (y, x) is read from the same matrix: with the columns
+        # swapped every entropy term is the same number (column-wise means,
+        # elementwise residuals, a symmetric correlation), so its R[0, 1] is
+        # this R[1, 0], summed in the same order
+        # (tests/test_checks_direction_association.py compares both).
+        ratios = pairwise_likelihood_ratios(np.column_stack([xs, ys]), measure="logcosh")
+        forward, backward = float(ratios[0, 1]), float(ratios[1, 0])
         ratio = (forward - backward) / 2.0
         return CheckResult(
             name=name, statistic=ratio, p_value=None, effect=ratio,

@@ -15,7 +15,7 @@ import numpy as np
 from preflight.checks._distributions import f_sf, t_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
-from preflight.fit import LinearFit, bspline_basis, derived_from_basis, ols, spline_df
+from preflight.fit import LinearFit, basis_of_tail, bspline_basis, derived_from_basis, ols, spline_df
 from preflight.results import CheckResult
 
 RAMSEY_RESET = "ramsey reset"
@@ -44,10 +44,23 @@ def full_rank_columns(X: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
     driver does not detect exact collinearity (a binary regressor and its
     square, a spline basis on tied x) and then returns a wrong RSS and rank,
     so designs that can repeat a direction are screened here first.
+
+    For ``basis[:, 1:]`` of a basis from :func:`preflight.fit.bspline_basis`
+    the selection is remembered with the basis (read-only): the spline
+    F-test and the spread of the spline residual fit the same spline, and
+    several pairs share a regressor.
     """
+    X = np.asarray(X, dtype=np.float64)
+    basis = basis_of_tail(X)
+    if basis is not None:
+        return derived_from_basis(basis, f"full-rank columns after the first ({tolerance!r})",
+                                  lambda: _full_rank_columns(X, tolerance))
+    return _full_rank_columns(X, tolerance)
+
+
+def _full_rank_columns(X: np.ndarray, tolerance: float) -> np.ndarray:
     from scipy.linalg import qr
 
-    X = np.asarray(X, dtype=np.float64)
     if X.ndim == 1:
         X = X[:, None]
     centred = X - X.mean(axis=0)
@@ -191,9 +204,7 @@ def _spline_comparison(xv: np.ndarray, yv: np.ndarray, df: int | None, max_df: i
         return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=linear.rss, rank_linear=linear.rank,
                                 rank_spline=linear.rank, tss=linear.tss, f_statistic=math.nan, p_value=None,
                                 df_num=0, df_den=n - linear.rank, usable=False)
-    # Several pairs share a regressor, and so its basis and this design.
-    design = derived_from_basis(basis, "full-rank columns after the first", lambda: full_rank_columns(basis[:, 1:]))
-    spline = ols(design, yv)
+    spline = ols(full_rank_columns(basis[:, 1:]), yv)
     f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, spline.rss, spline.rank, n)
     return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=min(spline.rss, linear.rss),
                             rank_linear=linear.rank, rank_spline=spline.rank, tss=linear.tss, f_statistic=f_stat,

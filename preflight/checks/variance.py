@@ -12,7 +12,7 @@ from preflight.checks._distributions import chi2_sf
 from preflight.checks._validate import as_matrix, as_vector, same_length
 from preflight.checks.linearity import full_rank_columns
 from preflight.errors import InputError
-from preflight.fit import ols
+from preflight.fit import ols, remembered
 from preflight.results import CheckResult
 
 BREUSCH_PAGAN = "breusch-pagan"
@@ -37,7 +37,12 @@ def _require_rows(n: int, columns: int) -> None:
 
 def _lagrange_multiplier(squared: np.ndarray, design: np.ndarray) -> tuple[float, float, float, int]:
     """n R^2 of the auxiliary regression on [1, design], its chi-squared p-value, R^2 and df."""
-    aux = ols(full_rank_columns(design), squared)
+    return _lagrange_multiplier_on(squared, full_rank_columns(design))
+
+
+def _lagrange_multiplier_on(squared: np.ndarray, columns: np.ndarray) -> tuple[float, float, float, int]:
+    """:func:`_lagrange_multiplier` given the full-rank columns of the design."""
+    aux = ols(columns, squared)
     n = squared.shape[0]
     df = aux.rank - 1
     r2 = aux.r_squared
@@ -83,10 +88,23 @@ def white_test(residuals, regressors) -> CheckResult:
     minus one df (a binary regressor's square repeats its level and adds
     nothing).  Reference: White (1980).  Effect: auxiliary R-squared.
     """
+    return _white_test(residuals, regressors, remember_design=False)
+
+
+def _white_test(residuals, regressors, remember_design: bool) -> CheckResult:
     e, Z = _inputs(residuals, regressors)
-    design = white_design(Z)
-    _require_rows(e.shape[0], design.shape[1])
-    lm, p_value, r2, df = _lagrange_multiplier(e * e, design)
+    k = Z.shape[1]
+    _require_rows(e.shape[0], k + k * (k + 1) // 2)  # the columns of white_design(Z)
+    if remember_design and k == 1:
+        # The design [x, x^2] and its full-rank columns depend on the
+        # regressor's values alone (white_design copies them into a fresh
+        # array), and the same regressor comes back in every pair it belongs
+        # to and for the spline residual's spread.
+        columns = remembered(Z[:, 0], ("white design, full-rank columns",),
+                             lambda x: full_rank_columns(white_design(x)))
+    else:
+        columns = full_rank_columns(white_design(Z))
+    lm, p_value, r2, df = _lagrange_multiplier_on(e * e, columns)
     return CheckResult(name=WHITE, statistic=lm, p_value=p_value, effect=r2, effect_name=_AUX_R2,
                        n=int(e.shape[0]),
                        note=(f"n R^2 on levels, squares and cross-products of {Z.shape[1]} regressor(s); "
@@ -102,4 +120,4 @@ def variance_checks(residuals, regressor) -> tuple[CheckResult, ...]:
     error variance.  References: see the individual functions.
     """
     x = as_vector(regressor, name="regressor", min_n=3)
-    return (breusch_pagan(residuals, x), white_test(residuals, x))
+    return (breusch_pagan(residuals, x), _white_test(residuals, x, remember_design=True))
