@@ -48,17 +48,25 @@ def _many_pair_hsic(X: np.ndarray, names, pairs, label: str, policy: Policy, pai
         column_seeds=[derived_seed(policy.seed, f"{label} features", name) for name in names])
 
 
-def _noise_dependence(noise: np.ndarray, names, pairs, policy: Policy, progress: Progress) -> dict:
-    """HSIC between the noise estimates of every adjacent pair.
+def _noise_dependence_results(noise: np.ndarray, names, pairs, policy: Policy) -> list[CheckResult]:
+    """HSIC between the noise estimates of every given (adjacent) pair.
 
     Seeds follow the column names, not positions, so reordering the columns
     draws the same subsamples and features.
     """
     if not pairs:
-        return {}
-    results = _many_pair_hsic(noise, names, pairs, "noise dependence", policy,
-                              [derived_seed(policy.seed, "noise dependence", names[i], names[j]) for i, j in pairs])
-    progress("noise dependence", len(pairs), len(pairs))
+        return []
+    return _many_pair_hsic(noise, names, pairs, "noise dependence", policy,
+                           [derived_seed(policy.seed, "noise dependence", names[i], names[j]) for i, j in pairs])
+
+
+def _noise_dependence_task(noise: np.ndarray, pairs, policy: Policy) -> list[CheckResult]:
+    return _noise_dependence_results(noise, _WORKER["names"], pairs, policy)
+
+
+def _tag_noise_dependence(results: list[CheckResult], names, pairs, progress: Progress) -> dict:
+    if pairs:
+        progress("noise dependence", len(pairs), len(pairs))
     return {(i, j): Tagged("noise dependence", "pair",
                            result.with_name(f"noise dependence (hsic) ({names[i]}, {names[j]})"))
             for (i, j), result in zip(pairs, results)}
@@ -293,9 +301,17 @@ def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progre
     view = _structural_view(X, names, policy, progress)
     adjacency, cpdag, adjacency_source = _adjacency(X, names, policy, graph)
     sets = {(i, j): _conditioning_sets(i, j, adjacency, view.parents) for i, j in pair_index}
+    noise_pairs = [ij for ij in pair_index if adjacency[ij]]
+    # The noise HSICs need nothing the pairs need: with workers they run in
+    # the one the whole-table screens left idle while this process shares
+    # the association checks.
+    noise_future = (pool.submit(_noise_dependence_task, view.noise, noise_pairs, policy)
+                    if pool is not None and noise_pairs else None)
     ready = _shared_association(X, names, [pair for pair in pair_index if not sets[pair][0]], policy)
     tasks = [(i, j, *sets[(i, j)], bool(adjacency[i, j]), policy, ready.get((i, j))) for i, j in pair_index]
-    noise_dep = _noise_dependence(view.noise, names, [ij for ij in pair_index if adjacency[ij]], policy, progress)
+    noise_results = (noise_future.result() if noise_future is not None
+                     else _noise_dependence_results(view.noise, names, noise_pairs, policy))
+    noise_dep = _tag_noise_dependence(noise_results, names, noise_pairs, progress)
     batteries = _run_batteries(X, names, tasks, policy, progress, pool)
     whole_result = whole.result() if whole is not None else _whole_table_screens(X, policy)
     return view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole_result
