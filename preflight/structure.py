@@ -523,7 +523,7 @@ def fastica_gaussian_components(
     normality_max_n: int = 5000,
     hsic_exact_max_n: int = 2000,
     hsic_max_n: int = 20000,
-    hsic_features: int = 64,
+    hsic_features: int = 40,
     hsic_permutations: int = 0,
     min_dependence_effect: float | None = None,
     restarts: int = 8,

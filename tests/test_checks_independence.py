@@ -194,7 +194,7 @@ def test_rff_statistic_converges_to_the_exact_one():
 
 
 def test_rff_rejection_rate_under_independence_is_nominal():
-    # Seeded simulation: 300 independent pairs at n = 2000 with the default 64 frequencies.
+    # Seeded simulation: 300 independent pairs at n = 2000 with the default 40 frequencies.
     rng = np.random.default_rng(31)
     replicates, n = 300, 2000
     rejections = 0
@@ -305,7 +305,7 @@ def test_dispatcher_switches_to_random_features_above_exact_max_n():
     x, y = _dependent_pair(rng, 1500, 0.3)
     result = hsic(x, y, exact_max_n=1000, permutations=10)
     assert result.n == 1500
-    assert "random-Fourier-feature HSIC on 1500 rows with 64" in result.note
+    assert "random-Fourier-feature HSIC on 1500 rows with 40" in result.note
     assert "10 permutations requested but not run" in result.note
 
 

@@ -606,7 +606,7 @@ def _check_features(n_features) -> int:
     return int(n_features)
 
 
-def hsic_rff(x, y, n_features: int = 64, seed: int = 0, residual_design=None) -> CheckResult:
+def hsic_rff(x, y, n_features: int = 40, seed: int = 0, residual_design=None) -> CheckResult:
     """Linear-time HSIC test of independence with random Fourier features.
 
     H0: x and y are independent.  The Gaussian kernels of :func:`hsic_gamma`
@@ -639,7 +639,7 @@ def hsic_rff(x, y, n_features: int = 64, seed: int = 0, residual_design=None) ->
     return _hsic_rff(xs, ys, n_features, np.random.default_rng(seed), fit)
 
 
-def hsic(x, y, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 64,
+def hsic(x, y, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 40,
          permutations: int = 0, seed: int = 0, residual_design=None) -> CheckResult:
     """HSIC test of independence, choosing the method from the sample size.
 
@@ -700,7 +700,7 @@ def hsic(x, y, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 64
     )
 
 
-def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 64,
+def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 40,
                permutations: int = 0, seed: int = 0, column_seeds=None) -> list[CheckResult]:
     """:func:`hsic` for many pairs of columns of one table, sharing the work between pairs.
 
