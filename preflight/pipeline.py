@@ -278,6 +278,52 @@ def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=Non
     return results
 
 
+def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batteries: list[PairBattery],
+                                              adjusted_pair_groups, policy: Policy) -> list[PairBattery]:
+    """Re-run, without them, the pairs conditioned on variables that sit in a nonlinear relation.
+
+    Conditioning sets rest on the structural view's linear causal order.  A
+    nonlinear mechanism can scramble that order (a saturating curve reads as
+    a cause of its own cause), so a variable in an adjacent pair judged
+    nonlinear may be a descendant of the pair it conditions, and partialling
+    out a descendant adds spread and curvature that are not there.  Leaving
+    a true common cause in the residuals instead can only raise
+    ``confounding-suspected``, never orient an edge.
+
+    The variables start from the nonlinear pairs with an empty conditioning
+    set; each round re-runs the pairs whose set holds one of them (in this
+    process, in pair order, so results do not depend on workers), re-judges
+    every pair with p-values adjusted afresh, and adds the variables of
+    nonlinear pairs whose set holds none of them, until nothing is added.
+    """
+    _WORKER["X"], _WORKER["names"] = X, names
+    current = {ij: sets[ij][0] for ij in pair_index}
+    excluded: set[int] = set()
+    batteries = list(batteries)
+    for _ in range(len(names) + 1):
+        findings = [judge_pair(b, g, policy) for b, g in zip(batteries, adjusted_pair_groups(batteries))]
+        in_nonlinear = {v for ij, f in zip(pair_index, findings)
+                        if f.adjacent and "nonlinear" in f.flags and not (set(current[ij]) & excluded)
+                        and (excluded or not current[ij]) for v in ij}
+        if in_nonlinear <= excluded:
+            return batteries
+        excluded |= in_nonlinear
+        for k, ij in enumerate(pair_index):
+            if not set(current[ij]) & excluded:
+                continue
+            dropped = tuple(c for c in current[ij] if c in excluded)
+            kept = tuple(c for c in current[ij] if c not in excluded)
+            current[ij] = kept
+            battery = _battery_task((*ij, kept, kept, kept, batteries[k].adjacent, policy, None))
+            note = (f"not partialled out: {', '.join(names[c] for c in dropped)}, in a relation judged "
+                    "nonlinear, so its place in the linear causal order is not trusted")
+            first = battery.checks[0]
+            checks = (replace(first, result=replace(first.result, note=f"{first.result.note}; {note}"
+                                                    if first.result.note else note)),) + battery.checks[1:]
+            batteries[k] = replace(battery, checks=checks)
+    return batteries
+
+
 def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> CheckResult:
     from preflight import structure
     from preflight.checks.normality import shape
@@ -314,7 +360,7 @@ def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progre
     noise_dep = _tag_noise_dependence(noise_results, names, noise_pairs, progress)
     batteries = _run_batteries(X, names, tasks, policy, progress, pool)
     whole_result = whole.result() if whole is not None else _whole_table_screens(X, policy)
-    return view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole_result
+    return view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole_result, sets
 
 def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
         keep_samples: bool) -> Report:
@@ -347,7 +393,7 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
     if not void:
         pool = _start_pool(X, names, policy)
         try:
-            view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole = _analyse_table(
+            view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole, sets = _analyse_table(
                 X, names, pair_index, policy, graph, progress, pool)
         finally:
             if pool is not None:
@@ -364,12 +410,20 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
         graphs.read_graph_file(graph, list(names))  # a bad graph file is still a usage error
 
     # ---- evidence: adjust within families across the whole table
-    pair_groups = [list(b.checks) for b in batteries]
     noise_dep = noise_dep if view is not None else {}
     noise_keys = [ij for ij in pair_index if ij in noise_dep]
     noise_groups = [[noise_dep[ij]] for ij in noise_keys]
     var_groups = [var_checks[name] for name in names]
-    groups = adjust_families(pair_groups + noise_groups + var_groups + [global_checks], policy.correction)
+
+    def adjusted(pair_batteries: list[PairBattery]) -> list[list[Tagged]]:
+        return adjust_families([list(b.checks) for b in pair_batteries] + noise_groups + var_groups
+                               + [global_checks], policy.correction)
+
+    if view is not None:
+        batteries = _drop_conditioning_in_nonlinear_relations(
+            X, names, pair_index, sets, batteries, lambda bs: adjusted(bs)[:len(bs)], policy)
+    pair_groups = [list(b.checks) for b in batteries]
+    groups = adjusted(batteries)
     pair_groups = groups[:len(pair_groups)]
     noise_groups = groups[len(pair_groups):len(pair_groups) + len(noise_groups)]
     var_groups = groups[len(pair_groups) + len(noise_groups):-1]
