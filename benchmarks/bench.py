@@ -218,7 +218,7 @@ def hand_battery(data: np.ndarray, names: list[str], keep: dict | None = None) -
     return flags
 
 
-def _hand_effects(raw: dict, data: np.ndarray, names: list[str]) -> dict:
+def _hand_effects(raw: dict) -> dict:
     """Effect sizes of the hand battery's tests in the terms preflight's floors use, from statistics it computed.
 
     Skewness and excess kurtosis of the residual (moment estimates, as
@@ -261,6 +261,12 @@ def _preflight_favoured(pair: dict) -> tuple[str, str] | None:
     return None
 
 
+def _partialled(column: dict, conditioning: list[str], *variables: np.ndarray) -> list[np.ndarray]:
+    """Least-squares residuals of each variable on a constant and the conditioning columns."""
+    Z = np.column_stack([np.ones(len(variables[0]))] + [column[c] for c in conditioning])
+    return [v - Z @ np.linalg.lstsq(Z, v, rcond=None)[0] for v in variables]
+
+
 def _reasons(pair: dict, flag: str, kept: dict, names: list[str], settings: dict, effects: dict,
              adjacent_keys: list) -> list[str]:
     """Every preflight ingredient that, swapped into the hand battery alone, makes it agree on this cell."""
@@ -273,8 +279,7 @@ def _reasons(pair: dict, flag: str, kept: dict, names: list[str], settings: dict
     column = {name: data[:, k] for k, name in enumerate(names)}
     found = []
     if pair["conditioning"]:
-        Z = np.column_stack([np.ones(data.shape[0])] + [column[c] for c in pair["conditioning"]])
-        x, y = (v - Z @ np.linalg.lstsq(Z, v, rcond=None)[0] for v in (column[key[0]], column[key[1]]))
+        x, y = _partialled(column, pair["conditioning"], column[key[0]], column[key[1]])
         given = {**raw, key: _hand_pair(x, y), key[::-1]: _hand_pair(y, x)}
         if _hand_flags(given, _hand_adjust(given, list(given)), [key])[key][flag] == target:
             found.append("conditioned")
@@ -299,7 +304,6 @@ def _reasons(pair: dict, flag: str, kept: dict, names: list[str], settings: dict
     return found or ["other"]
 
 
-
 def _hand_with_every_choice(report, kept: dict, names: list[str], settings: dict) -> dict:
     """The hand battery's flags with every documented choice of preflight's judgement made at once.
 
@@ -320,8 +324,7 @@ def _hand_with_every_choice(report, kept: dict, names: list[str], settings: dict
         key = (pair["x"], pair["y"])
         x, y = column[key[0]], column[key[1]]
         if pair["conditioning"]:
-            Z = np.column_stack([np.ones(data.shape[0])] + [column[c] for c in pair["conditioning"]])
-            x, y = (v - Z @ np.linalg.lstsq(Z, v, rcond=None)[0] for v in (x, y))
+            x, y = _partialled(column, pair["conditioning"], x, y)
             given[key], given[key[::-1]] = _hand_pair(x, y), _hand_pair(y, x)
         else:
             given[key], given[key[::-1]] = kept["raw"][key], kept["raw"][key[::-1]]
@@ -329,7 +332,7 @@ def _hand_with_every_choice(report, kept: dict, names: list[str], settings: dict
         regressions[favoured[key]] = (x, y) if favoured[key] == key else (y, x)
     keys, pairs = list(given), list(favoured)
     first = _hand_flags(given, _hand_adjust(given, keys), pairs, favoured=favoured,
-                        floors=(settings, _hand_effects(given, data, names)))
+                        floors=(settings, _hand_effects(given)))
     for key in pairs:
         if first[key]["nonlinear"]:
             x, y = regressions[favoured[key]]
@@ -337,7 +340,7 @@ def _hand_with_every_choice(report, kept: dict, names: list[str], settings: dict
             bp, white = het_breuschpagan(spline.resid, exog, robust=True), het_white(spline.resid, exog)
             given[favoured[key]] = dict(given[favoured[key]], variance=[bp[1], white[1]], lm=[bp[0], white[0]])
     return _hand_flags(given, _hand_adjust(given, keys), pairs, favoured=favoured,
-                       floors=(settings, _hand_effects(given, data, names)), spread_when_nonlinear=True)
+                       floors=(settings, _hand_effects(given)), spread_when_nonlinear=True)
 
 
 def compare(report, hand: dict, kept: dict, names: list[str]) -> dict:
@@ -347,7 +350,7 @@ def compare(report, hand: dict, kept: dict, names: list[str]) -> dict:
     counterfactual re-runs it needs are not part of its timed work.
     """
     settings = report.data["settings"]
-    effects = _hand_effects(kept["raw"], kept["data"], names)
+    effects = _hand_effects(kept["raw"])
     adjacent = [pair for pair in report.pairs if pair["adjacent"]]
     adjacent_keys = [k for pair in adjacent for k in ((pair["x"], pair["y"]), (pair["y"], pair["x"]))]
     floored = _hand_flags(kept["raw"], kept["adjusted"], [(p["x"], p["y"]) for p in adjacent],
@@ -496,10 +499,10 @@ def main() -> None:
               "agree on `gaussian-noise`, `nonlinear` and `heteroscedastic`. The hand battery does not "
               "condition on other variables, so agreement is also given separately for the pairs preflight "
               "tested with an empty conditioning set and for those it tested after partialling out a set. "
-              "The last column applies preflight's documented effect-size floors (`nonlinear_min_r2_gain`, "
+              "The column `with preflight's floors` applies preflight's documented effect-size floors (`nonlinear_min_r2_gain`, "
               "`heteroscedastic_min_r2`, `nongaussian_min_abs_skew`, `nongaussian_min_abs_excess_kurtosis`) "
               "to the hand battery's own p-values and effect sizes; nothing else in its judgement changes. "
-              "The very last makes every documented choice of preflight's judgement at once, with the hand "
+              "The column `with every choice` makes every documented choice of preflight's judgement at once, with the hand "
               "battery's own tests: the same conditioning sets partialled out, Holm over the adjacent pairs, "
               "the direction preflight favoured, the floors, and spread judged on the spline residual where "
               "a pair is nonlinear.", "",
