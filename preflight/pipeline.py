@@ -279,7 +279,7 @@ def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=Non
 
 
 def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batteries: list[PairBattery],
-                                              adjusted_pair_groups, policy: Policy) -> list[PairBattery]:
+                                              adjusted, groups: list[list[Tagged]], policy: Policy):
     """Re-run, without them, the pairs conditioned on variables that sit in a nonlinear relation.
 
     Conditioning sets rest on the structural view's linear causal order.  A
@@ -295,18 +295,21 @@ def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batter
     process, in pair order, so results do not depend on workers), re-judges
     every pair with p-values adjusted afresh, and adds the variables of
     nonlinear pairs whose set holds none of them, until nothing is added.
+    ``adjusted(batteries)`` adjusts every family of the table and ``groups``
+    is its value for the batteries given; returns the final batteries and
+    their adjusted groups.
     """
     _WORKER["X"], _WORKER["names"] = X, names
     current = {ij: sets[ij][0] for ij in pair_index}
     excluded: set[int] = set()
     batteries = list(batteries)
     for _ in range(len(names) + 1):
-        findings = [judge_pair(b, g, policy) for b, g in zip(batteries, adjusted_pair_groups(batteries))]
+        findings = [judge_pair(b, g, policy) for b, g in zip(batteries, groups[:len(batteries)])]
         in_nonlinear = {v for ij, f in zip(pair_index, findings)
                         if f.adjacent and "nonlinear" in f.flags and not (set(current[ij]) & excluded)
                         and (excluded or not current[ij]) for v in ij}
         if in_nonlinear <= excluded:
-            return batteries
+            return batteries, groups
         excluded |= in_nonlinear
         for k, ij in enumerate(pair_index):
             if not set(current[ij]) & excluded:
@@ -321,7 +324,8 @@ def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batter
             checks = (replace(first, result=replace(first.result, note=f"{first.result.note}; {note}"
                                                     if first.result.note else note)),) + battery.checks[1:]
             batteries[k] = replace(battery, checks=checks)
-    return batteries
+        groups = adjusted(batteries)
+    return batteries, groups
 
 
 def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> CheckResult:
@@ -419,12 +423,11 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
         return adjust_families([list(b.checks) for b in pair_batteries] + noise_groups + var_groups
                                + [global_checks], policy.correction)
 
-    if view is not None:
-        batteries = _drop_conditioning_in_nonlinear_relations(
-            X, names, pair_index, sets, batteries, lambda bs: adjusted(bs)[:len(bs)], policy)
-    pair_groups = [list(b.checks) for b in batteries]
     groups = adjusted(batteries)
-    pair_groups = groups[:len(pair_groups)]
+    if view is not None:
+        batteries, groups = _drop_conditioning_in_nonlinear_relations(
+            X, names, pair_index, sets, batteries, adjusted, groups, policy)
+    pair_groups = groups[:len(batteries)]
     noise_groups = groups[len(pair_groups):len(pair_groups) + len(noise_groups)]
     var_groups = groups[len(pair_groups) + len(noise_groups):-1]
     global_checks = groups[-1]
