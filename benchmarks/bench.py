@@ -261,6 +261,16 @@ def _preflight_favoured(pair: dict) -> tuple[str, str] | None:
     return None
 
 
+def _hand_spline_spread(entry: dict, x: np.ndarray, y: np.ndarray) -> dict:
+    """``entry`` with its spread tests (Breusch-Pagan, White) run on the residual of the spline of y on x."""
+    import statsmodels.api as sm
+    from statsmodels.stats.diagnostic import het_breuschpagan, het_white
+
+    residual, exog = _hand_spline(x, y).resid, sm.add_constant(x)
+    bp, white = het_breuschpagan(residual, exog, robust=True), het_white(residual, exog)
+    return dict(entry, variance=[bp[1], white[1]], lm=[bp[0], white[0]])
+
+
 def _partialled(column: dict, conditioning: list[str], *variables: np.ndarray) -> list[np.ndarray]:
     """Least-squares residuals of each variable on a constant and the conditioning columns."""
     Z = np.column_stack([np.ones(len(variables[0]))] + [column[c] for c in conditioning])
@@ -270,9 +280,6 @@ def _partialled(column: dict, conditioning: list[str], *variables: np.ndarray) -
 def _reasons(pair: dict, flag: str, kept: dict, names: list[str], settings: dict, effects: dict,
              adjacent_keys: list) -> list[str]:
     """Every preflight ingredient that, swapped into the hand battery alone, makes it agree on this cell."""
-    import statsmodels.api as sm
-    from statsmodels.stats.diagnostic import het_breuschpagan, het_white
-
     data, raw, adjusted = kept["data"], kept["raw"], kept["adjusted"]
     key = (pair["x"], pair["y"])
     target = flag in pair["flags"]
@@ -290,12 +297,7 @@ def _reasons(pair: dict, flag: str, kept: dict, names: list[str], settings: dict
         found.append("floor")
     own = _hand_favoured(raw, key)
     if flag == "heteroscedastic" and _hand_flags(raw, adjusted, [key])[key]["nonlinear"]:
-        x, y = column[own[0]], column[own[1]]
-        spline = _hand_spline(x, y)
-        exog = sm.add_constant(x)
-        spread = dict(raw[own], variance=[het_breuschpagan(spline.resid, exog, robust=True)[1],
-                                          het_white(spline.resid, exog)[1]])
-        swapped = {**raw, own: spread}
+        swapped = {**raw, own: _hand_spline_spread(raw[own], column[own[0]], column[own[1]])}
         if _hand_flags(swapped, _hand_adjust(swapped, list(swapped)), [key],
                        spread_when_nonlinear=True)[key][flag] == target:
             found.append("spline-spread")
@@ -313,9 +315,6 @@ def _hand_with_every_choice(report, kept: dict, names: list[str], settings: dict
     spread judged on the spline residual where the pair is nonlinear.  The
     tests themselves stay the hand battery's own (statsmodels, scipy, patsy).
     """
-    import statsmodels.api as sm
-    from statsmodels.stats.diagnostic import het_breuschpagan, het_white
-
     data = kept["data"]
     column = {name: data[:, k] for k, name in enumerate(names)}
     adjacent = [pair for pair in report.pairs if pair["adjacent"]]
@@ -335,10 +334,7 @@ def _hand_with_every_choice(report, kept: dict, names: list[str], settings: dict
                         floors=(settings, _hand_effects(given)))
     for key in pairs:
         if first[key]["nonlinear"]:
-            x, y = regressions[favoured[key]]
-            spline, exog = _hand_spline(x, y), sm.add_constant(x)
-            bp, white = het_breuschpagan(spline.resid, exog, robust=True), het_white(spline.resid, exog)
-            given[favoured[key]] = dict(given[favoured[key]], variance=[bp[1], white[1]], lm=[bp[0], white[0]])
+            given[favoured[key]] = _hand_spline_spread(given[favoured[key]], *regressions[favoured[key]])
     return _hand_flags(given, _hand_adjust(given, keys), pairs, favoured=favoured,
                        floors=(settings, _hand_effects(given)), spread_when_nonlinear=True)
 
