@@ -72,7 +72,8 @@ def cli() -> None:
     """
 
 
-def _render_outputs(report, json_path, markdown_path, html_path, junit_path) -> list[tuple[str, str]]:
+def _render_outputs(report, json_path, markdown_path, html_path, junit_path,
+                    graph_path=None) -> list[tuple[str, str]]:
     outputs = []
     if json_path:
         outputs.append((json_path, report.to_json()))
@@ -88,6 +89,10 @@ def _render_outputs(report, json_path, markdown_path, html_path, junit_path) -> 
         from preflight.report.junit import render_junit
 
         outputs.append((junit_path, render_junit(report.data)))
+    if graph_path:
+        from preflight.report.discovery import graph_format, render_graph
+
+        outputs.append((graph_path, render_graph(report.data, graph_format(graph_path))))
     return outputs
 
 
@@ -109,11 +114,26 @@ def _print_summary(report, quiet: bool, no_color: bool) -> None:
     click.echo(render_text(report.data, style=style, quiet=quiet), nl=False)
 
 
+def _graph_path_checked(ctx, param, value):
+    """Refuse an unknown graph extension before any work is done."""
+    if value:
+        from preflight.report.discovery import graph_format
+
+        try:
+            graph_format(value)
+        except InputError as exc:
+            raise click.BadParameter(str(exc)) from None
+    return value
+
+
 output_options = [
     click.option("--json", "json_path", metavar="PATH", help="Write the JSON report (schema version 1) here."),
     click.option("--markdown", "markdown_path", metavar="PATH", help="Write a Markdown report for a study appendix."),
     click.option("--html", "html_path", metavar="PATH", help="Write a self-contained HTML report with plots."),
     click.option("--junit", "junit_path", metavar="PATH", help="Write every check as a JUnit XML test case."),
+    click.option("--graph-out", "graph_path", metavar="PATH", callback=_graph_path_checked,
+                 help="Write the justified graph and the discovery step's background knowledge: "
+                      ".dot (Graphviz), .graphml or .json (node-link)."),
     click.option("--quiet", "-q", is_flag=True, help="Print only the conclusion line; no progress."),
     click.option("--no-color", is_flag=True, help="No colour on the terminal (NO_COLOR is honoured too)."),
 ]
@@ -148,7 +168,7 @@ def _with(options):
 @_with(output_options)
 def check_command(data, sep, columns, exclude, missing, graph, require, fail_on, alpha, correction, seed,
                   min_rows, rows_unordered, jobs, policy_file, set_pairs, json_path, markdown_path, html_path,
-                  junit_path, quiet, no_color):
+                  junit_path, graph_path, quiet, no_color):
     """Check DATA (CSV, TSV, Parquet, or - for CSV on stdin) and gate on the conclusion."""
     from preflight.api import check
     from preflight.policy import build_policy
@@ -165,7 +185,7 @@ def check_command(data, sep, columns, exclude, missing, graph, require, fail_on,
                        keep_samples=bool(html_path))
     finally:
         progress.clear()
-    _write_all(_render_outputs(report, json_path, markdown_path, html_path, junit_path))
+    _write_all(_render_outputs(report, json_path, markdown_path, html_path, junit_path, graph_path))
     _print_summary(report, quiet, no_color)
     sys.exit(EXIT_PASS if report.passed else EXIT_WEAKER)
 
@@ -216,13 +236,13 @@ def demo_command(out_dir, rows, seed, quiet, no_color):
 @cli.command("report")
 @click.argument("report_json", metavar="REPORT.json")
 @_with(output_options[1:])
-def report_command(report_json, markdown_path, html_path, junit_path, quiet, no_color):
-    """Render a saved JSON report again (Markdown, HTML, JUnit) without the data."""
+def report_command(report_json, markdown_path, html_path, junit_path, graph_path, quiet, no_color):
+    """Render a saved JSON report again (Markdown, HTML, JUnit, graph) without the data."""
     from preflight.report.json import read_report
     from preflight.report.model import Report
 
     report = Report.from_dict(read_report(report_json))
-    _write_all(_render_outputs(report, None, markdown_path, html_path, junit_path))
+    _write_all(_render_outputs(report, None, markdown_path, html_path, junit_path, graph_path))
     _print_summary(report, quiet, no_color)
 
 

@@ -16,7 +16,7 @@ CAUTIONS = (
 )
 
 
-@dataclass
+@dataclass(repr=False)
 class Report:
     """The result of :func:`preflight.check`.
 
@@ -65,3 +65,52 @@ class Report:
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> "Report":
         return cls(data=data)
+
+    # In a notebook ------------------------------------------------------------
+    def __repr__(self) -> str:
+        from preflight.report.notebook import report_repr
+
+        return report_repr(self.data)
+
+    def _repr_html_(self) -> str:
+        from preflight.report.notebook import report_html
+
+        return report_html(self.data)
+
+    def pairs_frame(self):
+        """One row per pair of variables: adjacency, orientation (and cause, effect), basis, flags."""
+        from preflight.report.notebook import pairs_frame
+
+        return pairs_frame(self.data)
+
+    def variables_frame(self):
+        """One row per variable: flags, whether its noise looks Gaussian, estimated parents."""
+        from preflight.report.notebook import variables_frame
+
+        return variables_frame(self.data)
+
+    def checks_frame(self):
+        """Every check in long form: one row per check, with its scope and the variable or pair it belongs to."""
+        from preflight.report.notebook import checks_frame
+
+        return checks_frame(self.data)
+
+    # For the discovery step ---------------------------------------------------
+    def background_knowledge(self):
+        """Directions to fix, pairs to keep apart and edges to leave open (:mod:`preflight.report.discovery`)."""
+        from preflight.report.discovery import background_knowledge
+
+        return background_knowledge(self.data)
+
+    def to_networkx(self):
+        """The justified graph as a ``networkx.DiGraph`` (see :mod:`preflight.report.discovery`)."""
+        from preflight.report.discovery import to_networkx
+
+        return to_networkx(self.data)
+
+    def write_graph(self, path: str) -> None:
+        """Write the justified graph whole or not at all; ``.dot``, ``.graphml`` or ``.json`` picks the format."""
+        from preflight.report.discovery import graph_format, render_graph
+        from preflight.report.json import write_atomic
+
+        write_atomic(path, render_graph(self.data, graph_format(path)))
