@@ -246,6 +246,33 @@ def report_command(report_json, markdown_path, html_path, junit_path, graph_path
     _print_summary(report, quiet, no_color)
 
 
+@cli.command("compare")
+@click.argument("old_json", metavar="OLD.json")
+@click.argument("new_json", metavar="NEW.json")
+@click.option("--require", type=click.Choice(LEVELS),
+              help="Fail when the new level is below this rung [default: the old report's level].")
+@click.option("--markdown", "markdown_path", metavar="PATH", help="Write the comparison as Markdown.")
+@click.option("--quiet", "-q", is_flag=True, help="Print only the verdict line.")
+@click.option("--no-color", is_flag=True, help="No colour on the terminal (NO_COLOR is honoured too).")
+def compare_command(old_json, new_json, require, markdown_path, quiet, no_color):
+    """Compare two JSON reports (an earlier batch, then a new one) and gate on drift.
+
+    Exits 1 when the new level is below --require (by default: below the old
+    report's level) or when an edge oriented in the old report is not oriented
+    the same way in the new one; 0 otherwise; 2 when either file is not a
+    valid report.
+    """
+    from preflight.report.compare import compare_reports, render_comparison_markdown, render_comparison_text
+    from preflight.report.json import read_report
+
+    comparison = compare_reports(read_report(old_json), read_report(new_json), require=require)
+    if markdown_path:
+        _write_all([(markdown_path, render_comparison_markdown(comparison))])
+    style = click.style if _use_colour(no_color) else None
+    click.echo(render_comparison_text(comparison, style=style, quiet=quiet), nl=False)
+    sys.exit(EXIT_PASS if comparison.passed else EXIT_WEAKER)
+
+
 @cli.command("schema")
 def schema_command():
     """Print the JSON Schema of the report."""

@@ -49,4 +49,18 @@ def read_report(path: str) -> dict[str, Any]:
         raise InputError(f"{path} is not a JSON report: {exc.msg} at line {exc.lineno}") from None
     if not isinstance(data, dict) or data.get("schema_version") != "1":
         raise InputError(f"{path} is not a preflight report of schema version 1")
+    problem = schema_problem(data)
+    if problem:
+        raise InputError(f"{path} is not a valid preflight report: {problem}")
     return data
+
+
+def schema_problem(data: Any) -> str | None:
+    """The first way ``data`` breaks the report schema, in one line, or ``None`` when it is valid."""
+    import jsonschema
+
+    error = jsonschema.exceptions.best_match(jsonschema.Draft202012Validator(schema()).iter_errors(data))
+    if error is None:
+        return None
+    where = "/".join(str(part) for part in error.absolute_path) or "the top level"
+    return f"{' '.join(error.message.split())[:200]} (at {where})"
