@@ -9,7 +9,7 @@ Heavy modules are imported on first use so that ``preflight --help`` starts fast
 
 from preflight._version import __version__
 
-__all__ = ["__version__", "check", "Report", "CheckResult", "Policy", "InputError", "LEVELS"]
+__all__ = ["__version__", "check", "compare_reports", "Report", "CheckResult", "Policy", "InputError", "LEVELS"]
 
 
 def __getattr__(name):
@@ -17,6 +17,10 @@ def __getattr__(name):
         from preflight.api import check
 
         return check
+    if name == "compare_reports":
+        from preflight.report.compare import compare_reports
+
+        return compare_reports
     if name == "Report":
         from preflight.report.model import Report
 
