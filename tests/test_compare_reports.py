@@ -128,12 +128,18 @@ def test_flags_columns_settings_and_rules(old):
     assert comparison.global_flags_added == ("duplicate-rows",)
     assert ("alpha", 0.05, 0.01) in comparison.settings_changed
     assert comparison.rules_fired_added == ("repeated-rows",)
-    assert not comparison.same_input and comparison.passed  # flags alone do not fail the gate
+    assert comparison.same_input is False and comparison.passed  # flags alone do not fail the gate
     text, markdown = comparison.to_text(), comparison.to_markdown()
     for words in ("+autocorrelated", "-discrete", "+heteroscedastic", "+duplicate-rows", "alpha 0.05 -> 0.01",
                   "different input"):
         assert words in text
     assert "+autocorrelated" in markdown and "## Settings changed" in markdown
+
+
+def test_input_without_a_checksum_is_not_called_different(old):
+    frame_report = _edited(old, lambda d: d["input"].update(sha256=None, path="<DataFrame>"))
+    comparison = compare_reports(old, frame_report)
+    assert comparison.same_input is None and "inputs not compared" in comparison.to_text()
 
 
 def test_removed_and_added_columns(old):

@@ -34,6 +34,7 @@ def test_repr_is_a_few_lines_with_the_conclusion_and_first_reasons():
     assert all(len(line) <= 120 for line in lines[2:])
     assert "and 4 more reasons" in lines[-1]
     assert "passed (required" in repr(handmade_report(passed=True)).splitlines()[0]
+    assert repr(type(report)(data={"schema_version": "1"})).startswith("<preflight Report: incomplete data")
 
 
 # ---------------------------------------------------------------- HTML cell

@@ -80,8 +80,8 @@ class ReportComparison:
     new_edges: tuple[int, int]
     old_rows_used: int
     new_rows_used: int
-    same_input: bool
-    """Both reports name an input with the same SHA-256."""
+    same_input: bool | None
+    """Whether the two inputs have the same SHA-256; ``None`` when a report has none (a DataFrame)."""
     columns_added: tuple[str, ...]
     columns_removed: tuple[str, ...]
     settings_changed: tuple[tuple[str, Any, Any], ...]
@@ -251,7 +251,7 @@ def compare_reports(old: Any, new: Any, require: str | None = None) -> ReportCom
         old_edges=(old_c["edges_oriented"], old_c["edges_total"]),
         new_edges=(new_c["edges_oriented"], new_c["edges_total"]),
         old_rows_used=old_data["input"]["rows_used"], new_rows_used=new_data["input"]["rows_used"],
-        same_input=bool(old_sha) and old_sha == new_sha,
+        same_input=None if not (old_sha and new_sha) else old_sha == new_sha,
         columns_added=columns_added, columns_removed=columns_removed,
         settings_changed=settings_changed, edges=tuple(edges), variables=tuple(variables),
         global_flags_added=global_added, global_flags_removed=global_removed,
@@ -260,6 +260,12 @@ def compare_reports(old: Any, new: Any, require: str | None = None) -> ReportCom
 
 
 # ---------------------------------------------------------------- rendering
+
+def _input_words(same: bool | None) -> str:
+    if same is None:
+        return "inputs not compared (a report records no SHA-256)"
+    return "same input (SHA-256)" if same else "different input (SHA-256)"
+
 
 def _flag_delta(added: tuple[str, ...], removed: tuple[str, ...]) -> str:
     return " ".join([f"+{f}" for f in added] + [f"-{f}" for f in removed]) or "-"
@@ -281,7 +287,7 @@ def render_comparison_text(comparison: ReportComparison, style=None, quiet: bool
         lines.append(f"  - {failure}")
     lines.append("")
     c = comparison
-    data_words = "same input (SHA-256)" if c.same_input else "different input"
+    data_words = _input_words(c.same_input)
     lines.append(f"Input: {c.old_source} -> {c.new_source}; rows used {c.old_rows_used} -> {c.new_rows_used}; "
                  f"{data_words}.")
     if c.columns_added or c.columns_removed:
@@ -332,7 +338,7 @@ def render_comparison_markdown(comparison: ReportComparison) -> str:
         ("rows used", str(c.old_rows_used), str(c.new_rows_used)),
     ])
     out += ["", f"Floor: {md_code(c.floor)} ({md_escape(c.floor_from)}). "
-                f"{'Same input (SHA-256).' if c.same_input else 'Different input.'}", ""]
+                f"{_input_words(c.same_input).capitalize()}.", ""]
     if c.columns_added or c.columns_removed:
         out += [f"Columns added: {', '.join(md_code(x) for x in c.columns_added) or '-'}; "
                 f"removed: {', '.join(md_code(x) for x in c.columns_removed) or '-'}.", ""]

@@ -40,6 +40,13 @@ def _shorten(text: str, limit: int) -> str:
 # ---------------------------------------------------------------- text form
 
 def report_repr(data: dict[str, Any]) -> str:
+    try:
+        return _report_repr(data)
+    except (KeyError, TypeError, AttributeError):  # a repr must never raise, even on a partial dictionary
+        return f"<preflight Report: incomplete data with keys {sorted(map(str, data)) if isinstance(data, dict) else type(data).__name__}>"
+
+
+def _report_repr(data: dict[str, Any]) -> str:
     c = data["conclusion"]
     status = "passed" if c["passed"] else "not passed"
     lines = [f"<preflight Report: level {c['level']}, {status} (required {c['required']}); "
@@ -83,7 +90,9 @@ def report_html(data: dict[str, Any]) -> str:
     kind = "pass" if c["passed"] else ("none" if c["level"] == "none" else "weaker")
     ink, paper = _COLOURS[kind]
     status = "PASS" if c["passed"] else "FAIL"
+    # The headline without its "FAIL [level]" prefix and "(required: ...)" tail, which the box shows apart.
     plain = headline(data).split("] ", 1)[-1]
+    plain = plain.rsplit(" (required:", 1)[0].rstrip(".") + "."
     parts = [
         '<div style="font-family:system-ui,-apple-system,\'Segoe UI\',Roboto,sans-serif;line-height:1.45;'
         'max-width:1000px;">',
@@ -109,7 +118,7 @@ def report_html(data: dict[str, Any]) -> str:
         rows = [[_e(v["name"]), _flags(v["flags"])] for v in flagged]
         if data["global"]["flags"]:
             rows.append(["<em>whole table</em>", _flags(data["global"]["flags"])])
-        parts.append('<div style="font-weight:600;margin-top:6px;">Flagged variables</div>')
+        parts.append('<div style="font-weight:600;margin-top:6px;">Flags on variables and the whole table</div>')
         parts.append(_table(("variable", "flags"), rows))
     reasons = c["reasons"] or ["No reason was recorded."]
     parts.append('<div style="font-weight:600;margin-top:6px;">Why</div>')
