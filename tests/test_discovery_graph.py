@@ -215,6 +215,24 @@ def test_graph_text_is_the_same_for_the_same_report():
         assert render_graph(report.data, extension) == render_graph(copy.deepcopy(report.data), extension)
 
 
+def test_graphml_refuses_a_name_xml_cannot_hold_and_json_keeps_it(tmp_path, cli):
+    from preflight.errors import InputError
+
+    names = ("a\x01b", "c", "d", "e", "f")
+    report = _with_level(handmade_report(names=names), "equivalence-class")
+    with pytest.raises(InputError, match="control character"):
+        render_graph(report.data, ".graphml")
+    path = str(tmp_path / "g.json")
+    report.write_graph(path)
+    assert set(_read_back(path).nodes) == set(names)
+    saved = tmp_path / "r.json"
+    saved.write_text(report.to_json())
+    code, _, err = cli("report", str(saved), "--graph-out", str(tmp_path / "g.graphml"),
+                       "--markdown", str(tmp_path / "r.md"))
+    assert code == 2 and "control character" in err and err.count("\n") == 1
+    assert not os.path.exists(tmp_path / "g.graphml") and not os.path.exists(tmp_path / "r.md")
+
+
 # ---------------------------------------------------------------- command line
 
 def test_cli_graph_out_on_a_real_analysis(cli, linear_uniform_csv, tmp_path):

@@ -27,6 +27,7 @@ from __future__ import annotations
 import io
 import json
 import os
+import re
 from dataclasses import dataclass
 from typing import Any
 
@@ -199,12 +200,24 @@ def _dot_text(graph) -> str:
     return nx.nx_pydot.to_pydot(dot).to_string()
 
 
+# Characters XML 1.0 cannot hold, escaped or not.
+_NOT_XML = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ufffe\uffff\ud800-\udfff]")
+
+
+def _refuse_names_xml_cannot_hold(graph) -> None:
+    for node in graph.nodes:
+        if _NOT_XML.search(str(node)):
+            raise InputError(f"cannot write GraphML: the column name {str(node)!r} contains a control character, "
+                             "which XML cannot hold; write .json or .dot instead, or rename the column")
+
+
 def render_graph(data: dict[str, Any], extension: str) -> str:
     """The justified graph in the format ``extension`` names (a key of :data:`GRAPH_FORMATS`), as text."""
     import networkx as nx
 
     graph = to_networkx(data)
     if extension == ".graphml":
+        _refuse_names_xml_cannot_hold(graph)
         buffer = io.BytesIO()
         nx.write_graphml(graph, buffer, encoding="utf-8")
         return buffer.getvalue().decode("utf-8")
