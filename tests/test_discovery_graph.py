@@ -25,7 +25,7 @@ from preflight.report.discovery import (
     to_networkx,
 )
 from preflight.report.model import Report
-from test_report_renderers import handmade_report
+from test_report_renderers import demo, handmade_report  # noqa: F401 - demo is a session fixture
 
 AWKWARD = ("a:b", 'say "hi"', "back\\slash", "comma,name", "node")
 
@@ -213,6 +213,28 @@ def test_graph_text_is_the_same_for_the_same_report():
     report = handmade_report()
     for extension in GRAPH_FORMATS:
         assert render_graph(report.data, extension) == render_graph(copy.deepcopy(report.data), extension)
+
+
+def test_the_kiln_demo_round_trips_in_every_format(demo, tmp_path):  # noqa: F811
+    """A real analysis: every edge, orientation and basis survives each format, and the lists follow the level."""
+    knowledge = demo.background_knowledge()
+    adjacent = [(p["x"], p["y"]) for p in demo.pairs if p["adjacent"]]
+    licensed = LICENSED_BASES[demo.level]
+    assert [tuple(e) for e in knowledge.directions_to_fix] == [
+        e for p in demo.pairs if p["adjacent"] and p["basis"] in licensed
+        for e in [(p["x"], p["y"]) if p["orientation"] == "x->y" else (p["y"], p["x"])]]
+    assert len(knowledge.directions_to_fix) + len(knowledge.edges_to_leave_open) == len(adjacent)
+    assert len(knowledge.pairs_to_keep_apart) == len(demo.pairs) - len(adjacent)
+    expected = _expected_edges(demo.data)
+    for extension in sorted(GRAPH_FORMATS):
+        path = str(tmp_path / f"kiln{extension}")
+        demo.write_graph(path)
+        back = _read_back(path)
+        assert set(back.edges) == set(expected), extension
+        for edge, attrs in expected.items():
+            got = {k: back.edges[edge][k] for k in attrs}
+            assert got == (attrs if extension != ".dot" else {k: _as_text(v) for k, v in attrs.items()}), extension
+        assert _as_text(back.graph["level"]) == demo.level
 
 
 def test_graphml_refuses_a_name_xml_cannot_hold_and_json_keeps_it(tmp_path, cli):
