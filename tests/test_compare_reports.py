@@ -136,6 +136,20 @@ def test_flags_columns_settings_and_rules(old):
     assert "+autocorrelated" in markdown and "## Settings changed" in markdown
 
 
+def test_paths_and_report_objects_compare_like_dictionaries(old, tmp_path):
+    from preflight.errors import InputError
+    from preflight.report.model import Report
+
+    new = _edited(old, lambda d: _pair(d, "a", "b").update(orientation="undetermined", basis=None))
+    expected = compare_reports(old, new)
+    old_path, new_path = _save(tmp_path, "o.json", old), _save(tmp_path, "n.json", new)
+    assert compare_reports(old_path, tmp_path / "n.json") == expected  # str and pathlib paths
+    assert compare_reports(Report.from_dict(old), new_path) == expected
+    assert compare_reports(Report.from_dict(old), Report.from_dict(new)).edges == expected.edges
+    with pytest.raises(InputError, match="not found"):
+        compare_reports(old, tmp_path / "missing.json")
+
+
 def test_input_without_a_checksum_is_not_called_different(old):
     frame_report = _edited(old, lambda d: d["input"].update(sha256=None, path="<DataFrame>"))
     comparison = compare_reports(old, frame_report)

@@ -15,6 +15,7 @@ The drift gate fails when
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 from typing import Any
 
@@ -208,10 +209,20 @@ def _diff(old: list[str], new: list[str]) -> tuple[tuple[str, ...], tuple[str, .
     return tuple(v for v in new if v not in old), tuple(v for v in old if v not in new)
 
 
+def _report_data(report: Any) -> dict[str, Any]:
+    if isinstance(report, (str, os.PathLike)):
+        from preflight.report.json import read_report
+
+        return read_report(os.fspath(report))
+    return getattr(report, "data", report)
+
+
 def compare_reports(old: Any, new: Any, require: str | None = None) -> ReportComparison:
-    """Compare two reports (``Report`` objects or their JSON dictionaries); see the module docstring."""
-    old_data = getattr(old, "data", old)
-    new_data = getattr(new, "data", new)
+    """Compare two reports (``Report`` objects, their JSON dictionaries, or paths of JSON reports).
+
+    See the module docstring for what is compared and when the drift gate fails.
+    """
+    old_data, new_data = _report_data(old), _report_data(new)
     if require is not None and require not in LEVELS:
         raise ValueError(f"require must be one of {', '.join(LEVELS)}, got {require!r}")
     old_columns = list(old_data["input"]["columns"])
