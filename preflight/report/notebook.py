@@ -102,7 +102,7 @@ def report_html(data: dict[str, Any]) -> str:
         f'<strong style="font-size:115%;">{_e(c["level"])}</strong>'
         f'<div style="margin-top:4px;">{_e(plain)}</div>'
         f'<div style="margin-top:2px;font-size:92%;">Required level <strong>{_e(c["required"])}</strong>: '
-        f'{_e(gate_outcome(c))}. Edges oriented: <strong>{c["edges_oriented"]} of {c["edges_total"]}</strong>.'
+        f'{_e(gate_outcome(c))}. Edges oriented: <strong>{_e(c["edges_oriented"])} of {_e(c["edges_total"])}</strong>.'
         "</div></div>",
     ]
     edges = [p for p in data["pairs"] if p["adjacent"]]
@@ -125,8 +125,8 @@ def report_html(data: dict[str, Any]) -> str:
     parts.append('<ul style="margin:2px 0 6px 1.2em;padding:0;">'
                  + "".join(f"<li>{_e(r)}</li>" for r in reasons) + "</ul>")
     source = data["input"]
-    parts.append(f'<div style="font-size:85%;opacity:0.75;">{_e(source["path"])}: {source["rows_used"]} of '
-                 f'{source["rows"]} rows used, {len(source["columns"])} columns; preflight '
+    parts.append(f'<div style="font-size:85%;opacity:0.75;">{_e(source["path"])}: {_e(source["rows_used"])} of '
+                 f'{_e(source["rows"])} rows used, {len(source["columns"])} columns; preflight '
                  f'{_e(data["tool"]["version"])}. Tables: report.pairs_frame(), report.variables_frame(), '
                  "report.checks_frame().</div>")
     parts.append("</div>")
