@@ -49,4 +49,23 @@ def read_report(path: str) -> dict[str, Any]:
         raise InputError(f"{path} is not a JSON report: {exc.msg} at line {exc.lineno}") from None
     if not isinstance(data, dict) or data.get("schema_version") != "1":
         raise InputError(f"{path} is not a preflight report of schema version 1")
+    problem = first_schema_problem(data)
+    if problem is not None:
+        raise InputError(f"{path} is not a valid preflight report: {problem}")
     return data
+
+
+def first_schema_problem(data: Any) -> str | None:
+    """The first way ``data`` departs from the shipped schema, in one line; None when it conforms."""
+    import jsonschema
+
+    checker = jsonschema.validators.validator_for(schema())(schema())
+    errors = sorted(checker.iter_errors(data), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
+    if not errors:
+        return None
+    error = errors[0]
+    where = "".join(f"[{p}]" if isinstance(p, int) else f".{p}" for p in error.absolute_path).lstrip(".")
+    message = " ".join(error.message.split())
+    if len(message) > 160:
+        message = message[:157] + "..."
+    return f"{where or 'top level'}: {message}"
