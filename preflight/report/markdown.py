@@ -466,7 +466,8 @@ def md_escape(text: Any) -> str:
 
 def md_code(text: Any) -> str:
     """An inline code span that survives backticks inside the text."""
-    s = re.sub("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]", "\ufffd", str(text)).replace("\n", " ").replace("|", "\\|")
+    s = re.sub("[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]", "\ufffd", str(text)).replace("\r", " ").replace("\n", " ")
+    s = s.replace("|", "\\|")
     longest = max((len(run) for run in re.findall(r"`+", s)), default=0)
     fence = "`" * (longest + 1)
     pad = " " if s.startswith("`") or s.endswith("`") or not s.strip() else ""
