@@ -306,7 +306,9 @@ def main(argv: list[str] | None = None) -> None:
         click.echo(f"preflight: error: {exc.format_message()}", err=True)
         sys.exit(EXIT_INPUT)
     except InputError as exc:
-        message = " ".join(str(exc).split())
+        from preflight.report.text import visible
+
+        message = visible(" ".join(str(exc).split()))
         click.echo(f"preflight: error: {message}", err=True)
         sys.exit(EXIT_INPUT)
     except BrokenPipeError:

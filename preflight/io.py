@@ -10,6 +10,7 @@ import csv
 import hashlib
 import io
 import os
+import re
 import sys
 from dataclasses import dataclass, field
 
@@ -25,6 +26,7 @@ NA_TOKENS = ("NA", "NaN", "nan", "null", "NULL", ".")
 
 
 MIN_ROWS = 3
+_LINE_BREAK = re.compile(r"\r\n|\r|\n")
 """Fewest complete rows any check can use; below, the input is refused."""
 STRAY_MAX_SHARE = 0.05
 """A text column is still numeric when at most this share of its non-empty cells (or a single
@@ -121,7 +123,9 @@ def _check_ragged(text: str, sep: str, label: str) -> list[str]:
         header = records[0][2]
         counts = ((line_no, count) for line_no, count, _ in records)
     else:
-        lines = text.splitlines()
+        # Only CR and LF end a record; str.splitlines() would also split at
+        # form feeds, U+0085 or U+2028 inside a column name.
+        lines = _LINE_BREAK.split(text)
         counts = ((i, line.count(sep) + 1) for i, line in enumerate(lines, start=1) if line.strip())
         header = next(line for line in lines if line.strip()).split(sep)
     expected = len(header)

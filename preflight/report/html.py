@@ -14,6 +14,7 @@ and says so in place of those plots.
 from __future__ import annotations
 
 import html
+import warnings
 import re
 from typing import Any, Sequence
 
@@ -442,22 +443,26 @@ def render_html(report: Report, *, max_edge_plots: int = MAX_EDGE_PLOTS, max_qq_
     meta = (f"{data['tool']['name']} {data['tool']['version']} \u00b7 generated {data['generated_at']} \u00b7 "
             f"{fmt_count(data['input']['rows_used'])} of {fmt_count(data['input']['rows'])} rows used"
             + (f" \u00b7 SHA-256 {sha[:12]}\u2026" if sha else ""))
-    body = [
-        f"<header><h1>{_e(title)}</h1><p class=\"meta\">{_e(meta)}</p></header>",
-        _verdict(data),
-        _why(data),
-        _cautions(data),
-        _graph(data),
-        _edges(data),
-        _variables(data),
-        _plots(data, samples, max_edge_plots, max_qq_plots),
-        _methods(data),
-        _settings(data),
-        _input(data),
-        _all_checks(data),
-        f"<footer>Written by {_e(data['tool']['name'])} {_e(data['tool']['version'])}. This file is self-contained: "
-        "it loads nothing from the network.</footer>",
-    ]
+    with warnings.catch_warnings():
+        # A name in a script the plot font lacks is drawn as boxes; the report
+        # tables show it properly, so matplotlib's warning is no news to the user.
+        warnings.filterwarnings("ignore", message="Glyph .* missing from font", category=UserWarning)
+        body = [
+            f"<header><h1>{_e(title)}</h1><p class=\"meta\">{_e(meta)}</p></header>",
+            _verdict(data),
+            _why(data),
+            _cautions(data),
+            _graph(data),
+            _edges(data),
+            _variables(data),
+            _plots(data, samples, max_edge_plots, max_qq_plots),
+            _methods(data),
+            _settings(data),
+            _input(data),
+            _all_checks(data),
+            f"<footer>Written by {_e(data['tool']['name'])} {_e(data['tool']['version'])}. "
+            "This file is self-contained: it loads nothing from the network.</footer>",
+        ]
     return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
             f"<title>{_e(title)}</title>\n<style>{_CSS}</style>\n<script>{_PRINT_SCRIPT}</script>\n</head>\n<body>\n"

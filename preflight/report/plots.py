@@ -345,9 +345,12 @@ def _text_width(text: str, size: float) -> float:
     from matplotlib.font_manager import FontProperties
     from matplotlib.textpath import TextPath
 
+    import matplotlib
+
     if not text:
         return 0.0
-    path = TextPath((0, 0), text, size=size, prop=FontProperties(family="DejaVu Sans"))
+    with matplotlib.rc_context({"text.parse_math": False}):
+        path = TextPath((0, 0), text, size=size, prop=FontProperties(family="DejaVu Sans"))
     return float(path.get_extents().width)
 
 
