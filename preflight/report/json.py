@@ -1,10 +1,11 @@
-"""JSON report: schema, validation and an atomic writer."""
+"""JSON report: the schema, and reading a saved report back (validated against it).
+
+Reports are written by :mod:`preflight.outputs`.
+"""
 
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 from importlib import resources
 from typing import Any
 
@@ -15,24 +16,6 @@ def schema_text() -> str:
 
 def schema() -> dict[str, Any]:
     return json.loads(schema_text())
-
-
-def write_atomic(path: str, text: str) -> None:
-    """Write ``text`` to ``path`` whole or not at all (temporary file, then rename)."""
-    folder = os.path.dirname(os.path.abspath(path))
-    handle, tmp = tempfile.mkstemp(prefix=".preflight-", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as out:
-            out.write(text)
-            out.flush()
-            os.fsync(out.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
 
 
 def read_report(path: str) -> dict[str, Any]:
