@@ -9,6 +9,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import numbers
 import os
 import re
 import sys
@@ -206,13 +207,15 @@ def _as_numbers(column, name: str):
 
     if pd.api.types.is_complex_dtype(column):
         raise InputError(f"column {name!r} holds complex numbers; split them into real columns")
+    if pd.api.types.is_datetime64_any_dtype(column) or isinstance(column.dtype, pd.PeriodDtype):
+        return None, 0, " (dates and times)"
     if pd.api.types.is_bool_dtype(column) or pd.api.types.is_numeric_dtype(column):
         try:
             return column.to_numpy(dtype=np.float64, na_value=np.nan), 0, ""
         except (TypeError, ValueError):
             pass
     cells = column.astype(object)
-    stripped = cells.map(lambda v: v.strip() if isinstance(v, str) else v)
+    stripped = cells.map(lambda v: _cell_value(v, pd))
     try:
         values = pd.to_numeric(stripped, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
     except (OverflowError, TypeError, ValueError):
@@ -232,6 +235,16 @@ def _as_numbers(column, name: str):
     values = values.copy()
     values[stray_mask] = np.nan
     return values, stray, example
+
+
+def _cell_value(value, pd):
+    """A cell as to_numeric should see it: text stripped; numbers and missing markers as they are;
+    anything else (a date, a list, an object) as text that is not a number."""
+    if isinstance(value, str):
+        return value.strip()
+    if isinstance(value, numbers.Number) or value is None or value is pd.NA or value is pd.NaT:
+        return value
+    return f"<{type(value).__name__}>"
 
 
 def _one_number(value) -> float:
