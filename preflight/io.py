@@ -24,11 +24,9 @@ PARQUET_EXTENSIONS = (".parquet", ".pq")
 TSV_EXTENSIONS = (".tsv", ".tab")
 NA_TOKENS = ("NA", "NaN", "nan", "null", "NULL", ".")
 """Cells read as missing values (besides empty cells)."""
-
-
 MIN_ROWS = 3
-_LINE_BREAK = re.compile(r"\r\n|\r|\n")
 """Fewest complete rows any check can use; below, the input is refused."""
+_LINE_BREAK = re.compile(r"\r\n|\r|\n")
 STRAY_MAX_SHARE = 0.05
 """A text column is still numeric when at most this share of its non-empty cells (or a single
 cell) are not numbers; those cells count as missing values.  More, and it is a text column."""
@@ -155,6 +153,9 @@ def _frame_from_text(text: str, sep: str, label: str):
     except (pd.errors.ParserError, ValueError) as exc:
         message = str(exc).strip().splitlines()[-1]
         raise InputError(f"{label} could not be parsed as a table: {message}") from None
+    if frame.shape[1] != len(header):
+        raise InputError(f"{label}: the header has {len(header)} fields but the table reads as "
+                         f"{frame.shape[1]} columns; check the quoting of the header")
     frame.columns = header
     return frame
 

@@ -89,7 +89,7 @@ def test_random_tables_never_exit_3(tmp_path_factory, text, options):
     _check_table(tmp_path_factory, text, options)
 
 
-@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
+@settings(max_examples=20, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
                                                                  HealthCheck.function_scoped_fixture])
 @given(text=tables(MODERATE_EXPONENTS))
 def test_random_names_render_in_html(tmp_path_factory, text):
