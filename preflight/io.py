@@ -353,8 +353,10 @@ def load_table(
     if missing_by_column:
         if missing == "error":
             first = next(iter(missing_by_column))
+            strays = (f", {stray_by_column[first]} of them cells that are not numbers"
+                      if stray_by_column.get(first) else "")
             raise InputError(
-                f"column {first!r} has {missing_by_column[first]} missing value(s); "
+                f"column {first!r} has {missing_by_column[first]} missing value(s){strays}; "
                 f"use --missing drop to drop incomplete rows"
             )
         keep = ~is_missing.any(axis=1)
