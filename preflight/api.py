@@ -62,6 +62,10 @@ def check(
         policy = replace(policy, **settings)
     progress = progress or _no_progress
     loaded = load_table(data, sep=sep, columns=columns, exclude=exclude, missing=missing)
+    if graph is not None:
+        from preflight.graph import read_graph_file
+
+        read_graph_file(graph, list(loaded.names))  # a bad graph file fails before any computation
     return analyse(loaded, policy, graph=graph, progress=progress, keep_samples=keep_samples)
 
 

@@ -72,46 +72,63 @@ def cli() -> None:
     """
 
 
-def _render_outputs(report, json_path, markdown_path, html_path, junit_path,
-                    graph_path=None) -> list[tuple[str, str]]:
-    outputs = []
-    if json_path:
-        outputs.append((json_path, report.to_json()))
-    if markdown_path:
-        from preflight.report.markdown import render_markdown
+def _plan_outputs(inputs, json_path=None, markdown_path=None, html_path=None, junit_path=None, graph_path=None):
+    """Every output checked before any computation (see preflight.outputs)."""
+    from preflight.outputs import plan_outputs
 
-        outputs.append((markdown_path, render_markdown(report)))
-    if html_path:
-        from preflight.report.html import render_html
-
-        outputs.append((html_path, render_html(report)))
-    if junit_path:
-        from preflight.report.junit import render_junit
-
-        outputs.append((junit_path, render_junit(report.data)))
-    if graph_path:
-        from preflight.report.discovery import graph_format, render_graph
-
-        outputs.append((graph_path, render_graph(report.data, graph_format(graph_path))))
-    return outputs
+    return plan_outputs([("--json", json_path), ("--markdown", markdown_path), ("--html", html_path),
+                         ("--junit", junit_path), ("--graph-out", graph_path)], inputs)
 
 
-def _write_all(outputs: list[tuple[str, str]]) -> None:
-    from preflight.report.json import write_atomic
+def _render_outputs(report, targets) -> list:
+    """Every report rendered in memory first, so a failure leaves no file behind."""
+    rendered = []
+    for target in targets:
+        if target.option == "--json":
+            text = report.to_json()
+        elif target.option == "--markdown":
+            from preflight.report.markdown import render_markdown
 
-    for path, _ in outputs:
-        folder = os.path.dirname(os.path.abspath(path))
-        if not os.path.isdir(folder):
-            raise InputError(f"cannot write {path}: folder {folder} does not exist")
-    for path, text in outputs:
-        write_atomic(path, text)
+            text = render_markdown(report)
+        elif target.option == "--html":
+            from preflight.report.html import render_html
+
+            text = render_html(report)
+        elif target.option == "--junit":
+            from preflight.report.junit import render_junit
+
+            text = render_junit(report.data)
+        else:
+            from preflight.report.discovery import graph_format, render_graph
+
+            text = render_graph(report.data, graph_format(target.path))
+        rendered.append((target, text))
+    return rendered
 
 
-def _print_summary(report, quiet: bool, no_color: bool) -> None:
+def _write_all(rendered) -> None:
+    from preflight.outputs import write_outputs
+
+    write_outputs(rendered)
+
+
+def _print_warnings(report, quiet: bool) -> None:
+    """What the input lost (skipped columns, stray cells, dropped rows), on stderr as well as in the report."""
+    from preflight.report.text import visible
+
+    if quiet:
+        return
+    for warning in report.data["input"].get("warnings") or []:
+        click.echo(f"preflight: warning: {visible(warning)}", err=True)
+
+
+def _print_summary(report, quiet: bool, no_color: bool, targets=()) -> None:
+    """The terminal summary; on stderr when a report itself goes to standard output."""
     from preflight.report.text import render_text
 
-    style = click.style if _use_colour(no_color) else None
-    click.echo(render_text(report.data, style=style, quiet=quiet), nl=False)
+    to_stderr = any(t.kind == "stdout" for t in targets)
+    style = click.style if _use_colour(no_color) and not to_stderr else None
+    click.echo(render_text(report.data, style=style, quiet=quiet), nl=False, err=to_stderr)
 
 
 def _graph_path_checked(ctx, param, value):
@@ -127,7 +144,8 @@ def _graph_path_checked(ctx, param, value):
 
 
 output_options = [
-    click.option("--json", "json_path", metavar="PATH", help="Write the JSON report (schema version 1) here."),
+    click.option("--json", "json_path", metavar="PATH",
+                 help="Write the JSON report (schema version 1) here; - for standard output."),
     click.option("--markdown", "markdown_path", metavar="PATH", help="Write a Markdown report for a study appendix."),
     click.option("--html", "html_path", metavar="PATH", help="Write a self-contained HTML report with plots."),
     click.option("--junit", "junit_path", metavar="PATH", help="Write every check as a JUnit XML test case."),
@@ -178,15 +196,18 @@ def check_command(data, sep, columns, exclude, missing, graph, require, fail_on,
                           min_rows=min_rows, rows_unordered=rows_unordered, jobs=jobs,
                           fail_on=",".join(fail) if fail else None)
     policy, _ = build_policy(overrides, policy_file=policy_file)
+    targets = _plan_outputs([data, graph, policy_file], json_path, markdown_path, html_path, junit_path,
+                           graph_path)
     progress = _Progress(enabled=not quiet)
     try:
         report = check(data, sep=sep, columns=_split(columns), exclude=_split(exclude), missing=missing,
                        graph=graph, policy=policy, progress=progress,
-                       keep_samples=bool(html_path))
+                       keep_samples=html_path is not None)
     finally:
         progress.clear()
-    _write_all(_render_outputs(report, json_path, markdown_path, html_path, junit_path, graph_path))
-    _print_summary(report, quiet, no_color)
+    _write_all(_render_outputs(report, targets))
+    _print_warnings(report, quiet)
+    _print_summary(report, quiet, no_color, targets)
     sys.exit(EXIT_PASS if report.passed else EXIT_WEAKER)
 
 
@@ -210,18 +231,22 @@ def demo_command(out_dir, rows, seed, quiet, no_color):
 
     if rows < 10:
         raise InputError("--rows must be at least 10")
-    os.makedirs(out_dir, exist_ok=True)
-    data_path = write_demo_csv(os.path.join(out_dir, "kiln.csv"), n=rows)
+    try:
+        os.makedirs(out_dir, exist_ok=True)
+        data_path = write_demo_csv(os.path.join(out_dir, "kiln.csv"), n=rows)
+    except OSError as exc:
+        raise InputError(f"cannot write the demo to {out_dir}: {exc.strerror or exc}") from None
     policy, _ = build_policy({"seed": seed} if seed is not None else {})
+    names = {"json": "kiln-report.json", "markdown": "kiln-report.md", "html": "kiln-report.html",
+             "junit": "kiln-checks.xml"}
+    paths = {k: os.path.join(out_dir, v) for k, v in names.items()}
+    targets = _plan_outputs([data_path], paths["json"], paths["markdown"], paths["html"], paths["junit"])
     progress = _Progress(enabled=not quiet)
     try:
         report = check(data_path, policy=policy, progress=progress)
     finally:
         progress.clear()
-    names = {"json": "kiln-report.json", "markdown": "kiln-report.md", "html": "kiln-report.html",
-             "junit": "kiln-checks.xml"}
-    paths = {k: os.path.join(out_dir, v) for k, v in names.items()}
-    _write_all(_render_outputs(report, paths["json"], paths["markdown"], paths["html"], paths["junit"]))
+    _write_all(_render_outputs(report, targets))
     _print_summary(report, quiet, no_color)
     if not quiet:
         click.echo("")
@@ -241,9 +266,10 @@ def report_command(report_json, markdown_path, html_path, junit_path, graph_path
     from preflight.report.json import read_report
     from preflight.report.model import Report
 
+    targets = _plan_outputs([report_json], None, markdown_path, html_path, junit_path, graph_path)
     report = Report.from_dict(read_report(report_json))
-    _write_all(_render_outputs(report, None, markdown_path, html_path, junit_path, graph_path))
-    _print_summary(report, quiet, no_color)
+    _write_all(_render_outputs(report, targets))
+    _print_summary(report, quiet, no_color, targets)
 
 
 @cli.command("compare")
@@ -262,14 +288,16 @@ def compare_command(old_json, new_json, require, markdown_path, quiet, no_color)
     the same way in the new one; 0 otherwise; 2 when either file is not a
     valid report.
     """
+    from preflight.outputs import plan_outputs
     from preflight.report.compare import compare_reports, render_comparison_markdown, render_comparison_text
     from preflight.report.json import read_report
 
+    targets = plan_outputs([("--markdown", markdown_path)], [old_json, new_json])
     comparison = compare_reports(read_report(old_json), read_report(new_json), require=require)
-    if markdown_path:
-        _write_all([(markdown_path, render_comparison_markdown(comparison))])
-    style = click.style if _use_colour(no_color) else None
-    click.echo(render_comparison_text(comparison, style=style, quiet=quiet), nl=False)
+    _write_all([(target, render_comparison_markdown(comparison)) for target in targets])
+    to_stderr = any(t.kind == "stdout" for t in targets)
+    style = click.style if _use_colour(no_color) and not to_stderr else None
+    click.echo(render_comparison_text(comparison, style=style, quiet=quiet), nl=False, err=to_stderr)
     sys.exit(EXIT_PASS if comparison.passed else EXIT_WEAKER)
 
 
@@ -327,7 +355,9 @@ def main(argv: list[str] | None = None) -> None:
         click.echo(f"preflight: error: {exc.format_message()}", err=True)
         sys.exit(EXIT_INPUT)
     except InputError as exc:
-        message = " ".join(str(exc).split())
+        from preflight.report.text import visible
+
+        message = visible(" ".join(str(exc).split()))
         click.echo(f"preflight: error: {message}", err=True)
         sys.exit(EXIT_INPUT)
     except BrokenPipeError:

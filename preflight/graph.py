@@ -876,6 +876,9 @@ def read_graph_file(path, names: Sequence[str]) -> np.ndarray:
         edges = _csv_edges(text, label)
     else:
         edges = _arrow_edges(lines, label)
+    if not edges:
+        raise InputError(f"graph file {label} names no edge; a hypothesised graph needs at least one "
+                         "(lines 'a -> b' or a CSV with columns source,target)")
 
     dag = np.zeros((len(names), len(names)), dtype=np.int8)
     for line, source, target in edges:

@@ -9,7 +9,9 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import numbers
 import os
+import re
 import sys
 from dataclasses import dataclass, field
 
@@ -20,6 +22,14 @@ from preflight.errors import InputError
 PARQUET_MAGIC = b"PAR1"
 PARQUET_EXTENSIONS = (".parquet", ".pq")
 TSV_EXTENSIONS = (".tsv", ".tab")
+NA_TOKENS = ("NA", "NaN", "nan", "null", "NULL", ".")
+"""Cells read as missing values (besides empty cells)."""
+MIN_ROWS = 3
+"""Fewest complete rows any check can use; below, the input is refused."""
+_LINE_BREAK = re.compile(r"\r\n|\r|\n")
+STRAY_MAX_SHARE = 0.05
+"""A text column is still numeric when at most this share of its non-empty cells (or a single
+cell) are not numbers; those cells count as missing values.  More, and it is a text column."""
 
 
 @dataclass(frozen=True)
@@ -36,11 +46,21 @@ class LoadedData:
     rows_used: int
     missing_by_column: dict[str, int] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+    stray_by_column: dict[str, int] = field(default_factory=dict)
+    """Cells per column that were not numbers and are counted as missing (see STRAY_MAX_SHARE)."""
 
 
 def _read_source_bytes(source: str) -> bytes:
     if source == "-":
-        return sys.stdin.buffer.read()
+        stream = getattr(sys.stdin, "buffer", None)
+        try:
+            if stream is None or stream.closed:
+                raise InputError("standard input is closed: pipe a CSV table into `preflight check -`")
+            return stream.read()
+        except InputError:
+            raise
+        except (OSError, ValueError) as exc:
+            raise InputError(f"cannot read standard input: {getattr(exc, 'strerror', None) or exc}") from None
     if os.path.isdir(source):
         raise InputError(f"{source} is a folder, not a data file")
     try:
@@ -74,21 +94,45 @@ def _decode_text(raw: bytes, label: str) -> str:
     return text
 
 
+def _separator_hint(header: list[str], sep: str) -> str:
+    """A suggestion when a one-field header looks split by another separator."""
+    if len(header) != 1:
+        return ""
+    for other, shown in ((";", "';'"), ("\t", "tab"), ("|", "'|'")):
+        if other != sep and other in header[0]:
+            comma = " (with decimal commas, convert them to points first)" if other == ";" else ""
+            return f"; the header looks separated by {shown}: try --sep {shown}{comma}"
+    return ""
+
+
 def _check_ragged(text: str, sep: str, label: str) -> list[str]:
-    """Return the header fields; refuse rows with a different number of fields."""
-    lines = text.splitlines()
+    """Return the header fields; refuse rows with a different number of fields.
+
+    With quotes in the text the csv module reads the records, so a quoted
+    field may hold the separator, a newline or a carriage return.
+    """
     if '"' in text:
-        rows = csv.reader(lines, delimiter=sep)
-        counts = ((i, len(row)) for i, row in enumerate(rows, start=1) if row)
-        header = next(csv.reader(lines[:1], delimiter=sep))
+        reader = csv.reader(io.StringIO(text, newline=""), delimiter=sep, skipinitialspace=True)
+        records = []
+        for row in reader:
+            if len(row) > 1 or (row and row[0].strip()):
+                records.append((reader.line_num, len(row), row))
+        if not records:
+            raise InputError(f"{label} is empty")
+        header = records[0][2]
+        counts = ((line_no, count) for line_no, count, _ in records)
     else:
+        # Only CR and LF end a record; str.splitlines() would also split at
+        # form feeds, U+0085 or U+2028 inside a column name.
+        lines = _LINE_BREAK.split(text)
         counts = ((i, line.count(sep) + 1) for i, line in enumerate(lines, start=1) if line.strip())
-        header = lines[0].split(sep)
+        header = next(line for line in lines if line.strip()).split(sep)
     expected = len(header)
     for line_no, count in counts:
         if count != expected:
             raise InputError(
                 f"{label}: line {line_no} has {count} fields but the header has {expected} (ragged rows)"
+                + _separator_hint(header, sep)
             )
     return [h.strip() for h in header]
 
@@ -105,10 +149,13 @@ def _frame_from_text(text: str, sep: str, label: str):
     _refuse_duplicates(header, label)
     try:
         frame = pd.read_csv(io.StringIO(text), sep=sep, skipinitialspace=True, skip_blank_lines=True,
-                            na_values=["", "NA", "NaN", "nan", "null", "NULL", "."], keep_default_na=True)
+                            na_values=["", *NA_TOKENS], keep_default_na=True)
     except (pd.errors.ParserError, ValueError) as exc:
         message = str(exc).strip().splitlines()[-1]
         raise InputError(f"{label} could not be parsed as a table: {message}") from None
+    if frame.shape[1] != len(header):
+        raise InputError(f"{label}: the header has {len(header)} fields but the table reads as "
+                         f"{frame.shape[1]} columns; check the quoting of the header")
     frame.columns = header
     return frame
 
@@ -126,11 +173,93 @@ def _frame_from_parquet(raw: bytes, label: str):
     import pyarrow.parquet as pq
 
     try:
-        table = pq.read_table(io.BytesIO(raw))
+        parquet = pq.ParquetFile(io.BytesIO(raw))
+        names = list(parquet.schema_arrow.names)
     except (pa.ArrowException, OSError) as exc:
-        raise InputError(f"{label} is not a readable Parquet file: {exc}") from None
-    _refuse_duplicates(table.column_names, label)
-    return table.to_pandas()
+        raise InputError(f"{label} is not a readable Parquet file: {_first_line(exc)}") from None
+    _refuse_duplicates(names, label)
+    if parquet.metadata.num_rows == 0:
+        # Checked before any column is read: converting an empty table has
+        # aborted the interpreter from pyarrow's thread pool.
+        raise InputError(f"{label} has a header but no data rows")
+    try:
+        table = parquet.read(use_threads=False)
+        return table.to_pandas(use_threads=False)
+    except (pa.ArrowException, OSError, ValueError) as exc:
+        raise InputError(f"{label} is not a readable Parquet file: {_first_line(exc)}") from None
+
+
+def _first_line(exc: BaseException) -> str:
+    lines = [line.strip() for line in str(exc).splitlines() if line.strip()]
+    return lines[0] if lines else type(exc).__name__
+
+
+def _as_numbers(column, name: str):
+    """(float64 values or None when the column is text, count of stray cells, an example for messages).
+
+    Numeric, boolean and nullable dtypes convert directly.  Anything else
+    (text read from a file, object columns of Python numbers or Decimal,
+    categoricals) is parsed cell by cell; empty cells stay missing, and cells
+    that are not numbers are stray tokens.  Up to ``STRAY_MAX_SHARE`` of the
+    non-empty cells (at least one) they count as missing values; more, and
+    the column is text.
+    """
+    import pandas as pd
+
+    if pd.api.types.is_complex_dtype(column):
+        raise InputError(f"column {name!r} holds complex numbers; split them into real columns")
+    if pd.api.types.is_datetime64_any_dtype(column) or isinstance(column.dtype, pd.PeriodDtype):
+        return None, 0, " (dates and times)"
+    if pd.api.types.is_bool_dtype(column) or pd.api.types.is_numeric_dtype(column):
+        try:
+            return column.to_numpy(dtype=np.float64, na_value=np.nan), 0, ""
+        except (TypeError, ValueError):
+            pass
+    cells = column.astype(object)
+    stripped = cells.map(lambda v: _cell_value(v, pd))
+    try:
+        values = pd.to_numeric(stripped, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    except (OverflowError, TypeError, ValueError):
+        values = np.array([_one_number(v) for v in stripped], dtype=np.float64)
+    blank = stripped.map(lambda v: isinstance(v, str) and v in ("", *NA_TOKENS)).to_numpy(dtype=bool)
+    filled = stripped.notna().to_numpy(dtype=bool) & ~blank
+    stray_mask = np.isnan(values) & filled
+    stray = int(stray_mask.sum())
+    present = int(filled.sum())
+    example = ""
+    if stray:
+        k = int(np.flatnonzero(stray_mask)[0])
+        example = f" (e.g. {_shown(cells.iloc[k])} in data row {k + 1})"
+    limit = max(1, int(STRAY_MAX_SHARE * present))
+    if stray > limit or stray >= present:
+        return None, stray, example
+    values = values.copy()
+    values[stray_mask] = np.nan
+    return values, stray, example
+
+
+def _cell_value(value, pd):
+    """A cell as to_numeric should see it: text stripped; numbers and missing markers as they are;
+    anything else (a date, a list, an object) as text that is not a number."""
+    if isinstance(value, str):
+        return value.strip()
+    if isinstance(value, numbers.Number) or value is None or value is pd.NA or value is pd.NaT:
+        return value
+    return f"<{type(value).__name__}>"
+
+
+def _one_number(value) -> float:
+    try:
+        return float(value)
+    except OverflowError:
+        return float("inf") if value > 0 else float("-inf")
+    except (TypeError, ValueError):
+        return float("nan")
+
+
+def _shown(value) -> str:
+    text = repr(value) if isinstance(value, str) else repr(str(value))
+    return text if len(text) <= 40 else text[:37] + "...'"
 
 
 def sha256_of(raw: bytes) -> str:
@@ -193,25 +322,27 @@ def load_table(
 
     warnings: list[str] = []
     numeric: list[str] = []
+    converted: dict[str, np.ndarray] = {}
+    stray_by_column: dict[str, int] = {}
     for name in chosen:
-        column = frame[name]
-        if pd.api.types.is_bool_dtype(column):
-            numeric.append(name)
+        parsed, stray, example = _as_numbers(frame[name], name)
+        if parsed is None:
+            if asked is not None:
+                raise InputError(f"column {name!r} is not numeric{example}")
+            warnings.append(f"skipped non-numeric column {name!r}{example}")
             continue
-        if pd.api.types.is_numeric_dtype(column):
-            numeric.append(name)
-            continue
-        text_values = column.dropna().astype(str)
-        bad = text_values[pd.to_numeric(text_values, errors="coerce").isna()]
-        example = f" (e.g. {bad.iloc[0]!r} in data row {int(bad.index[0]) + 1})" if len(bad) else ""
-        if asked is not None:
-            raise InputError(f"column {name!r} is not numeric{example}")
-        warnings.append(f"skipped non-numeric column {name!r}{example}")
+        numeric.append(name)
+        converted[name] = parsed
+        if stray:
+            stray_by_column[name] = stray
+            warnings.append(f"column {name!r}: {stray} cell(s) that are not numbers{example} "
+                            "treated as missing values")
     if len(numeric) < 2:
         found = f"found {len(numeric)}" + (f" ({numeric[0]})" if numeric else "")
-        raise InputError(f"{label} needs at least 2 numeric columns to analyse, {found}")
+        hint = _separator_hint(names, _choose_separator(path, sep)) if not isinstance(source, pd.DataFrame) else ""
+        raise InputError(f"{label} needs at least 2 numeric columns to analyse, {found}{hint}")
 
-    values = frame[numeric].to_numpy(dtype=np.float64, na_value=np.nan, copy=True)
+    values = np.column_stack([converted[name] for name in numeric])
     infinite = np.isinf(values)
     if infinite.any():
         j = int(np.flatnonzero(infinite.any(axis=0))[0])
@@ -222,8 +353,10 @@ def load_table(
     if missing_by_column:
         if missing == "error":
             first = next(iter(missing_by_column))
+            strays = (f", {stray_by_column[first]} of them cells that are not numbers"
+                      if stray_by_column.get(first) else "")
             raise InputError(
-                f"column {first!r} has {missing_by_column[first]} missing value(s); "
+                f"column {first!r} has {missing_by_column[first]} missing value(s){strays}; "
                 f"use --missing drop to drop incomplete rows"
             )
         keep = ~is_missing.any(axis=1)
@@ -231,6 +364,8 @@ def load_table(
         warnings.append(f"dropped {rows - int(keep.sum())} of {rows} rows with missing values")
     if values.shape[0] == 0:
         raise InputError(f"{label}: no row is complete in the analysed columns")
+    if values.shape[0] < MIN_ROWS:
+        raise InputError(f"{label} has only {values.shape[0]} usable row(s); at least {MIN_ROWS} are needed")
     return LoadedData(
         values=np.ascontiguousarray(values),
         names=tuple(numeric),
@@ -240,4 +375,5 @@ def load_table(
         rows_used=int(values.shape[0]),
         missing_by_column=missing_by_column,
         warnings=tuple(warnings),
+        stray_by_column=stray_by_column,
     )

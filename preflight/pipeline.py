@@ -368,6 +368,10 @@ def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progre
 
 def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
         keep_samples: bool) -> Report:
+    from preflight.policy import working_seed
+
+    requested = policy  # echoed in the report as the user gave it
+    policy = replace(policy, seed=working_seed(policy.seed))
     X, names = loaded.values, loaded.names
     n, p = X.shape
     var_flags, var_checks = _screen(loaded, policy)
@@ -553,7 +557,7 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
     passed = meets(outcome.level, policy.require) and not failing_flags
 
     cautions = list(CAUTIONS) + list(outcome.cautions) + [f"Input: {w}" for w in loaded.warnings]
-    settings = policy.to_dict()
+    settings = requested.to_dict()
     report = {
         "schema_version": "1",
         "tool": {"name": "preflight", "version": __version__},

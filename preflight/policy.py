@@ -25,6 +25,34 @@ LEVELS: tuple[str, ...] = (
 
 CORRECTIONS = ("holm", "fdr_bh")
 
+PAIR_FLAGS = ("gaussian-noise", "nonlinear", "heteroscedastic", "confounding-suspected", "no-association")
+VARIABLE_FLAGS = ("constant", "discrete", "heavy-tailed", "outliers", "autocorrelated", "missing-values", "collinear")
+GLOBAL_FLAGS = ("too-few-rows", "too-few-rows-to-orient", "multiple-gaussian-components", "dependent-components",
+                "varsortable", "duplicate-rows")
+FLAGS: tuple[str, ...] = PAIR_FLAGS + VARIABLE_FLAGS + GLOBAL_FLAGS
+"""The flag vocabulary (DESIGN.md): every flag a report can raise, and so every name --fail-on accepts."""
+
+ALPHA_MAX = 0.5
+"""Largest significance level accepted: above it a test rejects more often than not under its null."""
+
+
+SEED_LIMIT = 2**32
+"""Random generators (FastICA's among them) take seeds below this."""
+
+
+def working_seed(seed: int) -> int:
+    """The seed the random generators get for a policy seed.
+
+    Seeds below ``SEED_LIMIT`` are used as they are, so their reports never
+    change; a larger one is mapped through numpy's SeedSequence to a 32-bit
+    seed, so any whole number of 0 or more can be given.
+    """
+    if seed < SEED_LIMIT:
+        return seed
+    import numpy as np
+
+    return int(np.random.SeedSequence(seed).generate_state(1)[0])
+
 
 def level_rank(level: str) -> int:
     """0 for the strongest rung; larger is weaker."""
@@ -148,7 +176,13 @@ class Policy:
     """Worker processes for the pair battery; 0 means the cores available."""
 
     def __post_init__(self) -> None:
-        _check_range("alpha", self.alpha, 0.0, 1.0, open_ends=True)
+        if not 0.0 < self.alpha <= ALPHA_MAX:
+            raise InputError(f"policy alpha (the significance level) must lie in (0, {ALPHA_MAX}], got {self.alpha}")
+        if isinstance(self.seed, bool) or not isinstance(self.seed, int) or self.seed < 0:
+            raise InputError(f"policy seed must be a whole number of 0 or more, got {self.seed!r}")
+        unknown = [flag for flag in self.fail_on if flag not in FLAGS]
+        if unknown:
+            raise InputError(f"unknown flag {unknown[0]!r} in fail_on (--fail-on); valid flags: {', '.join(FLAGS)}")
         if self.correction not in CORRECTIONS:
             raise InputError(f"policy correction must be one of {', '.join(CORRECTIONS)}, got {self.correction!r}")
         if self.require not in LEVELS:
@@ -249,6 +283,8 @@ def _read_toml(path: str) -> dict[str, Any]:
         raise InputError(f"cannot read policy file {path}: {exc.strerror}") from None
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"policy file {path} is not valid TOML: {exc}") from None
+    except UnicodeDecodeError as exc:
+        raise InputError(f"policy file {path} is not UTF-8 text (undecodable byte at offset {exc.start})") from None
 
 
 def build_policy(
@@ -273,8 +309,10 @@ def build_policy(
             origin[key] = pyproject
     if policy_file is not None:
         table = _read_toml(policy_file)
-        if "tool" in table and "preflight" in table.get("tool", {}):
+        if isinstance(table.get("tool"), dict) and "preflight" in table["tool"]:
             table = table["tool"]["preflight"]
+        if not isinstance(table, dict):
+            raise InputError(f"[tool.preflight] in policy file {policy_file} must be a table")
         for key, value in table.items():
             values[key] = _coerce(key, value, policy_file)
             origin[key] = policy_file

@@ -554,9 +554,11 @@ def test_both_graph_file_formats_parse_to_the_same_dag(tmp_path):
     for path in (arrows, table, sniffed):
         dag = read_graph_file(path, NAMES)
         assert dag.dtype == np.int8 and np.array_equal(dag, TRUE)
+    # A graph without edges would pass any gate vacuously: refused (issue 21, item 7).
     empty = tmp_path / "empty.txt"
     empty.write_text("# no edges yet\n")
-    assert not read_graph_file(empty, NAMES).any()
+    with pytest.raises(InputError, match="names no edge"):
+        read_graph_file(empty, NAMES)
 
 
 @pytest.mark.parametrize("name, content, fragments", [

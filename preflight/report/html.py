@@ -14,6 +14,7 @@ and says so in place of those plots.
 from __future__ import annotations
 
 import html
+import warnings
 import re
 from typing import Any, Sequence
 
@@ -25,6 +26,7 @@ from preflight.report.markdown import (
     edge_text,
     findings_explained,
     gate_outcome,
+    fmt_count,
     fmt_number,
     fmt_p,
     fmt_setting,
@@ -162,13 +164,13 @@ def _kv(rows: Sequence[tuple[str, str]]) -> str:
 def _check_table(checks: Sequence[dict[str, Any]]) -> str:
     rows = []
     for c in checks:
-        effect = fmt_number(c["effect"])
+        effect = _e(fmt_number(c["effect"]))
         if c["effect"] is not None and c.get("effect_name"):
             effect += f' <span class="none">({_e(c["effect_name"])})</span>'
         failed = ' class="failed"' if c["passed"] is False else ""
         rows.append(f"<tr{failed}><td>{_e(c['name'])}</td><td class=\"num\">{_e(fmt_number(c['statistic']))}</td>"
                     f"<td class=\"num\">{_e(fmt_p(c['p_value']))}</td><td class=\"num\">{_e(fmt_p(c['p_adjusted']))}</td>"
-                    f"<td>{effect}</td><td class=\"num\">{c['n']}</td>{_result_cell(c['passed'])}"
+                    f"<td>{effect}</td><td class=\"num\">{_e(c['n'])}</td>{_result_cell(c['passed'])}"
                     f"<td class=\"note\">{_e(c.get('note') or '')}</td></tr>")
     return _table(CHECK_HEADER, rows)
 
@@ -209,7 +211,7 @@ def _verdict(data: dict[str, Any]) -> str:
             f'<p class="plain">{_e(plain)}</p>'
             f'<p class="facts">Required level: <strong>{_e(c["required"])}</strong> '
             f'({_e(conclusion_words(c["required"]))}): {_e(gate)}. '
-            f'Edges oriented: <strong>{c["edges_oriented"]} of {c["edges_total"]}</strong>.</p>'
+            f'Edges oriented: <strong>{_e(c["edges_oriented"])} of {_e(c["edges_total"])}</strong>.</p>'
             "</div></section>")
 
 
@@ -396,8 +398,8 @@ def _input(data: dict[str, Any]) -> str:
         ("File", f"<code>{_e(inp['path'])}</code>"),
         ("SHA-256 of the input bytes", f"<code>{_e(inp['sha256'])}</code>" if inp.get("sha256")
          else '<span class="none">not read from a file</span>'),
-        ("Rows read", f"{inp['rows']:,}"),
-        ("Rows used", f"{inp['rows_used']:,}"),
+        ("Rows read", _e(fmt_count(inp["rows"]))),
+        ("Rows used", _e(fmt_count(inp["rows_used"]))),
         ("Columns", _e(", ".join(inp["columns"]))),
         ("Tool", _e(f"{data['tool']['name']} {data['tool']['version']} (report schema {data['schema_version']})")),
         ("Generated at", _e(data["generated_at"])),
@@ -439,24 +441,28 @@ def render_html(report: Report, *, max_edge_plots: int = MAX_EDGE_PLOTS, max_qq_
     title = f"Identifiability check of {data['input'].get('path') or 'table'}"
     sha = data["input"].get("sha256")
     meta = (f"{data['tool']['name']} {data['tool']['version']} \u00b7 generated {data['generated_at']} \u00b7 "
-            f"{data['input']['rows_used']:,} of {data['input']['rows']:,} rows used"
+            f"{fmt_count(data['input']['rows_used'])} of {fmt_count(data['input']['rows'])} rows used"
             + (f" \u00b7 SHA-256 {sha[:12]}\u2026" if sha else ""))
-    body = [
-        f"<header><h1>{_e(title)}</h1><p class=\"meta\">{_e(meta)}</p></header>",
-        _verdict(data),
-        _why(data),
-        _cautions(data),
-        _graph(data),
-        _edges(data),
-        _variables(data),
-        _plots(data, samples, max_edge_plots, max_qq_plots),
-        _methods(data),
-        _settings(data),
-        _input(data),
-        _all_checks(data),
-        f"<footer>Written by {_e(data['tool']['name'])} {_e(data['tool']['version'])}. This file is self-contained: "
-        "it loads nothing from the network.</footer>",
-    ]
+    with warnings.catch_warnings():
+        # A name in a script the plot font lacks is drawn as boxes; the report
+        # tables show it properly, so matplotlib's warning is no news to the user.
+        warnings.filterwarnings("ignore", message="Glyph .* missing from font", category=UserWarning)
+        body = [
+            f"<header><h1>{_e(title)}</h1><p class=\"meta\">{_e(meta)}</p></header>",
+            _verdict(data),
+            _why(data),
+            _cautions(data),
+            _graph(data),
+            _edges(data),
+            _variables(data),
+            _plots(data, samples, max_edge_plots, max_qq_plots),
+            _methods(data),
+            _settings(data),
+            _input(data),
+            _all_checks(data),
+            f"<footer>Written by {_e(data['tool']['name'])} {_e(data['tool']['version'])}. "
+            "This file is self-contained: it loads nothing from the network.</footer>",
+        ]
     return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
             "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n"
             f"<title>{_e(title)}</title>\n<style>{_CSS}</style>\n<script>{_PRINT_SCRIPT}</script>\n</head>\n<body>\n"

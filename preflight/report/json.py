@@ -1,10 +1,11 @@
-"""JSON report: schema, validation and an atomic writer."""
+"""JSON report: the schema, and reading a saved report back (validated against it).
+
+Reports are written by :mod:`preflight.outputs`.
+"""
 
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 from importlib import resources
 from typing import Any
 
@@ -15,24 +16,6 @@ def schema_text() -> str:
 
 def schema() -> dict[str, Any]:
     return json.loads(schema_text())
-
-
-def write_atomic(path: str, text: str) -> None:
-    """Write ``text`` to ``path`` whole or not at all (temporary file, then rename)."""
-    folder = os.path.dirname(os.path.abspath(path))
-    handle, tmp = tempfile.mkstemp(prefix=".preflight-", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as out:
-            out.write(text)
-            out.flush()
-            os.fsync(out.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
 
 
 def read_report(path: str) -> dict[str, Any]:
@@ -49,18 +32,23 @@ def read_report(path: str) -> dict[str, Any]:
         raise InputError(f"{path} is not a JSON report: {exc.msg} at line {exc.lineno}") from None
     if not isinstance(data, dict) or data.get("schema_version") != "1":
         raise InputError(f"{path} is not a preflight report of schema version 1")
-    problem = schema_problem(data)
-    if problem:
+    problem = first_schema_problem(data)
+    if problem is not None:
         raise InputError(f"{path} is not a valid preflight report: {problem}")
     return data
 
 
-def schema_problem(data: Any) -> str | None:
-    """The first way ``data`` breaks the report schema, in one line, or ``None`` when it is valid."""
+def first_schema_problem(data: Any) -> str | None:
+    """The first way ``data`` departs from the shipped schema, in one line; None when it conforms."""
     import jsonschema
 
-    error = jsonschema.exceptions.best_match(jsonschema.Draft202012Validator(schema()).iter_errors(data))
-    if error is None:
+    checker = jsonschema.validators.validator_for(schema())(schema())
+    errors = sorted(checker.iter_errors(data), key=lambda e: (len(e.absolute_path), list(map(str, e.absolute_path))))
+    if not errors:
         return None
-    where = "/".join(str(part) for part in error.absolute_path) or "the top level"
-    return f"{' '.join(error.message.split())[:200]} (at {where})"
+    error = errors[0]
+    where = "".join(f"[{p}]" if isinstance(p, int) else f".{p}" for p in error.absolute_path).lstrip(".")
+    message = " ".join(error.message.split())
+    if len(message) > 160:
+        message = message[:157] + "..."
+    return f"{where or 'top level'}: {message}"

@@ -42,7 +42,21 @@ _RC = {
     "xtick.labelsize": 8.0,
     "ytick.labelsize": 8.0,
     "svg.fonttype": "path",
+    # Column names are text, not TeX: "price ($)" must not start mathtext.
+    "text.parse_math": False,
 }
+
+LABEL_MAX_CHARS = 40
+"""Longest column name drawn in a plot; longer ones are cut with an ellipsis (laying out
+thousands of characters of text costs minutes and gigabytes, and helps no reader)."""
+
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
+
+
+def _label(name: Any) -> str:
+    """A column name as drawn: control characters shown as U+FFFD, at most LABEL_MAX_CHARS characters."""
+    text = _CONTROL.sub("\ufffd", str(name))
+    return text if len(text) <= LABEL_MAX_CHARS else text[:LABEL_MAX_CHARS - 1] + "\u2026"
 
 
 # ---------------------------------------------------------------- helpers
@@ -131,9 +145,9 @@ def _partialled(samples: dict[str, Any], pair: dict[str, Any]) -> tuple[np.ndarr
 def _axis_label(name: str, pair: dict[str, Any]) -> str:
     conditioning = pair.get("conditioning") or []
     if not conditioning:
-        return name
-    shown = ", ".join(conditioning[:3]) + (", ..." if len(conditioning) > 3 else "")
-    return f"{name} (given {shown})"
+        return _label(name)
+    shown = ", ".join(_label(c) for c in conditioning[:3]) + (", ..." if len(conditioning) > 3 else "")
+    return f"{_label(name)} (given {shown})"
 
 
 def _scatter(ax, x: np.ndarray, y: np.ndarray) -> None:
@@ -197,12 +211,12 @@ def residual_pair_svg(pair: dict[str, Any], samples: dict[str, Any], *, alpha: f
                 verdict = "looks independent" if p >= alpha else "dependent"
             chosen = "  [reported direction]" if pair.get("orientation") == orientation else ""
             shown_p = _p_text(p)
-            title = (f"{resp_name} on {reg_name}{chosen}\nHSIC p {shown_p if shown_p.startswith('<') else '= ' + shown_p}"
+            title = (f"{_label(resp_name)} on {_label(reg_name)}{chosen}\nHSIC p {shown_p if shown_p.startswith('<') else '= ' + shown_p}"
                      f"{' (' + kind + ')' if kind else ''}: {verdict}")
             titles.append(" ".join(title.split()))
             ax.set_title(title, loc="left")
             ax.set_xlabel(_axis_label(reg_name, pair))
-            ax.set_ylabel(f"residual of {resp_name}")
+            ax.set_ylabel(f"residual of {_label(resp_name)}")
             _style_axes(ax)
         fig.tight_layout(w_pad=2.0)
         return _to_svg(fig, key, title="Residual against regressor. Left: " + titles[0] + ". Right: " + titles[1] + ".")
@@ -237,7 +251,7 @@ def qq_svg(noise: np.ndarray, name: str, *, subtitle: str, key: str) -> str:
             ax.set_ylim(-lim, lim)
         else:
             ax.text(0.5, 0.5, "no variation to plot", ha="center", va="center", transform=ax.transAxes)
-        ax.set_title(f"noise of {name}\n" + subtitle.replace("; ", "\n"), loc="left")
+        ax.set_title(f"noise of {_label(name)}\n" + subtitle.replace("; ", "\n"), loc="left")
         ax.set_xlabel("normal quantile")
         ax.set_ylabel("standardised noise")
         _style_axes(ax)
@@ -308,7 +322,7 @@ def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, max_d
                 linestyle="--", label="straight line (dashed)")
         ax.plot(grid, spline_fitted, color=SPLINE_LINE, linewidth=1.8, linestyle="-",
                 label=f"cubic spline, {df} df (solid)")
-        title = f"{resp_name} on {reg_name}: straight line vs spline{gain_text}"
+        title = f"{_label(resp_name)} on {_label(reg_name)}: straight line vs spline{gain_text}"
         ax.set_title(title, loc="left")
         ax.set_xlabel(_axis_label(reg_name, pair))
         ax.set_ylabel(_axis_label(resp_name, pair))
@@ -331,9 +345,12 @@ def _text_width(text: str, size: float) -> float:
     from matplotlib.font_manager import FontProperties
     from matplotlib.textpath import TextPath
 
+    import matplotlib
+
     if not text:
         return 0.0
-    path = TextPath((0, 0), text, size=size, prop=FontProperties(family="DejaVu Sans"))
+    with matplotlib.rc_context({"text.parse_math": False}):
+        path = TextPath((0, 0), text, size=size, prop=FontProperties(family="DejaVu Sans"))
     return float(path.get_extents().width)
 
 
@@ -520,7 +537,7 @@ def graph_svg(report: dict[str, Any], *, key: str = "graph") -> str:
         notes = list(flags_of.get(name, []))
         if name in gaussian:
             notes.append("Gaussian noise")
-        labels[name] = (name, ", ".join(notes))
+        labels[name] = (_label(name), ", ".join(notes))
     half_h = (_NODE_FONT * 1.25 + _PAD_Y * 2) / 2
     half_h_flagged = (_NODE_FONT * 1.25 + _FLAG_FONT * 1.3 + _PAD_Y * 2) / 2
     half: dict[str, tuple[float, float]] = {}

@@ -2,7 +2,17 @@
 
 from __future__ import annotations
 
+import re
 from typing import Any, Callable
+
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
+_NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
+
+
+def visible(text: Any) -> str:
+    """Text safe to print on a terminal: control characters (newlines and escape sequences in
+    column names, say) shown as backslash escapes instead of acting on the terminal."""
+    return _CONTROL.sub(lambda m: _NAMED.get(m.group(), f"\\x{ord(m.group()):02x}"), str(text))
 
 LEVEL_WORDS = {
     "linear-non-gaussian": "a unique DAG from a linear non-Gaussian analysis",
@@ -70,11 +80,12 @@ def headline(report: dict[str, Any]) -> str:
 
 
 def _arrow(pair: dict[str, Any]) -> str:
+    x, y = visible(pair["x"]), visible(pair["y"])
     if pair["orientation"] == "x->y":
-        return f"{pair['x']} -> {pair['y']}"
+        return f"{x} -> {y}"
     if pair["orientation"] == "y->x":
-        return f"{pair['y']} -> {pair['x']}"
-    return f"{pair['x']} -- {pair['y']}"
+        return f"{y} -> {x}"
+    return f"{x} -- {y}"
 
 
 def render_text(report: dict[str, Any], style: Callable[..., str] | None = None, quiet: bool = False) -> str:
@@ -92,11 +103,11 @@ def render_text(report: dict[str, Any], style: Callable[..., str] | None = None,
         lines.append(f"  {'edge'.ljust(width)}  {'basis'.ljust(24)}  flags")
         for p in edges:
             basis = p["basis"] or "undetermined"
-            lines.append(f"  {_arrow(p).ljust(width)}  {basis.ljust(24)}  {', '.join(p['flags']) or '-'}")
+            lines.append(f"  {_arrow(p).ljust(width)}  {visible(basis).ljust(24)}  {visible(', '.join(p['flags'])) or '-'}")
     lines.append("")
     lines.append("Why:")
     for reason in c["reasons"]:
-        lines.append(f"  - {reason}")
+        lines.append(f"  - {visible(reason)}")
     seen: list[str] = []
     for flag in report["global"]["flags"]:
         seen.append(flag)
