@@ -208,7 +208,7 @@ def test_cli_exit_1_when_the_level_fell_below_require(cli, old, tmp_path):
 
 @pytest.mark.parametrize("content, words", [
     ("not json", "is not a JSON report"),
-    ('{"schema_version": "1"}', "is not a valid preflight report: 'tool' is a required property"),
+    ('{"schema_version": "1"}', "is not a valid preflight report: top level: 'tool' is a required property"),
     ('{"schema_version": "2"}', "schema version 1"),
     ("[1, 2]", "schema version 1"),
 ])
@@ -227,7 +227,7 @@ def test_cli_exit_2_on_a_schema_violation_names_where(cli, old, tmp_path):
     broken = copy.deepcopy(old)
     broken["pairs"][0]["orientation"] = "sideways"
     code, _, err = cli("compare", _save(tmp_path, "old.json", old), _save(tmp_path, "new.json", broken))
-    assert code == 2 and "(at pairs/0/orientation)" in err
+    assert code == 2 and "pairs[0].orientation:" in err
     code, _, err = cli("compare", _save(tmp_path, "old.json", old), str(tmp_path / "missing.json"))
     assert code == 2 and "not found" in err
 

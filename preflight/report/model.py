@@ -110,7 +110,8 @@ class Report:
 
     def write_graph(self, path: str) -> None:
         """Write the justified graph whole or not at all; ``.dot``, ``.graphml`` or ``.json`` picks the format."""
+        from preflight.outputs import plan_outputs, write_outputs
         from preflight.report.discovery import graph_format, render_graph
-        from preflight.report.json import write_atomic
 
-        write_atomic(path, render_graph(self.data, graph_format(path)))
+        text = render_graph(self.data, graph_format(path))
+        write_outputs([(target, text) for target in plan_outputs([("graph", path)])])
