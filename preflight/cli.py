@@ -159,10 +159,6 @@ def check_command(data, sep, columns, exclude, missing, graph, require, fail_on,
                           min_rows=min_rows, rows_unordered=rows_unordered, jobs=jobs,
                           fail_on=",".join(fail) if fail else None)
     policy, _ = build_policy(overrides, policy_file=policy_file)
-    from preflight.pipeline import jobs_note
-
-    if not quiet and jobs_note(policy):
-        click.echo(f"preflight: note: {jobs_note(policy)}", err=True)
     progress = _Progress(enabled=not quiet)
     try:
         report = check(data, sep=sep, columns=_split(columns), exclude=_split(exclude), missing=missing,
@@ -171,6 +167,10 @@ def check_command(data, sep, columns, exclude, missing, graph, require, fail_on,
     finally:
         progress.clear()
     _write_all(_render_outputs(report, json_path, markdown_path, html_path, junit_path))
+    from preflight.pipeline import jobs_note
+
+    if not quiet and jobs_note(policy):  # after the run, so a refused input still gets one line
+        click.echo(f"preflight: note: {jobs_note(policy)}", err=True)
     _print_summary(report, quiet, no_color)
     sys.exit(EXIT_PASS if report.passed else EXIT_WEAKER)
 

@@ -248,8 +248,7 @@ def jobs_note(policy: Policy) -> str | None:
     cores = cores_available()
     if policy.jobs <= cores:
         return None
-    return (f"jobs {policy.jobs} is more than the {cores} core{'s' if cores != 1 else ''} available; "
-            f"using {cores} worker process{'es' if cores != 1 else ''}")
+    return f"jobs {policy.jobs} is more than the {cores} core{'s' if cores != 1 else ''} available; capped at {cores}"
 
 
 def _jobs(policy: Policy, n_pairs: int) -> int:
