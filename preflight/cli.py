@@ -267,7 +267,7 @@ def policy_command():
 
 def main(argv: list[str] | None = None) -> None:
     """Entry point: maps every outcome onto the documented exit codes."""
-    from preflight.interruption import Interrupted, stop_on_signals
+    from preflight.interruption import Interrupted, settle, stop_on_signals
 
     stop_on_signals()
     try:
@@ -297,6 +297,7 @@ def main(argv: list[str] | None = None) -> None:
         click.echo("preflight: interrupted by SIGINT", err=True)
         sys.exit(130)
     except Interrupted as exc:  # workers stopped, temporary files removed on the way out
+        settle()
         click.echo(f"preflight: interrupted by {exc.signal_name}", err=True)
         sys.exit(exc.exit_code)
     except Exception as exc:  # anything else is our bug: say so, never exit 1

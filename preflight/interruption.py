@@ -18,6 +18,7 @@ import os
 import signal
 import sys
 import threading
+import time
 
 SIGNALS = (signal.SIGINT, signal.SIGTERM)
 
@@ -42,8 +43,28 @@ class Interrupted(BaseException):
         return 128 + self.signum
 
 
+class _State:
+    signum: int | None = None
+    settled = False
+
+
+def _handling_interruption() -> bool:
+    """True while this thread runs an except, finally or __exit__ block for an :class:`Interrupted`."""
+    return isinstance(sys.exc_info()[1], Interrupted)
+
+
 def stop_on_signals() -> None:
     """Raise :class:`Interrupted` on SIGINT and SIGTERM in this process.
+
+    Python cannot raise from a signal handler that runs inside a fork hook,
+    a ``__del__`` or a weakref callback: the exception goes to
+    ``sys.unraisablehook`` and the run would go on (a signal landing while
+    the pool forked its workers did exactly that).  So the first signal also
+    starts a thread that sends it again to the main thread every quarter
+    second until :func:`settle` is called, and the hook passes over an
+    :class:`Interrupted` in silence.  While one is being handled (the
+    cleanup on the way out), further signals are ignored, so neither a
+    second Ctrl-C nor a re-sent signal breaks the cleanup half-way.
 
     Only the main thread may set signal handlers; elsewhere this does nothing.
     """
@@ -58,14 +79,38 @@ def stop_on_signals() -> None:
             if signum == signal.SIGTERM:
                 os._exit(128 + signum)
             return
-        # One interruption is enough: a second Ctrl-C must not break the
-        # cleanup half-way (it is bounded, see pipeline._stop_pool).
-        for other in SIGNALS:
-            signal.signal(other, signal.SIG_IGN)
-        raise Interrupted(signum)
+        if _State.settled or _handling_interruption():
+            return
+        if _State.signum is None:
+            _State.signum = signum
+            threading.Thread(target=_send_again, name="preflight-interrupt", daemon=True).start()
+        raise Interrupted(_State.signum)
 
+    previous_hook = sys.unraisablehook
+
+    def unraisable(info):
+        if not isinstance(info.exc_value, Interrupted):  # an Interrupted is sent again shortly
+            previous_hook(info)
+
+    sys.unraisablehook = unraisable
     for signum in SIGNALS:
         signal.signal(signum, interrupt)
+
+
+def _send_again(period: float = 0.25) -> None:
+    main = threading.main_thread()
+    while True:
+        time.sleep(period)
+        if _State.settled or not main.is_alive():
+            return
+        signal.pthread_kill(main.ident, _State.signum)
+
+
+def settle() -> None:
+    """The interruption reached the exit path: ignore SIGINT and SIGTERM from now on."""
+    _State.settled = True
+    for signum in SIGNALS:
+        signal.signal(signum, signal.SIG_IGN)
 
 
 def _die_with_parent_linux() -> bool:
@@ -88,7 +133,7 @@ def _watch_parent(parent_pid: int, interval: float = 0.5) -> None:
         while True:
             if os.getppid() != parent_pid:
                 os._exit(1)
-            threading.Event().wait(interval)
+            time.sleep(interval)
 
     threading.Thread(target=watch, name="preflight-parent-watch", daemon=True).start()
 

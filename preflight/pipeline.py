@@ -284,21 +284,33 @@ def _stop_pool(pool, interrupted: bool) -> None:
     Waiting for queued pairs after an interruption or an error would keep the
     user waiting for a report that will not be written, so the workers are
     sent SIGTERM (their default action: exit), then SIGKILL after a grace
-    period; every step is bounded, so stopping never hangs.
+    period; every wait is bounded, so stopping never hangs.
     """
     if not interrupted:
-        pool.shutdown()
-        return
+        try:
+            pool.shutdown()
+            return
+        except BaseException:  # interrupted while the idle workers were leaving
+            _stop_pool(pool, interrupted=True)
+            raise
     processes = list((getattr(pool, "_processes", None) or {}).values())
     for process in processes:
         if process.is_alive():
             process.terminate()
-    for process in processes:
-        process.join(timeout=2.0)
-        if process.is_alive():
-            process.kill()
-            process.join(timeout=2.0)
+    for process in _join_all(processes, seconds=2.0):
+        process.kill()
+    _join_all(processes, seconds=2.0)
     pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _join_all(processes, seconds: float) -> list:
+    """Wait at most ``seconds`` in all for the processes to end; returns those still alive."""
+    import time
+
+    deadline = time.monotonic() + seconds
+    for process in processes:
+        process.join(timeout=max(0.0, deadline - time.monotonic()))
+    return [process for process in processes if process.is_alive()]
 
 
 def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=None) -> list[PairBattery]:

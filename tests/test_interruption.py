@@ -225,3 +225,32 @@ def test_interrupted_maps_signals_onto_exit_codes():
     assert Interrupted(signal.SIGTERM).exit_code == 143
     assert Interrupted(signal.SIGTERM).signal_name == "SIGTERM"
     assert not isinstance(Interrupted(signal.SIGINT), Exception)
+
+
+def test_an_interruption_swallowed_by_python_is_sent_again():
+    # A signal handler that runs inside a fork hook or a __del__ cannot raise:
+    # Python reports the exception as "ignored" and carries on.  The CLI's
+    # handler sends the signal again until the run unwinds, silently.
+    script = textwrap.dedent("""
+        import os, signal, time
+        from preflight.interruption import Interrupted, settle, stop_on_signals
+
+        stop_on_signals()
+
+        class Swallows:
+            def __del__(self):
+                os.kill(os.getpid(), signal.SIGTERM)
+                for _ in range(100000):
+                    pass
+
+        try:
+            Swallows()
+            print("swallowed", flush=True)
+            time.sleep(20)
+        except Interrupted as exc:
+            settle()
+            print("sent again:", exc.signal_name, flush=True)
+    """)
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, env=_env(), timeout=60)
+    assert proc.stdout.decode().splitlines() == ["swallowed", "sent again: SIGTERM"]
+    assert proc.stderr == b""
