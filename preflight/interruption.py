@@ -83,7 +83,8 @@ def stop_on_signals() -> None:
             return
         if _State.signum is None:
             _State.signum = signum
-            threading.Thread(target=_send_again, name="preflight-interrupt", daemon=True).start()
+            if hasattr(signal, "pthread_kill"):  # POSIX
+                threading.Thread(target=_send_again, name="preflight-interrupt", daemon=True).start()
         raise Interrupted(_State.signum)
 
     previous_hook = sys.unraisablehook
