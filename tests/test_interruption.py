@@ -28,6 +28,7 @@ pytestmark = pytest.mark.skipif(not os.path.isdir("/proc/self/task"), reason="ob
 START_TIMEOUT = 90.0  # seconds for the workers to appear, generous on a busy machine
 EXIT_TIMEOUT = 30.0   # seconds for the main process to exit after the signal
 GONE_TIMEOUT = 10.0   # seconds for every worker to be gone after that
+SHUTDOWN_LIMIT = 10.0  # seconds from SIGINT / SIGTERM to exit (about 0.5 s on a quiet machine)
 
 
 def _stat(pid: int) -> tuple[str, int] | None:
@@ -155,7 +156,7 @@ def test_interrupted_check_stops_its_workers_and_leaves_nothing(tmp_path, slow_t
         assert lines == []
     else:
         assert lines == [f"preflight: interrupted by {signame}"], err.decode()
-        assert took < EXIT_TIMEOUT
+        assert took < SHUTDOWN_LIMIT, f"{took:.1f} s to stop"
     assert out == b""
     assert os.listdir(out_dir) == [], "no report and no temporary file after an interruption"
     assert _digest(slow_table) == before

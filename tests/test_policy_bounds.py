@@ -109,4 +109,11 @@ def test_policy_file_and_api_are_bounded_too(tmp_path, linear_uniform_csv):
         preflight.check(linear_uniform_csv, hsic_permutations=10**8)
     with pytest.raises(InputError, match="jobs"):
         preflight.check(linear_uniform_csv, policy=Policy(), jobs=-1)
+    with pytest.raises(InputError, match="hsic_features"):
+        preflight.check(linear_uniform_csv, policy=Policy(), hsic_features=True)
+    with pytest.raises(InputError, match="no_such_key"):
+        preflight.check(linear_uniform_csv, policy=Policy(), no_such_key=1)
+    # numpy scalars are numbers like any other
+    report = preflight.check(linear_uniform_csv, policy=Policy(), jobs=np.int64(1), alpha=np.float64(0.01))
+    assert report.to_dict()["settings"]["jobs"] == 1 and report.to_dict()["settings"]["alpha"] == 0.01
     assert sorted(os.listdir(tmp_path)) == ["pair.csv", "slow.toml"]  # no report
