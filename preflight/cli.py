@@ -277,7 +277,10 @@ def main(argv: list[str] | None = None) -> None:
         raise
     except click.exceptions.Exit as exc:
         sys.exit(exc.exit_code)
-    except click.exceptions.Abort:
+    except click.exceptions.Abort as exc:
+        if isinstance(exc.__cause__, KeyboardInterrupt):  # Ctrl-C where no handler of ours was set
+            click.echo("preflight: interrupted by SIGINT", err=True)
+            sys.exit(130)
         click.echo("preflight: aborted", err=True)
         sys.exit(EXIT_INPUT)
     except click.UsageError as exc:
