@@ -59,7 +59,10 @@ def check(
     if policy is None:
         policy, _ = build_policy(settings, policy_file=policy_file)
     elif settings:
-        policy = replace(policy, **settings)
+        from preflight.policy import _coerce
+
+        policy = replace(policy, **{key: _coerce(key, value, "the arguments of check()")
+                                    for key, value in settings.items()})
     progress = progress or _no_progress
     loaded = load_table(data, sep=sep, columns=columns, exclude=exclude, missing=missing)
     if graph is not None:

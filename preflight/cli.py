@@ -1,7 +1,8 @@
 """Command line: a thin layer over :func:`preflight.check`.
 
 Exit codes (DESIGN.md): 0 the conclusion meets --require; 1 the data support
-only a weaker conclusion; 2 usage or input error; 3 internal error.
+only a weaker conclusion; 2 usage or input error; 3 internal error; 130 and
+143 interrupted by SIGINT and SIGTERM.
 """
 
 from __future__ import annotations
@@ -180,7 +181,7 @@ def _with(options):
 @click.option("--seed", type=int, help="Seed of every random choice; same data and seed give the same report.")
 @click.option("--min-rows", type=int, help="Fewest usable rows for any conclusion [default: 30].")
 @click.option("--rows-unordered", is_flag=True, default=None, help="Row order carries no meaning: skip the autocorrelation screen.")
-@click.option("--jobs", "-j", type=int, help="Worker processes for the pair battery [default: cores available].")
+@click.option("--jobs", "-j", type=int, help="Worker processes for the pair battery; 0 or unset: every core available, more are capped to it.")
 @click.option("--policy", "policy_file", metavar="FILE", help="TOML file of policy settings (see `preflight policy`).")
 @click.option("--set", "set_pairs", multiple=True, metavar="KEY=VALUE", help="Set any policy key, e.g. --set hsic_max_n=5000.")
 @_with(output_options)
@@ -207,6 +208,10 @@ def check_command(data, sep, columns, exclude, missing, graph, require, fail_on,
         progress.clear()
     _write_all(_render_outputs(report, targets))
     _print_warnings(report, quiet)
+    from preflight.pipeline import jobs_note
+
+    if not quiet and jobs_note(policy):  # after the run, so a refused input still gets one line
+        click.echo(f"preflight: note: {jobs_note(policy)}", err=True)
     _print_summary(report, quiet, no_color, targets)
     sys.exit(EXIT_PASS if report.passed else EXIT_WEAKER)
 
@@ -337,6 +342,9 @@ def policy_command():
 
 def main(argv: list[str] | None = None) -> None:
     """Entry point: maps every outcome onto the documented exit codes."""
+    from preflight.interruption import Interrupted, settle, stop_on_signals
+
+    stop_on_signals()
     try:
         code = cli.main(args=argv, prog_name="preflight", standalone_mode=False)
         sys.exit(code or 0)
@@ -344,7 +352,10 @@ def main(argv: list[str] | None = None) -> None:
         raise
     except click.exceptions.Exit as exc:
         sys.exit(exc.exit_code)
-    except click.exceptions.Abort:
+    except click.exceptions.Abort as exc:
+        if isinstance(exc.__cause__, KeyboardInterrupt):  # Ctrl-C where no handler of ours was set
+            click.echo("preflight: interrupted by SIGINT", err=True)
+            sys.exit(130)
         click.echo("preflight: aborted", err=True)
         sys.exit(EXIT_INPUT)
     except click.UsageError as exc:
@@ -363,8 +374,12 @@ def main(argv: list[str] | None = None) -> None:
     except BrokenPipeError:
         sys.exit(EXIT_INPUT)
     except KeyboardInterrupt:
-        click.echo("preflight: interrupted", err=True)
+        click.echo("preflight: interrupted by SIGINT", err=True)
         sys.exit(130)
+    except Interrupted as exc:  # workers stopped, temporary files removed on the way out
+        settle()
+        click.echo(f"preflight: interrupted by {exc.signal_name}", err=True)
+        sys.exit(exc.exit_code)
     except Exception as exc:  # anything else is our bug: say so, never exit 1
         click.echo(f"preflight: internal error: {type(exc).__name__}: {exc} "
                    "(please report it; no report was written)", err=True)

@@ -225,7 +225,10 @@ def _battery_task(args):
 _WORKER: dict[str, Any] = {}
 
 
-def _init_worker(X, names):
+def _init_worker(X, names, parent_pid: int):
+    from preflight.interruption import bind_worker_to_parent
+
+    bind_worker_to_parent(parent_pid)
     _WORKER["X"] = X
     _WORKER["names"] = names
     from threadpoolctl import threadpool_limits
@@ -233,14 +236,38 @@ def _init_worker(X, names):
     threadpool_limits(1)  # a worker process's own setting: it ends with the pool
 
 
-def _jobs(policy: Policy) -> int:
-    return policy.jobs or (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
+def cores_available() -> int:
+    """Cores this process may run on (its CPU affinity where the platform has one)."""
+    if hasattr(os, "sched_getaffinity"):
+        return max(1, len(os.sched_getaffinity(0)))
+    return os.cpu_count() or 1
+
+
+def jobs_note(policy: Policy) -> str | None:
+    """One line for the user when ``jobs`` asks for more processes than there are cores, else None."""
+    cores = cores_available()
+    if policy.jobs <= cores:
+        return None
+    return f"jobs {policy.jobs} is more than the {cores} core{'s' if cores != 1 else ''} available; capped at {cores}"
+
+
+def _jobs(policy: Policy, n_pairs: int) -> int:
+    """The number of worker processes: the one place that decides it.
+
+    ``jobs`` (0: every core available), capped at the cores available, since
+    more processes than cores only add memory and switching, and at the
+    tasks there are: one per pair plus the whole-table screens and the noise
+    dependence, which run beside the pairs.
+    """
+    cores = cores_available()
+    wanted = min(policy.jobs, cores) if policy.jobs else cores
+    return max(1, min(wanted, n_pairs + 2))
 
 
 def _start_pool(X: np.ndarray, names, policy: Policy):
     """Worker processes for the run, or None when the table is too small to gain from them."""
-    jobs = _jobs(policy)
     n, p = X.shape
+    jobs = _jobs(policy, p * (p - 1) // 2)
     if jobs <= 1 or n * p * (p - 1) // 2 < 200_000:
         return None
     import concurrent.futures as cf
@@ -248,12 +275,47 @@ def _start_pool(X: np.ndarray, names, policy: Policy):
 
     context = mp.get_context("fork") if "fork" in mp.get_all_start_methods() else None
     return cf.ProcessPoolExecutor(max_workers=jobs, mp_context=context, initializer=_init_worker,
-                                  initargs=(X, names))
+                                  initargs=(X, names, os.getpid()))
+
+
+def _stop_pool(pool, interrupted: bool) -> None:
+    """Shut the pool down; when the run did not finish, stop its workers at once.
+
+    Waiting for queued pairs after an interruption or an error would keep the
+    user waiting for a report that will not be written, so the workers are
+    sent SIGTERM (their default action: exit), then SIGKILL after a grace
+    period; every wait is bounded, so stopping never hangs.
+    """
+    if not interrupted:
+        try:
+            pool.shutdown()
+            return
+        except BaseException:  # interrupted while the idle workers were leaving
+            _stop_pool(pool, interrupted=True)
+            raise
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    for process in processes:
+        if process.is_alive():
+            process.terminate()
+    for process in _join_all(processes, seconds=2.0):
+        process.kill()
+    _join_all(processes, seconds=2.0)
+    pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _join_all(processes, seconds: float) -> list:
+    """Wait at most ``seconds`` in all for the processes to end; returns those still alive."""
+    import time
+
+    deadline = time.monotonic() + seconds
+    for process in processes:
+        process.join(timeout=max(0.0, deadline - time.monotonic()))
+    return [process for process in processes if process.is_alive()]
 
 
 def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=None) -> list[PairBattery]:
     """Every pair's battery, in task order; results do not depend on the number of processes."""
-    jobs = _jobs(policy)
+    jobs = _jobs(policy, len(tasks))
     results: list[PairBattery | None] = [None] * len(tasks)
     _WORKER["X"], _WORKER["names"] = X, names
     # A non-adjacent pair whose association checks are all ready needs no more
@@ -403,9 +465,12 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
         try:
             view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole, sets = _analyse_table(
                 X, names, pair_index, policy, graph, progress, pool)
-        finally:
+        except BaseException:  # interrupted (Ctrl-C, SIGTERM) or failed: no worker may be left behind
             if pool is not None:
-                pool.shutdown()
+                _stop_pool(pool, interrupted=True)
+            raise
+        if pool is not None:
+            _stop_pool(pool, interrupted=False)
         whole_checks, dependent = whole
         # Report order: Henze-Zirkler, the FastICA checks, then the view's own (varsortability).
         global_checks += [Tagged(None, "global", c) for c in whole_checks] + view.global_checks

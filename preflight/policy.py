@@ -8,6 +8,7 @@ the key, so a typo never silently falls back to a default.
 from __future__ import annotations
 
 import dataclasses
+import math
 import os
 from dataclasses import dataclass, field, fields
 from typing import Any, Mapping
@@ -60,6 +61,86 @@ def level_rank(level: str) -> int:
 
 
 @dataclass(frozen=True)
+class Bounds:
+    """The values a numeric policy key accepts: finite, within [low, high] (an end may be open or absent)."""
+
+    low: float | None = None
+    high: float | None = None
+    low_open: bool = False
+    high_open: bool = False
+    low_why: str = ""
+    """Said in the error message when a value is below the range: why the bound is there."""
+    high_why: str = ""
+    """The same above the range."""
+
+    def problem(self, value: float) -> str | None:
+        """Why ``value`` is refused (the ``why`` of the violated end, possibly empty), or None when admitted."""
+        if not math.isfinite(value):
+            return ""
+        if self.low is not None and (value <= self.low if self.low_open else value < self.low):
+            return self.low_why
+        if self.high is not None and (value >= self.high if self.high_open else value > self.high):
+            return self.high_why
+        return None
+
+    def text(self) -> str:
+        """'from 0 to 10000', 'in (0, 1)', 'of at least 1', 'above 0'."""
+        low, high = (None if b is None else f"{b:g}" for b in (self.low, self.high))
+        if low is not None and high is not None:
+            if self.low_open or self.high_open:
+                return f"in {'(' if self.low_open else '['}{low}, {high}{')' if self.high_open else ']'}"
+            return f"from {low} to {high}"
+        if low is not None:
+            return "above " + low if self.low_open else "of at least " + low
+        if high is not None:
+            return "below " + high if self.high_open else "of at most " + high
+        return ""
+
+
+_WORK = "the upper bound that keeps a run finite: see `preflight policy`"
+_SHARE = Bounds(0.0, 1.0)
+_THRESHOLD = Bounds(0.0)
+
+BOUNDS: dict[str, Bounds] = {
+    "alpha": Bounds(0.0, ALPHA_MAX, low_open=True,
+                    high_why="a significance level above it tests nothing a reader would call significant"),
+    "min_rows": Bounds(10, low_why="the battery's regressions and tests need at least 8 rows"),
+    "min_rows_orientation": Bounds(1),
+    "discrete_max_levels": Bounds(1),
+    "discrete_min_distinct_share": _SHARE,
+    "heavy_tail_excess_kurtosis": _THRESHOLD,
+    "outlier_robust_z": Bounds(0.0, low_open=True),
+    "autocorrelation_lags": Bounds(1, 500, high_why=_WORK),
+    "autocorrelation_min_effect": _SHARE,
+    "vif_max": Bounds(1.0, low_why="no variance inflation factor is below 1"),
+    "condition_number_max": Bounds(1.0, low_why="no condition number is below 1"),
+    "duplicate_rows_max_share": _SHARE,
+    "duplicate_rows_continuous_min_distinct_share": _SHARE,
+    "shapiro_max_n": Bounds(3, 5000, low_why="the range of Royston's approximation",
+                            high_why="the range of Royston's approximation"),
+    "nongaussian_min_abs_skew": _THRESHOLD,
+    "nongaussian_min_abs_excess_kurtosis": _THRESHOLD,
+    "nonlinear_min_r2_gain": _SHARE,
+    "spline_max_df": Bounds(4, 30, low_why="a cubic spline needs 4", high_why=_WORK),
+    "heteroscedastic_min_r2": _SHARE,
+    "confounding_spread_min_r2": _SHARE,
+    "hsic_exact_max_n": Bounds(1, 5000, high_why=_WORK),
+    "hsic_max_n": Bounds(6, 100_000, low_why="HSIC needs at least 6 rows", high_why=_WORK),
+    "hsic_features": Bounds(1, 256, high_why=_WORK),
+    "hsic_permutations": Bounds(0, 10_000, high_why=_WORK),
+    "varsortable_min_share": _SHARE,
+    "plot_max_points": Bounds(1, 20_000, high_why=_WORK),
+    "jobs": Bounds(0, low_why="0 means every core available"),
+}
+"""Allowed values of every numeric key (``seed`` aside), checked when a policy is built.
+
+Upper bounds sit on the keys that scale the work; each one's docstring says
+what it costs and why no sensible analysis needs more.  ``preflight policy``
+lists every range.
+"""
+
+
+@dataclass(frozen=True)
 class Policy:
     # --- decisions
     alpha: float = 0.05
@@ -75,7 +156,11 @@ class Policy:
 
     # --- data regime
     min_rows: int = 30
-    """Below this many usable rows no structural conclusion is drawn (``too-few-rows``)."""
+    """Below this many usable rows no structural conclusion is drawn (``too-few-rows``).
+
+    At least 10: the battery's regressions and tests need 8 rows, and a
+    table below the key's value is reported as ``too-few-rows`` instead of
+    failing half-way."""
     min_rows_orientation: int = 200
     """Below this many rows no rung that orients edges from noise shape is licensed."""
     discrete_max_levels: int = 20
@@ -87,7 +172,11 @@ class Policy:
     outlier_robust_z: float = 7.0
     """|x - median| / (1.4826 MAD) above which a value counts as an outlier."""
     autocorrelation_lags: int = 10
-    """Lags of the Ljung-Box test on each column in file order."""
+    """Lags of the Ljung-Box test on each column in file order.
+
+    At most 500: more than a year of daily rows, and the cost is n x lags
+    per column (500 lags on 10^6 rows took 1.2 s per column); the test
+    loses power as lags are added, so nothing is gained above."""
     autocorrelation_min_effect: float = 0.1
     """Largest |autocorrelation| over those lags that makes a significant result material."""
     rows_unordered: bool = False
@@ -125,7 +214,10 @@ class Policy:
     nonlinear_min_r2_gain: float = 0.01
     """Gain in explained variance (spline or RESET over linear) that makes nonlinearity material."""
     spline_max_df: int = 10
-    """Upper limit of the spline's degrees of freedom (the df grow with n, see fit.spline_df)."""
+    """Upper limit of the spline's degrees of freedom (the df grow with n, see fit.spline_df).
+
+    From 4 (a cubic spline) to 30: the df reach 30 only above 17 million
+    rows (round(n ** 0.2) + 2), and each fit costs n x df^2."""
 
     # --- variance
     heteroscedastic_min_r2: float = 0.01
@@ -145,9 +237,20 @@ class Policy:
 
     # --- independence
     hsic_exact_max_n: int = 2000
-    """Up to this n HSIC is exact (O(n^2)); above, random Fourier features (linear time)."""
+    """Up to this n HSIC is exact (O(n^2)); above, random Fourier features (linear time).
+
+    At most 5,000: one exact test on 5,000 rows holds 200 MB Gram matrices
+    (about 0.6 GB at its peak) and took 3.2 s on one core, and every pair
+    runs several; above a few thousand rows the random-feature test already
+    has more power than the exact one on 2,000 (see ``hsic_features``)."""
     hsic_max_n: int = 20000
-    """Above this n HSIC runs on a seeded subsample of this many rows."""
+    """Above this n HSIC runs on a seeded subsample of this many rows.
+
+    At most 100,000 (five times the default): the random features of every
+    column are held at once, n x 2 x ``hsic_features`` values each (64 MB per
+    column at 100,000 rows and 40 frequencies), and at 20,000 rows the test
+    already finds the weak dependence of the benchmark in 165 to 181 of 200
+    draws."""
     hsic_features: int = 40
     """Random frequencies per variable in the large-scale HSIC (each gives a cosine and a sine feature).
 
@@ -161,9 +264,16 @@ class Policy:
     for every setting.  40 keeps the power at a few thousand rows and loses
     about 5 points at 20,000; a check of 10 variables and 5,000 rows took
     0.58 s against 0.78 s with 64 (median of 7 runs, 2 cores).  Table in
-    ``benchmarks/RESULTS.md``."""
+    ``benchmarks/RESULTS.md``.  At most 256, twice the largest setting
+    measured, which found at most 6 more of 200 than 64: 256 frequencies
+    cost 41 times the products of 40."""
     hsic_permutations: int = 0
-    """0 uses the gamma approximation; a positive number runs a seeded permutation test."""
+    """0 uses the gamma approximation; a positive number runs a seeded permutation test.
+
+    At most 10,000: the smallest p-value is 1 / (B + 1), and 10,000 resolves
+    p-values down to 1e-4, enough for a Holm correction over 500 tests at
+    alpha 0.05.  Each permutation repeats the exact test (about 20 ms on
+    2,000 rows), so 10,000 already cost minutes per test."""
 
     # --- structure
     varsortable_min_share: float = 0.9
@@ -171,48 +281,46 @@ class Policy:
 
     # --- reports and speed
     plot_max_points: int = 2000
-    """Plots draw a seeded subsample of at most this many rows."""
+    """Plots draw a seeded subsample of at most this many rows.
+
+    At most 20,000: the points are drawn as a raster image, where more than
+    that only overplot each other, while drawing time and the samples kept
+    for the HTML report grow with their number."""
     jobs: int = 0
-    """Worker processes for the pair battery; 0 means the cores available."""
+    """Worker processes for the pair battery; 0 means the cores available.
+
+    More than the cores available to the process (its CPU affinity) or than
+    there are pairs to share out are capped to that number, and the command
+    line says so when it caps at the cores: extra processes only add memory
+    and switching."""
 
     def __post_init__(self) -> None:
-        if not 0.0 < self.alpha <= ALPHA_MAX:
-            raise InputError(f"policy alpha (the significance level) must lie in (0, {ALPHA_MAX}], got {self.alpha}")
+        if self.correction not in CORRECTIONS:
+            raise InputError(f"policy correction must be one of {', '.join(CORRECTIONS)}, got {self.correction!r}")
+        if self.require not in LEVELS:
+            raise InputError(f"policy require must be one of {', '.join(LEVELS)}, got {self.require!r}")
+        for name, bounds in BOUNDS.items():
+            value = getattr(self, name)
+            kind = POLICY_KEYS[name]
+            whole = isinstance(value, int) and not isinstance(value, bool)
+            noun = "a whole number" if kind is int else "a number"
+            if not (whole or (kind is float and isinstance(value, float))):
+                raise InputError(f"policy {name} must be {noun}, got {value!r}")
+            problem = bounds.problem(value)
+            if problem is not None:
+                noun = noun if math.isfinite(value) else "a finite number"
+                why = f" ({problem})" if problem else ""
+                raise InputError(f"policy {name} must be {noun} {bounds.text()}{why}, got {value!r}")
         if isinstance(self.seed, bool) or not isinstance(self.seed, int) or self.seed < 0:
             raise InputError(f"policy seed must be a whole number of 0 or more, got {self.seed!r}")
         unknown = [flag for flag in self.fail_on if flag not in FLAGS]
         if unknown:
             raise InputError(f"unknown flag {unknown[0]!r} in fail_on (--fail-on); valid flags: {', '.join(FLAGS)}")
-        if self.correction not in CORRECTIONS:
-            raise InputError(f"policy correction must be one of {', '.join(CORRECTIONS)}, got {self.correction!r}")
-        if self.require not in LEVELS:
-            raise InputError(f"policy require must be one of {', '.join(LEVELS)}, got {self.require!r}")
-        for name in ("min_rows", "min_rows_orientation", "discrete_max_levels", "autocorrelation_lags",
-                     "shapiro_max_n", "spline_max_df", "hsic_exact_max_n", "hsic_max_n", "hsic_features",
-                     "plot_max_points"):
-            if getattr(self, name) < 1:
-                raise InputError(f"policy {name} must be a positive whole number, got {getattr(self, name)}")
-        if self.hsic_permutations < 0 or self.jobs < 0:
-            raise InputError("policy hsic_permutations and jobs must not be negative")
-        if self.spline_max_df < 4:
-            raise InputError("policy spline_max_df must be at least 4")
-        if self.shapiro_max_n < 3 or self.shapiro_max_n > 5000:
-            raise InputError("policy shapiro_max_n must lie between 3 and 5000 (the range of Royston's approximation)")
-        for name in ("discrete_min_distinct_share", "varsortable_min_share", "duplicate_rows_max_share",
-                     "confounding_spread_min_r2",
-                     "duplicate_rows_continuous_min_distinct_share"):
-            _check_range(name, getattr(self, name), 0.0, 1.0)
 
     def to_dict(self) -> dict[str, Any]:
         out = dataclasses.asdict(self)
         out["fail_on"] = list(self.fail_on)
         return out
-
-
-def _check_range(name: str, value: float, low: float, high: float, open_ends: bool = False) -> None:
-    ok = (low < value < high) if open_ends else (low <= value <= high)
-    if not ok:
-        raise InputError(f"policy {name} must lie in {'(' if open_ends else '['}{low}, {high}{')' if open_ends else ']'}, got {value}")
 
 
 POLICY_KEYS: dict[str, type] = {}
@@ -233,7 +341,14 @@ def describe_policy() -> list[tuple[str, Any, str]]:
         if isinstance(node, ast.AnnAssign) and isinstance(nxt, ast.Expr) and isinstance(nxt.value, ast.Constant):
             docs[node.target.id] = " ".join(str(nxt.value.value).split())
     default = Policy()
-    return [(f.name, getattr(default, f.name), docs.get(f.name, "")) for f in fields(Policy)]
+    out = []
+    for f in fields(Policy):
+        doc = docs.get(f.name, "")
+        if f.name in BOUNDS:
+            kind = "a whole number" if POLICY_KEYS[f.name] is int else "a number"
+            doc = f"{doc} Allowed: {kind} {BOUNDS[f.name].text()}.".strip()
+        out.append((f.name, getattr(default, f.name), doc))
+    return out
 
 
 def _coerce(key: str, value: Any, source: str) -> Any:
@@ -266,7 +381,8 @@ def _coerce(key: str, value: Any, source: str) -> Any:
             return float(value)
         return str(value)
     except (TypeError, ValueError):
-        raise InputError(f"policy key {key!r} in {source} needs a {kind.__name__}, got {value!r}") from None
+        wanted = {int: "a whole number", float: "a number", bool: "true or false", tuple: "a list"}.get(kind, "text")
+        raise InputError(f"policy key {key!r} in {source} needs {wanted}, got {value!r}") from None
 
 
 def _read_toml(path: str) -> dict[str, Any]:
