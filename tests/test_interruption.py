@@ -206,16 +206,17 @@ def test_api_check_leaves_no_worker_on_keyboard_interrupt(tmp_path, slow_table):
 
 
 def test_interruption_while_writing_a_report_removes_the_temporary_file(tmp_path, monkeypatch):
+    from preflight import outputs
     from preflight.interruption import Interrupted
-    from preflight.report import json as json_report
 
     def interrupted(fd):
         raise Interrupted(signal.SIGTERM)
 
-    monkeypatch.setattr(json_report.os, "fsync", interrupted)
-    target = tmp_path / "report.json"
+    targets = outputs.plan_outputs([("--json", str(tmp_path / "report.json")),
+                                    ("--markdown", str(tmp_path / "report.md"))])
+    monkeypatch.setattr(outputs.os, "fsync", interrupted)
     with pytest.raises(Interrupted):
-        json_report.write_atomic(str(target), "{}\n" * 100_000)
+        outputs.write_outputs([(target, "{}\n" * 100_000) for target in targets])
     assert os.listdir(tmp_path) == []
 
 
