@@ -878,7 +878,10 @@ def _sortability(scores: np.ndarray, pairs: list[tuple[int, int]], exponents=Non
             # scores[k] is in units of 2**exponents[k]: bring a into b's units
             # (exact for powers of two) instead of both into the user's, which
             # can overflow or underflow.
-            a = math.ldexp(a, int(exponents[i]) - int(exponents[j]))
+            try:
+                a = math.ldexp(a, int(exponents[i]) - int(exponents[j]))
+            except OverflowError:
+                a = math.inf
         if math.isclose(a, b, rel_tol=1e-9, abs_tol=1e-300):
             total += 0.5
         elif a < b:
