@@ -25,7 +25,7 @@ from typing import Iterable, Sequence
 
 import numpy as np
 
-from preflight.checks._validate import as_matrix
+from preflight.checks._validate import as_matrix, unit_scaled
 from preflight.checks.confounding import spectral_confounding
 from preflight.errors import InputError
 from preflight.fit import coefficient_standard_errors, ols, residualize
@@ -77,9 +77,10 @@ def _standardise_columns(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     Returns (Z, degenerate) where degenerate flags columns with no variance
     left (constant, or already explained exactly by earlier variables).
     """
+    X = unit_scaled(X)  # exact per column: the same digits in any units, no overflow or underflow
     centred = X - X.mean(axis=0)
     sd = np.sqrt((centred * centred).mean(axis=0))
-    scale = np.maximum(np.abs(X).max(axis=0), 1.0) if X.size else np.ones(X.shape[1])
+    scale = np.abs(X).max(axis=0) if X.size else np.ones(X.shape[1])
     degenerate = sd <= 1e-12 * scale
     Z = centred / np.where(degenerate, 1.0, sd)
     Z[:, degenerate] = 0.0

@@ -37,7 +37,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from preflight.checks._validate import as_vector, same_length
+from preflight.checks._validate import as_vector, same_length, unit_scaled
 from preflight.errors import InputError
 from preflight.results import CheckResult
 
@@ -61,10 +61,11 @@ def _pair(x, y, min_n: int) -> tuple[np.ndarray, np.ndarray, int]:
 
 
 def _standardise(v: np.ndarray) -> np.ndarray | None:
-    """(v - mean) / sd, or None when v is constant (to round-off)."""
+    """(v - mean) / sd, or None when v is constant (to round-off, relative to its magnitude)."""
+    v = unit_scaled(v)  # exact: the same digits in any units, no overflow or underflow
     centred = v - v.mean()
     sd = float(np.sqrt(centred @ centred / v.shape[0]))
-    scale = max(float(np.abs(v).max()), 1.0)
+    scale = float(np.abs(v).max())
     if sd <= 1e-12 * scale:
         return None
     return centred / sd
@@ -269,9 +270,10 @@ def _fit_note(fit: _ResidualFit | None) -> str:
 
 def _orthonormal_basis(design: np.ndarray) -> np.ndarray:
     """Orthonormal basis of the column space of the centred design (columns scaled first, rank by SVD)."""
+    design = unit_scaled(design)
     centred = design - design.mean(axis=0)
     norms = np.sqrt(np.einsum("ij,ij->j", centred, centred))
-    scale = max(1.0, float(np.abs(design).max(initial=0.0)))
+    scale = float(np.abs(design).max(initial=0.0))
     keep = norms > 1e-12 * scale * math.sqrt(design.shape[0])
     if not keep.any():
         return np.zeros((design.shape[0], 0))
