@@ -416,13 +416,13 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
     canonical = replace(loaded, values=values, names=tuple(names[k] for k in order))
     report = _run_canonical(canonical, policy, graph=graph, progress=progress, keep_samples=keep_samples,
                             exponents=exponents[order])
-    return _in_input_order(report, loaded, order, exponents)
+    return _in_input_order(report, loaded, order)
 
 
 _SWAPPED = {"x->y": "y->x", "y->x": "x->y"}
 
 
-def _in_input_order(report: Report, loaded: LoadedData, order: list[int], exponents: np.ndarray) -> Report:
+def _in_input_order(report: Report, loaded: LoadedData, order: list[int]) -> Report:
     names = list(loaded.names)
     position = {name: k for k, name in enumerate(names)}
     data = report.data
@@ -447,8 +447,10 @@ def _in_input_order(report: Report, loaded: LoadedData, order: list[int], expone
         inverse = np.argsort(order)
         rows = samples["rows"]
         noise = samples["noise"]
+        # Noise estimates stay in the scaled units (plots standardise them);
+        # back in the input's units they could overflow near 1e308.
         samples = {**samples, "names": names, "values": loaded.values[rows],
-                   "noise": None if noise is None else np.ldexp(noise[:, inverse], exponents[None, :])}
+                   "noise": None if noise is None else noise[:, inverse]}
     return Report(data=data, samples=samples)
 
 
