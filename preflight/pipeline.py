@@ -369,6 +369,7 @@ def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progre
     whole_result = whole.result() if whole is not None else _whole_table_screens(X, policy)
     return view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole_result, sets
 
+
 def canonical_columns(names) -> list[int]:
     """Positions of the columns in the order every analysis step sees them: sorted by name.
 

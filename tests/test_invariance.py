@@ -157,3 +157,37 @@ def test_conservative_rule_on_oracle_separation_gives_the_true_class():
     dag[0, 2] = dag[1, 2] = dag[2, 3] = 1
     assert np.array_equal(result.cpdag, graph.dag_to_cpdag(dag))
     assert result.ambiguous == ()
+
+
+@pytest.mark.parametrize("method", ["holm", "fdr_bh"])
+def test_multiplicity_adjustment_follows_the_p_values_not_their_order(method):
+    # Ties included: equal p-values get equal adjusted values, whatever their positions.
+    from preflight.evidence import adjust_p_values
+
+    rng = np.random.default_rng(11)
+    for _ in range(200):
+        m = int(rng.integers(1, 30))
+        p = rng.choice(np.round(rng.uniform(0, 0.2, 6), 3), size=m)
+        adjusted = adjust_p_values(p, method)
+        perm = rng.permutation(m)
+        assert np.array_equal(adjust_p_values(p[perm], method), adjusted[perm])
+        for value in np.unique(p):
+            assert np.unique(adjusted[p == value]).size == 1
+
+
+def test_reports_of_columns_near_the_ends_of_the_float_range_render_without_warnings():
+    import warnings
+
+    from preflight.report.html import render_html
+    from preflight.report.markdown import render_markdown
+
+    frame = _frame("chain").iloc[:, :3]
+    frame.iloc[:, 0] = frame.iloc[:, 0] / frame.iloc[:, 0].abs().max() * 1.7e308
+    frame.iloc[:, 1] = frame.iloc[:, 1] / frame.iloc[:, 1].abs().max() * 4e-320
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        report = preflight.check(frame, seed=1, jobs=1)
+        html = render_html(report)
+        render_markdown(report)
+    assert report.data["conclusion"]["edges_total"] >= 1
+    assert "<svg" in html
