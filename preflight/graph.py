@@ -24,6 +24,7 @@ from __future__ import annotations
 import csv
 import io
 import itertools
+import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterable, Iterator, Mapping, NamedTuple, Sequence
@@ -614,6 +615,10 @@ def cpdag_from_skeleton(adjacency, separating_sets: Mapping) -> np.ndarray:
     return _meek_closure(orient_v_structures(adjacency, separating_sets), frozenset(_MEEK_RULES))
 
 
+MAX_SEPARATING_SUBSETS = 50_000
+"""Most subsets tested per non-adjacent pair by :func:`cpdag_from_all_separating_sets`; larger sets go first."""
+
+
 class OrderFreeClass(NamedTuple):
     """The CPDAG from :func:`cpdag_from_all_separating_sets` and the triples its tests left open."""
 
@@ -648,7 +653,10 @@ def cpdag_from_all_separating_sets(X, adjacency, alpha: float = 0.05, max_condit
     column order).
 
     Null hypothesis of each test: the partial correlation of a and b given
-    the subset is zero.  References: Ramsey, Zhang and Spirtes (2006),
+    the subset is zero.  ``max_condition_size`` bounds the subsets' size
+    (the pipeline passes the largest size the skeleton search reached), and
+    at most ``MAX_SEPARATING_SUBSETS`` are tested per pair, the largest
+    sizes dropped first.  References: Ramsey, Zhang and Spirtes (2006),
     "Adjacency-faithfulness and conservative causal inference", UAI
     (conservative rule); Colombo and Maathuis (2014), "Order-independent
     constraint-based causal structure learning", JMLR 15, section 5 (its
@@ -671,9 +679,16 @@ def cpdag_from_all_separating_sets(X, adjacency, alpha: float = 0.05, max_condit
         if not middles:
             continue
         separating = []
-        for side in ({k for k in np.flatnonzero(A[a]).tolist() if k != b},
-                     {k for k in np.flatnonzero(A[b]).tolist() if k != a}):
-            for size in range(0, min(len(side), cap) + 1):
+        sides = ({k for k in np.flatnonzero(A[a]).tolist() if k != b},
+                 {k for k in np.flatnonzero(A[b]).tolist() if k != a})
+        largest = min(max(len(side) for side in sides), cap)
+        # Bound the work by set size only (never by position), so the bound
+        # does not depend on the column order either.
+        while largest > 0 and sum(math.comb(len(side), size) for side in sides
+                                  for size in range(largest + 1)) > MAX_SEPARATING_SUBSETS:
+            largest -= 1
+        for side in sides:
+            for size in range(0, min(len(side), largest) + 1):
                 for subset in itertools.combinations(sorted(side), size):
                     separating.append(subset)
         subsets = sorted(set(separating))

@@ -168,7 +168,8 @@ def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str
     adjacency = np.array(skeleton.adjacency, dtype=bool)
     # Colliders by the conservative rule over every separating set, not the
     # first one found, which depends on the column order.
-    cpdag = graphs.cpdag_from_all_separating_sets(X, adjacency, alpha=policy.alpha).cpdag
+    cpdag = graphs.cpdag_from_all_separating_sets(
+        X, adjacency, alpha=policy.alpha, max_condition_size=max(skeleton.max_condition_size_reached, 0)).cpdag
     return adjacency, cpdag, "estimated: PC-stable skeleton (Fisher-z partial correlations)"
 
 
