@@ -233,7 +233,8 @@ class Skeleton:
         ``(i, j)`` with ``i < j`` -> sorted tuple of the set that made the pair
         independent, for every removed pair.  Order-dependent in general
         (Colombo and Maathuis 2014 section 4): the first separating set in
-        index order is kept.
+        index order is kept.  The pipeline therefore orients colliders with
+        :func:`cpdag_from_all_separating_sets`, not from these.
     n_tests : int
         Conditional-independence tests the search needed.
     max_condition_size_reached : int
