@@ -90,7 +90,8 @@ def _screen(loaded: LoadedData, policy: Policy):
     return flags, checks
 
 
-def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, progress: Progress) -> StructuralView:
+def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, progress: Progress,
+                     exponents=None) -> StructuralView:
     from preflight import structure
     from preflight.checks.normality import normality_checks
 
@@ -118,7 +119,7 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
     edges = [(parent, child) for child, ps in enumerate(parents) for parent in ps]
     flags: list[str] = []
     if edges:
-        share = structure.varsortability(X, edges)
+        share = structure.varsortability(X, edges, exponents=exponents)
         global_checks.append(Tagged(None, "global", CheckResult(
             name="varsortability", statistic=float(share), p_value=None, effect=float(share),
             effect_name="share of edges with increasing variance", n=len(edges),
@@ -165,7 +166,10 @@ def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str
         return adjacency, cpdag, "hypothesised graph from " + os.path.basename(graph)
     skeleton = graphs.pc_stable_skeleton(X, alpha=policy.alpha)
     adjacency = np.array(skeleton.adjacency, dtype=bool)
-    cpdag = graphs.cpdag_from_skeleton(adjacency, dict(skeleton.separating_sets))
+    # Colliders by the conservative rule over every separating set, not the
+    # first one found, which depends on the column order.
+    cpdag = graphs.cpdag_from_all_separating_sets(
+        X, adjacency, alpha=policy.alpha, max_condition_size=max(skeleton.max_condition_size_reached, 0)).cpdag
     return adjacency, cpdag, "estimated: PC-stable skeleton (Fisher-z partial correlations)"
 
 
@@ -407,10 +411,10 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
 # ---------------------------------------------------------------- the run
 
 
-def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progress, pool):
+def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progress, pool, exponents=None):
     """Structural view, adjacency, every pair's battery and the whole-table screens."""
     whole = pool.submit(_whole_table_task, policy) if pool is not None else None
-    view = _structural_view(X, names, policy, progress)
+    view = _structural_view(X, names, policy, progress, exponents)
     adjacency, cpdag, adjacency_source = _adjacency(X, names, policy, graph)
     sets = {(i, j): _conditioning_sets(i, j, adjacency, view.parents) for i, j in pair_index}
     noise_pairs = [ij for ij in pair_index if adjacency[ij]]
@@ -428,8 +432,94 @@ def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progre
     whole_result = whole.result() if whole is not None else _whole_table_screens(X, policy)
     return view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole_result, sets
 
+
+def canonical_columns(names) -> list[int]:
+    """Positions of the columns in the order every analysis step sees them: sorted by name.
+
+    Whatever the order of the columns in the input, the analysis then makes
+    the same choices (first separating sets, ties of the causal order, the
+    starting point of FastICA, the direction each pair is computed in), so
+    the verdicts do not depend on it.  They may depend on the names: a
+    renamed column can take another place in this order.
+    """
+    return sorted(range(len(names)), key=lambda k: names[k])
+
+
+def unit_exponents(values: np.ndarray) -> np.ndarray:
+    """Per column, the power of two that brings its largest magnitude into [0.5, 1).
+
+    Multiplying by a power of two is exact in floating point (short of the
+    subnormal range), so every later step computes the same digits it would
+    on the column in its own units, while squares, fourth powers and cross
+    products of 1e-200 or 1e200 no longer underflow or overflow.  A column
+    of zeros keeps exponent 0.
+    """
+    if values.size == 0:
+        return np.zeros(values.shape[1], dtype=int)
+    largest = np.abs(values).max(axis=0)
+    return np.where(largest > 0, np.frexp(largest)[1], 0).astype(int)
+
+
 def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
         keep_samples: bool) -> Report:
+    """One analysis, order- and unit-free: columns sorted by name and scaled by powers of two, then mapped back.
+
+    The report lists variables and pairs in the input's order, each pair with
+    x before y as in the input; a pair computed the other way round has its
+    orientation swapped to match (check names keep the literal names they
+    were computed with).
+    """
+    names = loaded.names
+    order = canonical_columns(names)
+    exponents = unit_exponents(loaded.values)
+    values = np.ldexp(loaded.values[:, order], -exponents[order][None, :])
+    # The same memory layout as the input keeps the round-off of every later
+    # matrix product as it was.
+    values = np.asfortranarray(values) if loaded.values.flags.f_contiguous and not loaded.values.flags.c_contiguous \
+        else np.ascontiguousarray(values)
+    canonical = replace(loaded, values=values, names=tuple(names[k] for k in order))
+    report = _run_canonical(canonical, policy, graph=graph, progress=progress, keep_samples=keep_samples,
+                            exponents=exponents[order])
+    return _in_input_order(report, loaded, order)
+
+
+_SWAPPED = {"x->y": "y->x", "y->x": "x->y"}
+
+
+def _in_input_order(report: Report, loaded: LoadedData, order: list[int]) -> Report:
+    names = list(loaded.names)
+    position = {name: k for k, name in enumerate(names)}
+    data = report.data
+    data["input"]["columns"] = names
+    by_name = {v["name"]: v for v in data["variables"]}
+    data["variables"] = [by_name[name] for name in names]
+    by_pair = {frozenset((p["x"], p["y"])): p for p in data["pairs"]}
+    pairs = []
+    for i, j in itertools.combinations(range(len(names)), 2):
+        pair = by_pair[frozenset((names[i], names[j]))]
+        if pair["x"] != names[i]:
+            pair["x"], pair["y"] = pair["y"], pair["x"]
+            pair["orientation"] = _SWAPPED.get(pair["orientation"], pair["orientation"])
+        pair["conditioning"] = sorted(pair["conditioning"], key=position.__getitem__)
+        pairs.append(pair)
+    data["pairs"] = pairs
+    structure = data["structure"]
+    structure["parents"] = {name: sorted(structure["parents"][name], key=position.__getitem__)
+                            for name in names if name in structure["parents"]}
+    samples = report.samples
+    if samples is not None:
+        inverse = np.argsort(order)
+        rows = samples["rows"]
+        noise = samples["noise"]
+        # Noise estimates stay in the scaled units (plots standardise them);
+        # back in the input's units they could overflow near 1e308.
+        samples = {**samples, "names": names, "values": loaded.values[rows],
+                   "noise": None if noise is None else noise[:, inverse]}
+    return Report(data=data, samples=samples)
+
+
+def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
+                   keep_samples: bool, exponents=None) -> Report:
     from preflight.policy import working_seed
 
     requested = policy  # echoed in the report as the user gave it
@@ -464,7 +554,7 @@ def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Prog
         pool = _start_pool(X, names, policy)
         try:
             view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole, sets = _analyse_table(
-                X, names, pair_index, policy, graph, progress, pool)
+                X, names, pair_index, policy, graph, progress, pool, exponents)
         except BaseException:  # interrupted (Ctrl-C, SIGTERM) or failed: no worker may be left behind
             if pool is not None:
                 _stop_pool(pool, interrupted=True)

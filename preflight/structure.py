@@ -25,7 +25,7 @@ from typing import Iterable, Sequence
 
 import numpy as np
 
-from preflight.checks._validate import as_matrix
+from preflight.checks._validate import as_matrix, unit_scaled
 from preflight.checks.confounding import spectral_confounding
 from preflight.errors import InputError
 from preflight.fit import coefficient_standard_errors, ols, residualize
@@ -77,9 +77,10 @@ def _standardise_columns(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     Returns (Z, degenerate) where degenerate flags columns with no variance
     left (constant, or already explained exactly by earlier variables).
     """
+    X = unit_scaled(X)  # exact per column: the same digits in any units, no overflow or underflow
     centred = X - X.mean(axis=0)
     sd = np.sqrt((centred * centred).mean(axis=0))
-    scale = np.maximum(np.abs(X).max(axis=0), 1.0) if X.size else np.ones(X.shape[1])
+    scale = np.abs(X).max(axis=0) if X.size else np.ones(X.shape[1])
     degenerate = sd <= 1e-12 * scale
     Z = centred / np.where(degenerate, 1.0, sd)
     Z[:, degenerate] = 0.0
@@ -868,12 +869,20 @@ def _pairs_to_score(edges: Iterable[tuple[int, int]], p: int, paths: bool) -> li
     return out
 
 
-def _sortability(scores: np.ndarray, pairs: list[tuple[int, int]]) -> float:
+def _sortability(scores: np.ndarray, pairs: list[tuple[int, int]], exponents=None) -> float:
     if not pairs:
         return math.nan
     total = 0.0
     for i, j in pairs:
         a, b = float(scores[i]), float(scores[j])
+        if exponents is not None:
+            # scores[k] is in units of 2**exponents[k]: bring a into b's units
+            # (exact for powers of two) instead of both into the user's, which
+            # can overflow or underflow.
+            try:
+                a = math.ldexp(a, int(exponents[i]) - int(exponents[j]))
+            except OverflowError:
+                a = math.inf
         if math.isclose(a, b, rel_tol=1e-9, abs_tol=1e-300):
             total += 0.5
         elif a < b:
@@ -881,7 +890,7 @@ def _sortability(scores: np.ndarray, pairs: list[tuple[int, int]]) -> float:
     return total / len(pairs)
 
 
-def varsortability(X, edges: Iterable[tuple[int, int]], paths: bool = False) -> float:
+def varsortability(X, edges: Iterable[tuple[int, int]], paths: bool = False, exponents=None) -> float:
     """Share of edges i -> j along which the marginal variance increases (ties, within 1e-9 relative, count half).
 
     Descriptive.  Near 1, sorting the columns by variance alone already
@@ -891,9 +900,15 @@ def varsortability(X, edges: Iterable[tuple[int, int]], paths: bool = False) -> 
     definition, over every directed path (each path length counted), not
     only the edges.  NaN when there is nothing to score.  Reference:
     Reisach, Seiler & Weichwald (2021), "Beware of the simulated DAG!".
+
+    Unlike every other result, it depends on the units, by design: it asks
+    whether the units the data came in happen to order the variances.
+    ``exponents`` says the columns were scaled by ``2**-exponents`` (as the
+    pipeline does), so the variances are compared in the original units.
     """
     X = as_matrix(X, name="X", min_n=2)
-    return _sortability(X.var(axis=0, ddof=1), _pairs_to_score(edges, X.shape[1], paths))
+    twice = None if exponents is None else 2 * np.asarray(exponents, dtype=np.int64)
+    return _sortability(X.var(axis=0, ddof=1), _pairs_to_score(edges, X.shape[1], paths), twice)
 
 
 def r2_sortability(X, edges: Iterable[tuple[int, int]], paths: bool = False) -> float:

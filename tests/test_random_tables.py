@@ -97,7 +97,6 @@ def test_random_names_render_in_html(tmp_path_factory, text):
     _check_table(tmp_path_factory, text, ["--html", "{dir}/r.html"])
 
 
-@pytest.mark.xfail(strict=False, reason="magnitudes: invariance branch")
 @settings(max_examples=500, deadline=None, phases=[Phase.explicit, Phase.reuse, Phase.generate],
           suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
                                  HealthCheck.function_scoped_fixture])

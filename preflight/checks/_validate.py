@@ -46,3 +46,18 @@ def same_length(*arrays: np.ndarray, names: tuple[str, ...] | None = None) -> in
         label = ", ".join(names) if names else "inputs"
         raise InputError(f"{label} must have the same number of observations, got {sorted(lengths)}")
     return lengths.pop()
+
+
+def unit_scaled(values: np.ndarray) -> np.ndarray:
+    """``values`` times the power of two that brings its largest magnitude into [0.5, 1) (per column for 2-D).
+
+    Exact in floating point (short of the subnormal range), so a check gives
+    the same digits it would in the data's own units, while sums of squares
+    of 1e-200 or 1e200 no longer underflow or overflow, and a relative
+    tolerance against a magnitude of about 1 is the same in any units.
+    """
+    if values.size == 0:
+        return values
+    largest = np.abs(values).max(axis=0)
+    exponents = np.where(largest > 0, np.frexp(largest)[1], 0)
+    return np.ldexp(values, -exponents)

@@ -7,7 +7,7 @@ import math
 import numpy as np
 
 from preflight.checks._distributions import norm_sf, t_sf
-from preflight.checks._validate import as_vector, same_length
+from preflight.checks._validate import as_vector, same_length, unit_scaled
 from preflight.errors import InputError
 from preflight.results import CheckResult
 
@@ -20,13 +20,15 @@ def _pair(x, y, min_n: int) -> tuple[np.ndarray, np.ndarray, int]:
 
 def _is_constant(v: np.ndarray, centred: np.ndarray) -> bool:
     # The mean of a constant column carries round-off, so "constant" means a
-    # spread below 1e-12 of the data's magnitude rather than exactly zero.
+    # spread below 1e-12 of the data's magnitude rather than exactly zero
+    # (v comes scaled to a largest magnitude in [0.5, 1), so this is relative).
     sd = math.sqrt(float(centred @ centred) / v.shape[0])
-    return sd <= 1e-12 * max(float(np.abs(v).max()), 1.0)
+    return sd <= 1e-12 * float(np.abs(v).max())
 
 
 def _correlation(xv: np.ndarray, yv: np.ndarray) -> float | None:
     """Pearson r from centred vectors; None when either is constant."""
+    xv, yv = unit_scaled(xv), unit_scaled(yv)
     xc = xv - xv.mean()
     yc = yv - yv.mean()
     if _is_constant(xv, xc) or _is_constant(yv, yc):
@@ -60,6 +62,7 @@ def _mid_ranks(values: np.ndarray) -> np.ndarray:
 
 
 def _undefined(name: str, n: int, effect_name: str, xv: np.ndarray) -> CheckResult:
+    xv = unit_scaled(xv)
     which = "x" if _is_constant(xv, xv - xv.mean()) else "y"
     return CheckResult(name=name, statistic=math.nan, p_value=None, effect=None, effect_name=effect_name,
                        n=n, note=f"{which} is constant: correlation undefined")
@@ -153,7 +156,7 @@ def pairwise_associations(X, pairs) -> list[tuple[CheckResult, CheckResult]]:
     """
     from preflight.checks._validate import as_matrix
 
-    X = as_matrix(X, name="X", min_n=4)
+    X = unit_scaled(as_matrix(X, name="X", min_n=4))
     n = X.shape[0]
     pairs = [(int(a), int(b)) for a, b in pairs]
     used = sorted({c for pair in pairs for c in pair})

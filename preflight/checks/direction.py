@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 
-from preflight.checks._validate import as_vector, same_length
+from preflight.checks._validate import as_vector, same_length, unit_scaled
 from preflight.errors import InputError
 from preflight.results import CheckResult
 
@@ -111,8 +111,9 @@ def pairwise_likelihood_ratio(x, y, density: str = "entropy") -> CheckResult:
 
 
 def _standardise(v: np.ndarray) -> np.ndarray | None:
+    v = unit_scaled(v)  # exact: the same digits in any units, no overflow or underflow
     centred = v - v.mean()
     sd = float(np.sqrt(centred @ centred / v.shape[0]))
-    if sd <= 1e-12 * max(float(np.abs(v).max()), 1.0):
+    if sd <= 1e-12 * float(np.abs(v).max()):
         return None
     return centred / sd

@@ -37,7 +37,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from preflight.checks._validate import as_vector, same_length
+from preflight.checks._validate import as_vector, same_length, unit_scaled
 from preflight.errors import InputError
 from preflight.results import CheckResult
 
@@ -61,10 +61,11 @@ def _pair(x, y, min_n: int) -> tuple[np.ndarray, np.ndarray, int]:
 
 
 def _standardise(v: np.ndarray) -> np.ndarray | None:
-    """(v - mean) / sd, or None when v is constant (to round-off)."""
+    """(v - mean) / sd, or None when v is constant (to round-off, relative to its magnitude)."""
+    v = unit_scaled(v)  # exact: the same digits in any units, no overflow or underflow
     centred = v - v.mean()
     sd = float(np.sqrt(centred @ centred / v.shape[0]))
-    scale = max(float(np.abs(v).max()), 1.0)
+    scale = float(np.abs(v).max())
     if sd <= 1e-12 * scale:
         return None
     return centred / sd
@@ -77,15 +78,41 @@ def _constant_result(name: str, n: int, which: str, effect_name: str) -> CheckRe
     )
 
 
+def _ends_at_most(s: np.ndarray, t: float) -> np.ndarray:
+    """For each i, the first j with s_j - s_i > t as computed in floating point, for sorted s.
+
+    ``searchsorted(s, s + t)`` alone compares s_j with the rounded sum
+    s_i + t, which can disagree with the rounded difference s_j - s_i that
+    the differences are made of: for a standardised two-valued column
+    a + (b - a) falls one ulp short of b, so every cross pair was counted
+    as above t while its difference equals t, and the selection ran off the
+    end of its candidates.  Rounded subtraction is monotone in s_j, so the
+    pairs with s_j - s_i <= t still form a prefix of s; the guess is moved
+    over whole blocks of tied values until it agrees with the differences.
+    """
+    m = s.shape[0]
+    ends = np.searchsorted(s, s + t, side="right")
+    for _ in range(m + 1):
+        ahead = np.flatnonzero(ends < m)
+        ahead = ahead[s[ends[ahead]] - s[ahead] <= t]
+        behind = np.flatnonzero(ends > 0)
+        behind = behind[s[ends[behind] - 1] - s[behind] > t]
+        if not ahead.size and not behind.size:
+            return ends
+        ends[ahead] = np.searchsorted(s, s[ends[ahead]], side="right")
+        ends[behind] = np.searchsorted(s, s[ends[behind] - 1], side="left")
+    raise AssertionError("rounded differences are not monotone")  # unreachable in IEEE arithmetic
+
+
 def _count_differences_at_most(s: np.ndarray, t: float) -> int:
-    """#{(i, j): i < j, s_j - s_i <= t} for sorted s and t >= 0, in O(m log m)."""
-    return int((np.searchsorted(s, s + t, side="right") - np.arange(1, s.shape[0] + 1)).sum())
+    """#{(i, j): i < j, s_j - s_i <= t} for sorted s, in O(m log m)."""
+    return int(np.maximum(_ends_at_most(s, t) - np.arange(1, s.shape[0] + 1), 0).sum())
 
 
 def _smallest_difference_above(s: np.ndarray, t: float) -> float:
     """min{s_j - s_i : i < j, s_j - s_i > t} for sorted s (exactly one of the observed differences)."""
     m = s.shape[0]
-    nxt = np.searchsorted(s, s + t, side="right")
+    nxt = np.maximum(_ends_at_most(s, t), np.arange(1, m + 1))
     valid = nxt < m
     return float((s[nxt[valid]] - s[valid]).min())
 
@@ -119,8 +146,8 @@ def _kth_difference(s: np.ndarray, k: int) -> float:
 def _enumerate_kth(s: np.ndarray, lo: float, hi: float, rank: int) -> float:
     """The rank-th smallest (1-based) difference s_j - s_i, i < j, lying in (lo, hi]."""
     m = s.shape[0]
-    first = np.maximum(np.searchsorted(s, s + lo, side="right"), np.arange(1, m + 1))
-    widths = np.maximum(np.searchsorted(s, s + hi, side="right") - first, 0)
+    first = np.maximum(_ends_at_most(s, lo), np.arange(1, m + 1))
+    widths = np.maximum(_ends_at_most(s, hi) - first, 0)
     rows = np.repeat(np.arange(m), widths)
     offsets = np.arange(int(widths.sum())) - np.repeat(np.cumsum(widths) - widths, widths)
     candidates = np.sort(s[np.repeat(first, widths) + offsets] - s[rows])
@@ -243,9 +270,10 @@ def _fit_note(fit: _ResidualFit | None) -> str:
 
 def _orthonormal_basis(design: np.ndarray) -> np.ndarray:
     """Orthonormal basis of the column space of the centred design (columns scaled first, rank by SVD)."""
+    design = unit_scaled(design)
     centred = design - design.mean(axis=0)
     norms = np.sqrt(np.einsum("ij,ij->j", centred, centred))
-    scale = max(1.0, float(np.abs(design).max(initial=0.0)))
+    scale = float(np.abs(design).max(initial=0.0))
     keep = norms > 1e-12 * scale * math.sqrt(design.shape[0])
     if not keep.any():
         return np.zeros((design.shape[0], 0))

@@ -135,19 +135,45 @@ def _partialled(samples: dict[str, Any], pair: dict[str, Any]) -> tuple[np.ndarr
 
     names = list(samples["names"])
     values = np.asarray(samples["values"], dtype=np.float64)
-    x = values[:, names.index(pair["x"])]
-    y = values[:, names.index(pair["y"])]
+
+    def column(name: str) -> np.ndarray:
+        v = values[:, names.index(name)]
+        power = _display_power(v)
+        # two steps: 10**power alone is subnormal or overflows at the ends of the range
+        return v / 10.0 ** (power // 2) / 10.0 ** (power - power // 2) if power else v
+
+    x = column(pair["x"])
+    y = column(pair["y"])
     conditioning = [c for c in pair.get("conditioning", []) if c in names]
-    Z = values[:, [names.index(c) for c in conditioning]] if conditioning else None
+    Z = np.column_stack([column(c) for c in conditioning]) if conditioning else None
     return residualize(x, Z) + x.mean(), residualize(y, Z) + y.mean()
 
 
-def _axis_label(name: str, pair: dict[str, Any]) -> str:
+def _display_power(v: np.ndarray) -> int:
+    """0 for a column of ordinary magnitude; else the power of ten its axis is shown in.
+
+    Columns near 1e308 or 1e-300 are analysed exactly (scaled by powers of
+    two), but their sums overflow or underflow in a plot's own arithmetic.
+    """
+    largest = float(np.abs(v).max(initial=0.0))
+    if largest == 0.0 or 1e-100 <= largest <= 1e100:
+        return 0
+    return int(np.floor(np.log10(largest)))
+
+
+def _unit_note(name: str, samples: dict[str, Any] | None) -> str:
+    if samples is None or name not in samples["names"]:
+        return ""
+    power = _display_power(np.asarray(samples["values"], dtype=np.float64)[:, list(samples["names"]).index(name)])
+    return f" [in units of 1e{power}]" if power else ""
+
+
+def _axis_label(name: str, pair: dict[str, Any], samples: dict[str, Any] | None = None) -> str:
     conditioning = pair.get("conditioning") or []
     if not conditioning:
-        return _label(name)
+        return _label(name) + _unit_note(name, samples)
     shown = ", ".join(_label(c) for c in conditioning[:3]) + (", ..." if len(conditioning) > 3 else "")
-    return f"{_label(name)} (given {shown})"
+    return f"{_label(name)} (given {shown}){_unit_note(name, samples)}"
 
 
 def _scatter(ax, x: np.ndarray, y: np.ndarray) -> None:
@@ -215,8 +241,8 @@ def residual_pair_svg(pair: dict[str, Any], samples: dict[str, Any], *, alpha: f
                      f"{' (' + kind + ')' if kind else ''}: {verdict}")
             titles.append(" ".join(title.split()))
             ax.set_title(title, loc="left")
-            ax.set_xlabel(_axis_label(reg_name, pair))
-            ax.set_ylabel(f"residual of {_label(resp_name)}")
+            ax.set_xlabel(_axis_label(reg_name, pair, samples))
+            ax.set_ylabel(f"residual of {_label(resp_name)}{_unit_note(resp_name, samples)}")
             _style_axes(ax)
         fig.tight_layout(w_pad=2.0)
         return _to_svg(fig, key, title="Residual against regressor. Left: " + titles[0] + ". Right: " + titles[1] + ".")
@@ -324,8 +350,8 @@ def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, max_d
                 label=f"cubic spline, {df} df (solid)")
         title = f"{_label(resp_name)} on {_label(reg_name)}: straight line vs spline{gain_text}"
         ax.set_title(title, loc="left")
-        ax.set_xlabel(_axis_label(reg_name, pair))
-        ax.set_ylabel(_axis_label(resp_name, pair))
+        ax.set_xlabel(_axis_label(reg_name, pair, samples))
+        ax.set_ylabel(_axis_label(resp_name, pair, samples))
         ax.legend(loc="best", fontsize=8, frameon=True, framealpha=0.9)
         _style_axes(ax)
         fig.tight_layout()
