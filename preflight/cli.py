@@ -6,6 +6,7 @@ only a weaker conclusion; 2 usage or input error; 3 internal error.
 
 from __future__ import annotations
 
+import functools
 import os
 import sys
 
@@ -18,24 +19,65 @@ from preflight.policy import LEVELS
 EXIT_PASS, EXIT_WEAKER, EXIT_INPUT, EXIT_INTERNAL = 0, 1, 2, 3
 
 
-class _Progress:
-    """One self-overwriting line on stderr, only when stderr is a terminal."""
+@functools.cache
+def _bar_class():
+    from tqdm import tqdm
 
-    def __init__(self, enabled: bool):
-        self.enabled = enabled and sys.stderr.isatty()
-        self.shown = False
+    class Bar(tqdm):
+        # No monitor thread: worker processes are forked while a bar is open.
+        monitor_interval = 0
+
+    return Bar
+
+
+def _terminal_columns(stream) -> int | None:
+    try:
+        return os.get_terminal_size(stream.fileno()).columns
+    except (AttributeError, OSError, ValueError):
+        return None
+
+
+class _Progress:
+    """A progress bar on stderr (tqdm) for the stage at work, only when stderr is a terminal.
+
+    Each stage gets its own bar: stage name, bar, count, elapsed and the
+    estimated time left.  The stages count their own units (candidate pairs
+    scored, variables, pairs), so the estimate follows the work.  ``close``
+    clears the line; call it however the run ends.  tqdm is imported only
+    when a bar is shown, so redirected and ``--quiet`` runs never load it.
+    """
+
+    FORMAT = "{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} [{elapsed}<{remaining}]"
+
+    def __init__(self, enabled: bool, stream=None):
+        self.stream = stream if stream is not None else sys.stderr
+        self.enabled = enabled and self.stream.isatty()
+        self.bar = None
+        self.stage: str | None = None
 
     def __call__(self, stage: str, done: int, total: int) -> None:
         if not self.enabled:
             return
-        sys.stderr.write(f"\r\033[K  {stage}: {done}/{total}")
-        sys.stderr.flush()
-        self.shown = True
+        if self.bar is None or stage != self.stage:
+            self.close()
+            # Follow the terminal's width; one that reports none (0 columns) gets 80.
+            width = _terminal_columns(self.stream)
+            self.bar = _bar_class()(total=max(total, 1), desc=stage, file=self.stream, leave=False,
+                                    bar_format=self.FORMAT, dynamic_ncols=width != 0,
+                                    ncols=80 if width == 0 else None, mininterval=0.2)
+            self.stage = stage
+        if total != self.bar.total and total > 0:
+            self.bar.total = total
+        if done > self.bar.n:
+            self.bar.update(done - self.bar.n)
+        if done >= total:
+            self.bar.refresh()
 
-    def clear(self) -> None:
-        if self.shown:
-            sys.stderr.write("\r\033[K")
-            sys.stderr.flush()
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.bar = None
+            self.stage = None
 
 
 def _use_colour(no_color: bool) -> bool:
@@ -164,7 +206,7 @@ def check_command(data, sep, columns, exclude, missing, graph, require, fail_on,
                        graph=graph, policy=policy, progress=progress,
                        keep_samples=bool(html_path))
     finally:
-        progress.clear()
+        progress.close()
     _write_all(_render_outputs(report, json_path, markdown_path, html_path, junit_path))
     _print_summary(report, quiet, no_color)
     sys.exit(EXIT_PASS if report.passed else EXIT_WEAKER)
@@ -197,7 +239,7 @@ def demo_command(out_dir, rows, seed, quiet, no_color):
     try:
         report = check(data_path, policy=policy, progress=progress)
     finally:
-        progress.clear()
+        progress.close()
     names = {"json": "kiln-report.json", "markdown": "kiln-report.md", "html": "kiln-report.html",
              "junit": "kiln-checks.xml"}
     paths = {k: os.path.join(out_dir, v) for k, v in names.items()}
