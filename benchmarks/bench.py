@@ -456,12 +456,18 @@ def _preflight_command() -> list[str]:
     return [str(exe)] if exe.exists() else [sys.executable, "-m", "preflight"]
 
 
-def _median_wall(command: list[str], repeats: int, ok_codes: tuple[int, ...] = (0,)) -> list[float]:
+def _median_wall(command: list[str], repeats: int, ok_codes: tuple[int, ...] = (0,)) -> list[tuple[float, float]]:
+    """(wall seconds, CPU seconds of the process and its children) of each run."""
+    import resource
+
     times = []
     for _ in range(repeats):
+        before = resource.getrusage(resource.RUSAGE_CHILDREN)
         t = time.perf_counter()
         proc = subprocess.run(command, capture_output=True, cwd=ROOT)
-        times.append(time.perf_counter() - t)
+        wall = time.perf_counter() - t
+        after = resource.getrusage(resource.RUSAGE_CHILDREN)
+        times.append((wall, after.ru_utime - before.ru_utime + after.ru_stime - before.ru_stime))
         if proc.returncode not in ok_codes:
             raise SystemExit(f"{' '.join(command)} exited {proc.returncode}: {proc.stderr.decode()[-300:]}")
     return times
@@ -479,6 +485,7 @@ def startup(repeats: int = 7) -> dict:
     from preflight import scenarios
 
     command = _preflight_command()
+    load = os.getloadavg()[0]
     helps = _median_wall(command + ["--help"], repeats)
     probe = ("import sys; sys.argv = ['preflight', '--help']\n"
              "from preflight.cli import main\n"
@@ -493,18 +500,24 @@ def startup(repeats: int = 7) -> dict:
         np.savetxt(table, s.data, delimiter=",", header=",".join(s.names), comments="", fmt="%.17g")
         _median_wall(command + ["check", str(table)], 1, ok_codes=(0, 1))  # warm the file cache
         checks = _median_wall(command + ["check", str(table)], repeats, ok_codes=(0, 1))
-    return {"help": helps, "check": checks, "loaded": loaded, "command": " ".join(Path(c).name for c in command)}
+    return {"help": helps, "check": checks, "loaded": loaded, "command": " ".join(Path(c).name for c in command),
+            "load": (load, os.getloadavg()[0])}
 
 
 def startup_lines(result: dict, repeats: int) -> list[str]:
-    def spread(times):
-        return f"**{np.median(times):.3f} s** (fastest {min(times):.3f}, slowest {max(times):.3f})"
+    def spread(runs):
+        wall = [w for w, _ in runs]
+        return (f"**{np.median(wall):.3f} s** (fastest {min(wall):.3f}, slowest {max(wall):.3f}) | "
+                f"{np.median([c for _, c in runs]):.3f} s")
 
     return ["### 5. Start-up", "",
             f"Fresh processes (`{result['command']}`), median of {repeats} runs each, "
-            f"run {dt.date.today().isoformat()} on {os.cpu_count()} cores. "
+            f"run {dt.date.today().isoformat()} on {os.cpu_count()} cores; one-minute load average "
+            f"{result['load'][0]:.1f} before and {result['load'][1]:.1f} after (wall times are only "
+            "comparable with the target when it is well below the number of cores; CPU time, user plus "
+            "system of the process and its threads, moves less with load). "
             "`python benchmarks/bench.py --startup-only` reruns this section alone.", "",
-            "| command | target | wall time |", "|---|---|---|",
+            "| command | target (wall) | wall time | CPU time |", "|---|---|---|---|",
             f"| `preflight --help` | 0.3 s | {spread(result['help'])} |",
             f"| `preflight check` of a 2-column, 2,000-row CSV | 1 s | {spread(result['check'])} |", "",
             f"Heavy modules loaded by `--help`: {', '.join(result['loaded']) if result['loaded'] else 'none'}."]

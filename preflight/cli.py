@@ -60,11 +60,13 @@ class _Progress:
             return
         if self.bar is None or stage != self.stage:
             self.close()
-            # Follow the terminal's width; one that reports none (0 columns) gets 80.
+            # The terminal's width (80 when it reports none), less three columns so
+            # that the "^C" a terminal echoes on Ctrl-C stays on the bar's line
+            # and is erased with it.
             width = _terminal_columns(self.stream)
             self.bar = _bar_class()(total=max(total, 1), desc=stage, file=self.stream, leave=False,
-                                    bar_format=self.FORMAT, dynamic_ncols=width != 0,
-                                    ncols=80 if width == 0 else None, mininterval=0.2)
+                                    bar_format=self.FORMAT, mininterval=0.2,
+                                    ncols=None if width is None else max(20, (width or 80) - 3))
             self.stage = stage
         if total != self.bar.total and total > 0:
             self.bar.total = total
@@ -76,6 +78,8 @@ class _Progress:
     def close(self) -> None:
         if self.bar is not None:
             self.bar.close()
+            self.stream.write("\r\033[K")  # erase the whole line, an echoed "^C" included
+            self.stream.flush()
             self.bar = None
             self.stage = None
 

@@ -36,7 +36,7 @@ def test_bar_shows_stage_count_elapsed_and_time_left_and_clears_its_line():
     progress("pair battery", 10, 10)
     progress("second pass", 1, 2)
     progress.close()
-    lines = [part for part in stream.getvalue().split("\r") if part.strip()]
+    lines = [part for part in stream.getvalue().split("\r") if part.strip() and part != "\x1b[K"]
     bars = [BAR.search(line) for line in lines]
     assert all(bars), lines
     # Updates within tqdm's minimum interval are not redrawn; a finished stage always is.
@@ -44,8 +44,8 @@ def test_bar_shows_stage_count_elapsed_and_time_left_and_clears_its_line():
         ("pair battery", "0", "10"), ("pair battery", "10", "10"), ("second pass", "0", "2")]
     assert bars[0]["left"] == "?"  # no rate yet, so no estimate
     assert bars[1]["pct"] == "100" and bars[1]["left"] == "00:00"
-    # Closing leaves a blank line behind: the last thing written erases the bar.
-    assert stream.getvalue().rstrip("\r").split("\r")[-1].strip() == ""
+    # Closing erases the whole line (an echoed "^C" included): the last thing written.
+    assert stream.getvalue().endswith("\r\x1b[K")
     assert progress.bar is None
 
 
@@ -109,13 +109,13 @@ def test_bar_on_a_terminal_and_nothing_with_quiet_or_a_pipe_same_reports(tmp_pat
     common = ["check", data, "--seed", "3", "--jobs", "1"]
 
     code, out, terminal = _run_on_terminal(common + ["--json", "bar.json", "--markdown", "bar.md"], tmp_path)
-    bars = [BAR.search(part) for part in terminal.split("\r") if part.strip()]
+    bars = [BAR.search(part) for part in terminal.split("\r") if part.strip() and part != "\x1b[K"]
     assert bars and all(bars), terminal
     stages = [m["stage"] for m in bars]
     for stage in ("causal order", "noise shape", "pair battery"):
         assert stage in stages
     assert ("pair battery", "3", "3") in [(m["stage"], m["done"], m["total"]) for m in bars]
-    assert terminal.rstrip("\r").split("\r")[-1].strip() == ""  # the bar is cleared at the end
+    assert terminal.endswith("\r\x1b[K")  # the bar's line is erased at the end
     assert "%|" not in out and "\r" not in out  # stdout carries the summary only
 
     quiet_code, quiet_out, quiet_terminal = _run_on_terminal(common + ["--quiet", "--json", "quiet.json"], tmp_path)
@@ -130,3 +130,30 @@ def test_bar_on_a_terminal_and_nothing_with_quiet_or_a_pipe_same_reports(tmp_pat
     assert _text(tmp_path / "bar.json") == _text(tmp_path / "pipe.json") == _text(tmp_path / "quiet.json")
     assert _report(tmp_path / "bar.json") == _report(tmp_path / "pipe.json")
     assert _text(tmp_path / "bar.md") == _text(tmp_path / "pipe.md")
+
+
+@pytest.mark.parametrize("failure", ["interrupt", "input error", "internal error"])
+def test_bar_is_erased_before_the_run_ends_on_a_failure(monkeypatch, tmp_path, failure):
+    import preflight.api
+    from preflight.cli import main
+    from preflight.errors import InputError
+
+    def failing_check(data, *, progress, **_):
+        progress("pair battery", 2, 8)
+        raise {"interrupt": KeyboardInterrupt(), "input error": InputError("the table went away"),
+               "internal error": RuntimeError("boom")}[failure]
+
+    monkeypatch.setattr(preflight.api, "check", failing_check)
+    terminal = _Terminal()
+    monkeypatch.setattr(sys, "stderr", terminal)
+    data = write_csv(tmp_path / "t.csv", {"a": np.arange(40.0), "b": np.arange(40.0) ** 2})
+    with pytest.raises(SystemExit) as stopped:
+        main(["check", data])
+    assert stopped.value.code != 0
+    text = terminal.getvalue()
+    assert BAR.search(text)["stage"] == "pair battery"
+    # The bar's line is erased first; the one-line message follows on a clean line
+    # (on Ctrl-C click ends the echoed "^C" line first).
+    drawn, after = text.split("\r\x1b[K", 1)
+    assert "\n" not in drawn and "%|" not in after
+    assert after.lstrip("\n").startswith("preflight: ") and after.rstrip("\n").count("\n") <= 1
