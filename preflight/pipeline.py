@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import datetime as _dt
-import importlib
 import itertools
 import os
 from dataclasses import dataclass, replace
@@ -361,26 +360,8 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
 # ---------------------------------------------------------------- the run
 
 
-def _helper_thread(policy: Policy, pool):
-    """One thread beside this one for a table too small for worker processes; None with --jobs 1."""
-    if pool is not None or _jobs(policy) <= 1:
-        return None
-    import concurrent.futures as cf
-
-    return cf.ThreadPoolExecutor(max_workers=1, thread_name_prefix="preflight-helper")
-
-
 def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progress, pool):
     """Structural view, adjacency, every pair's battery and the whole-table screens."""
-    helper = _helper_thread(policy, pool)
-    try:
-        return _analyse_table_with(X, names, pair_index, policy, graph, progress, pool, helper)
-    finally:
-        if helper is not None:
-            helper.shutdown(wait=True, cancel_futures=True)
-
-
-def _analyse_table_with(X, names, pair_index, policy: Policy, graph, progress: Progress, pool, helper):
     whole = pool.submit(_whole_table_task, policy) if pool is not None else None
     view = _structural_view(X, names, policy, progress)
     progress("skeleton", 0, 1)
@@ -393,15 +374,6 @@ def _analyse_table_with(X, names, pair_index, policy: Policy, graph, progress: P
     # the association checks.
     noise_future = (pool.submit(_noise_dependence_task, view.noise, noise_pairs, policy)
                     if pool is not None and noise_pairs else None)
-    if helper is not None:
-        # A small table runs in this process; the helper thread takes the noise
-        # HSICs (numpy work that releases the interpreter lock, so it runs
-        # beside the pairs here) and then imports scikit-learn for the FastICA
-        # screen, which would otherwise hold up the end of the run.  Each
-        # check is a pure function with its own seeds: results are the same.
-        if noise_pairs:
-            noise_future = helper.submit(_noise_dependence_results, view.noise, names, noise_pairs, policy)
-        helper.submit(importlib.import_module, "sklearn.decomposition")
     ready = _shared_association(X, names, [pair for pair in pair_index if not sets[pair][0]], policy, progress)
     tasks = [(i, j, *sets[(i, j)], bool(adjacency[i, j]), policy, ready.get((i, j))) for i, j in pair_index]
     if noise_pairs:

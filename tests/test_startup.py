@@ -1,4 +1,4 @@
-"""Start-up: a small table runs in this process with one helper thread, and the result does not change."""
+"""Start-up: what a check imports only when it needs it."""
 
 import subprocess
 import sys
@@ -6,34 +6,6 @@ import sys
 import numpy as np
 
 from conftest import ROOT, write_csv
-
-
-def test_small_table_uses_a_helper_thread_and_gives_the_same_report(monkeypatch):
-    import preflight
-    from preflight import pipeline
-    from preflight.scenarios import simulate, to_frame
-
-    made = []
-    original = pipeline._helper_thread
-
-    def spy(policy, pool):
-        helper = original(policy, pool)
-        made.append((policy.jobs, pool is None, helper is not None))
-        return helper
-
-    monkeypatch.setattr(pipeline, "_helper_thread", spy)
-    frame = to_frame(simulate("linear-non-gaussian", "chain", p=3, n=800, noise="uniform", seed=2))
-    alone = preflight.check(frame, seed=6, jobs=1, keep_samples=False).to_dict()
-    helped = preflight.check(frame, seed=6, jobs=2, keep_samples=False).to_dict()
-    # No worker processes for a table this small; the helper thread only when more than one job is allowed.
-    assert made == [(1, True, False), (2, True, True)]
-    assert "sklearn.decomposition" in sys.modules
-    for report in (alone, helped):
-        report.pop("generated_at")
-        report["settings"].pop("jobs")
-    assert alone == helped
-    assert any(pair["checks"] and any(c["name"].startswith("noise dependence") for c in pair["checks"])
-               for pair in helped["pairs"])
 
 
 def test_check_without_a_terminal_never_imports_the_progress_bar(tmp_path):
