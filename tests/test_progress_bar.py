@@ -157,3 +157,13 @@ def test_bar_is_erased_before_the_run_ends_on_a_failure(monkeypatch, tmp_path, f
     drawn, after = text.split("\r\x1b[K", 1)
     assert "\n" not in drawn and "%|" not in after
     assert after.lstrip("\n").startswith("preflight: ") and after.rstrip("\n").count("\n") <= 1
+
+
+def test_causal_order_reports_pairs_scored_and_keeps_its_answer():
+    from preflight.structure import causal_order
+
+    X = np.random.default_rng(4).laplace(size=(300, 6)) @ np.triu(np.ones((6, 6)))
+    steps = []
+    assert causal_order(X, seed=1, on_step=lambda done, total: steps.append((done, total))) == causal_order(X, seed=1)
+    # One call per step; a step over k columns scores k (k - 1) / 2 pairs.
+    assert steps == [(15, 35), (25, 35), (31, 35), (34, 35), (35, 35)]
