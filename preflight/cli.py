@@ -7,6 +7,7 @@ only a weaker conclusion; 2 usage or input error; 3 internal error; 130 and
 
 from __future__ import annotations
 
+import functools
 import os
 import sys
 
@@ -19,24 +20,69 @@ from preflight.policy import LEVELS
 EXIT_PASS, EXIT_WEAKER, EXIT_INPUT, EXIT_INTERNAL = 0, 1, 2, 3
 
 
-class _Progress:
-    """One self-overwriting line on stderr, only when stderr is a terminal."""
+@functools.cache
+def _bar_class():
+    from tqdm import tqdm
 
-    def __init__(self, enabled: bool):
-        self.enabled = enabled and sys.stderr.isatty()
-        self.shown = False
+    class Bar(tqdm):
+        # No monitor thread: worker processes are forked while a bar is open.
+        monitor_interval = 0
+
+    return Bar
+
+
+def _terminal_columns(stream) -> int | None:
+    try:
+        return os.get_terminal_size(stream.fileno()).columns
+    except (AttributeError, OSError, ValueError):
+        return None
+
+
+class _Progress:
+    """A progress bar on stderr (tqdm) for the stage at work, only when stderr is a terminal.
+
+    Each stage gets its own bar: stage name, bar, count, elapsed and the
+    estimated time left.  The stages count their own units (candidate pairs
+    scored, variables, pairs), so the estimate follows the work.  ``close``
+    clears the line; call it however the run ends.  tqdm is imported only
+    when a bar is shown, so redirected and ``--quiet`` runs never load it.
+    """
+
+    FORMAT = "{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} [{elapsed}<{remaining}]"
+
+    def __init__(self, enabled: bool, stream=None):
+        self.stream = stream if stream is not None else sys.stderr
+        self.enabled = enabled and self.stream.isatty()
+        self.bar = None
+        self.stage: str | None = None
 
     def __call__(self, stage: str, done: int, total: int) -> None:
         if not self.enabled:
             return
-        sys.stderr.write(f"\r\033[K  {stage}: {done}/{total}")
-        sys.stderr.flush()
-        self.shown = True
+        if self.bar is None or stage != self.stage:
+            self.close()
+            # The terminal's width (80 when it reports none), less three columns so
+            # that the "^C" a terminal echoes on Ctrl-C stays on the bar's line
+            # and is erased with it.
+            width = _terminal_columns(self.stream)
+            self.bar = _bar_class()(total=max(total, 1), desc=stage, file=self.stream, leave=False,
+                                    bar_format=self.FORMAT, mininterval=0.2,
+                                    ncols=None if width is None else max(20, (width or 80) - 3))
+            self.stage = stage
+        if total != self.bar.total and total > 0:
+            self.bar.total = total
+        if done > self.bar.n:
+            self.bar.update(done - self.bar.n)
+        if done >= total:
+            self.bar.refresh()
 
-    def clear(self) -> None:
-        if self.shown:
-            sys.stderr.write("\r\033[K")
-            sys.stderr.flush()
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
+            self.stream.write("\r\033[K")  # erase the whole line, an echoed "^C" included
+            self.stream.flush()
+            self.bar = None
+            self.stage = None
 
 
 def _use_colour(no_color: bool) -> bool:
@@ -205,7 +251,7 @@ def check_command(data, sep, columns, exclude, missing, graph, require, fail_on,
                        graph=graph, policy=policy, progress=progress,
                        keep_samples=html_path is not None)
     finally:
-        progress.clear()
+        progress.close()
     _write_all(_render_outputs(report, targets))
     _print_warnings(report, quiet)
     from preflight.pipeline import jobs_note
@@ -250,7 +296,7 @@ def demo_command(out_dir, rows, seed, quiet, no_color):
     try:
         report = check(data_path, policy=policy, progress=progress)
     finally:
-        progress.clear()
+        progress.close()
     _write_all(_render_outputs(report, targets))
     _print_summary(report, quiet, no_color)
     if not quiet:

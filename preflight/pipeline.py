@@ -33,7 +33,8 @@ class StructuralView:
     gaussian_noises: tuple[str, ...]
 
 
-def _many_pair_hsic(X: np.ndarray, names, pairs, label: str, policy: Policy, pair_seeds) -> list[CheckResult]:
+def _many_pair_hsic(X: np.ndarray, names, pairs, label: str, policy: Policy, pair_seeds,
+                    progress: Progress | None = None) -> list[CheckResult]:
     """HSIC of many column pairs at once (:func:`preflight.checks.independence.hsic_pairs`) under the policy.
 
     Row subsample and random features are seeded by ``label`` and the column
@@ -45,10 +46,12 @@ def _many_pair_hsic(X: np.ndarray, names, pairs, label: str, policy: Policy, pai
         X, pairs, pair_seeds, exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
         n_features=policy.hsic_features, permutations=policy.hsic_permutations,
         seed=derived_seed(policy.seed, f"{label} rows"),
-        column_seeds=[derived_seed(policy.seed, f"{label} features", name) for name in names])
+        column_seeds=[derived_seed(policy.seed, f"{label} features", name) for name in names],
+        on_pair=None if progress is None else (lambda done, total: progress(label, done, total)))
 
 
-def _noise_dependence_results(noise: np.ndarray, names, pairs, policy: Policy) -> list[CheckResult]:
+def _noise_dependence_results(noise: np.ndarray, names, pairs, policy: Policy,
+                              progress: Progress | None = None) -> list[CheckResult]:
     """HSIC between the noise estimates of every given (adjacent) pair.
 
     Seeds follow the column names, not positions, so reordering the columns
@@ -57,7 +60,8 @@ def _noise_dependence_results(noise: np.ndarray, names, pairs, policy: Policy) -
     if not pairs:
         return []
     return _many_pair_hsic(noise, names, pairs, "noise dependence", policy,
-                           [derived_seed(policy.seed, "noise dependence", names[i], names[j]) for i, j in pairs])
+                           [derived_seed(policy.seed, "noise dependence", names[i], names[j]) for i, j in pairs],
+                           progress)
 
 
 def _noise_dependence_task(noise: np.ndarray, pairs, policy: Policy) -> list[CheckResult]:
@@ -96,18 +100,21 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
     from preflight.checks.normality import normality_checks
 
     p = X.shape[1]
-    progress("causal order", 0, 1)
-    order = tuple(int(i) for i in structure.causal_order(X, seed=policy.seed))
+    # Counted in candidate pairs scored, which is what each step costs.
+    progress("causal order", 0, max(1, (p + 1) * p * (p - 1) // 6))
+    order = tuple(int(i) for i in structure.causal_order(
+        X, seed=policy.seed, on_step=lambda done, total: progress("causal order", done, total)))
     parents = structure.prune_parents(X, order, alpha=policy.alpha, correction=policy.correction)
     noise = structure.noise_estimates(X, parents)
-    progress("causal order", 1, 1)
 
     variable_checks: dict[int, list[Tagged]] = {j: [] for j in range(p)}
+    progress("noise shape", 0, p)
     for j, name in enumerate(names):
         seed = derived_seed(policy.seed, "noise", name)
         for result in normality_checks(noise[:, j], max_n=policy.shapiro_max_n, seed=seed):
             variable_checks[j].append(Tagged("noise normality", "variable",
                                              result.with_name(f"{result.name} (noise of {name})")))
+        progress("noise shape", j + 1, p)
     from preflight.checks.confounding import SPECTRAL_MIN_PREDICTORS, spectral_confounding
 
     for j, name in enumerate(names):
@@ -191,7 +198,8 @@ def _conditioning_sets(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[
     return conditioning, others_of_j, others_of_i
 
 
-def _shared_association(X: np.ndarray, names, pairs, policy: Policy) -> dict[tuple[int, int], tuple]:
+def _shared_association(X: np.ndarray, names, pairs, policy: Policy,
+                        progress: Progress | None = None) -> dict[tuple[int, int], tuple]:
     """Association checks of the given pairs (unconditioned) at once: (i, j) -> (pearson, spearman, hsic).
 
     Pearson and Spearman come from two correlation matrices
@@ -209,7 +217,7 @@ def _shared_association(X: np.ndarray, names, pairs, policy: Policy) -> dict[tup
         kernel = [None] * len(pairs)
     else:
         kernel = _many_pair_hsic(X, names, pairs, "association", policy,
-                                 [derived_seed(policy.seed, names[i], names[j]) for i, j in pairs])
+                                 [derived_seed(policy.seed, names[i], names[j]) for i, j in pairs], progress)
     return {pair: (pearson, spearman, hsic) for pair, (pearson, spearman), hsic in zip(pairs, linear, kernel)}
 
 
@@ -328,24 +336,27 @@ def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=Non
     for k in ready:
         results[k] = _battery_task(tasks[k])
     heavy = [k for k in range(len(tasks)) if results[k] is None]
-    done = len(ready)
-    progress("pair battery", done, len(tasks))
+    # Counted over the pairs that need the whole battery: the others are done
+    # already and would make the time left look shorter than it is.
+    done = 0
+    progress("pair battery", done, len(heavy))
     if pool is None or len(heavy) < 2:
         for k in heavy:
             results[k] = _battery_task(tasks[k])
             done += 1
-            progress("pair battery", done, len(tasks))
+            progress("pair battery", done, len(heavy))
         return results
     chunk = max(1, len(heavy) // (8 * jobs))
     for k, result in zip(heavy, pool.map(_battery_task, [tasks[k] for k in heavy], chunksize=chunk)):
         results[k] = result
         done += 1
-        progress("pair battery", done, len(tasks))
+        progress("pair battery", done, len(heavy))
     return results
 
 
 def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batteries: list[PairBattery],
-                                              adjusted, groups: list[list[Tagged]], policy: Policy):
+                                              adjusted, groups: list[list[Tagged]], policy: Policy,
+                                              progress: Progress | None = None):
     """Re-run, without them, the pairs conditioned on variables that sit in a nonlinear relation.
 
     Conditioning sets rest on the structural view's linear causal order.  A
@@ -377,9 +388,11 @@ def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batter
         if in_nonlinear <= excluded:
             return batteries, groups
         excluded |= in_nonlinear
-        for k, ij in enumerate(pair_index):
-            if not set(current[ij]) & excluded:
-                continue
+        rerun = [k for k, ij in enumerate(pair_index) if set(current[ij]) & excluded]
+        for done, k in enumerate(rerun):
+            ij = pair_index[k]
+            if progress is not None:
+                progress("second pass", done, len(rerun))
             dropped = tuple(c for c in current[ij] if c in excluded)
             kept = tuple(c for c in current[ij] if c not in excluded)
             current[ij] = kept
@@ -390,6 +403,8 @@ def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batter
             checks = (replace(first, result=replace(first.result, note=f"{first.result.note}; {note}"
                                                     if first.result.note else note)),) + battery.checks[1:]
             batteries[k] = replace(battery, checks=checks)
+        if progress is not None and rerun:
+            progress("second pass", len(rerun), len(rerun))
         groups = adjusted(batteries)
     return batteries, groups
 
@@ -415,7 +430,9 @@ def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progre
     """Structural view, adjacency, every pair's battery and the whole-table screens."""
     whole = pool.submit(_whole_table_task, policy) if pool is not None else None
     view = _structural_view(X, names, policy, progress, exponents)
+    progress("skeleton", 0, 1)
     adjacency, cpdag, adjacency_source = _adjacency(X, names, policy, graph)
+    progress("skeleton", 1, 1)
     sets = {(i, j): _conditioning_sets(i, j, adjacency, view.parents) for i, j in pair_index}
     noise_pairs = [ij for ij in pair_index if adjacency[ij]]
     # The noise HSICs need nothing the pairs need: with workers they run in
@@ -423,13 +440,17 @@ def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progre
     # the association checks.
     noise_future = (pool.submit(_noise_dependence_task, view.noise, noise_pairs, policy)
                     if pool is not None and noise_pairs else None)
-    ready = _shared_association(X, names, [pair for pair in pair_index if not sets[pair][0]], policy)
+    ready = _shared_association(X, names, [pair for pair in pair_index if not sets[pair][0]], policy, progress)
     tasks = [(i, j, *sets[(i, j)], bool(adjacency[i, j]), policy, ready.get((i, j))) for i, j in pair_index]
+    if noise_pairs:
+        progress("noise dependence", 0, len(noise_pairs))
     noise_results = (noise_future.result() if noise_future is not None
-                     else _noise_dependence_results(view.noise, names, noise_pairs, policy))
+                     else _noise_dependence_results(view.noise, names, noise_pairs, policy, progress))
     noise_dep = _tag_noise_dependence(noise_results, names, noise_pairs, progress)
     batteries = _run_batteries(X, names, tasks, policy, progress, pool)
+    progress("whole-table screens", 0, 1)
     whole_result = whole.result() if whole is not None else _whole_table_screens(X, policy)
+    progress("whole-table screens", 1, 1)
     return view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole_result, sets
 
 
@@ -585,7 +606,7 @@ def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, pro
     groups = adjusted(batteries)
     if view is not None:
         batteries, groups = _drop_conditioning_in_nonlinear_relations(
-            X, names, pair_index, sets, batteries, adjusted, groups, policy)
+            X, names, pair_index, sets, batteries, adjusted, groups, policy, progress)
     pair_groups = groups[:len(batteries)]
     noise_groups = groups[len(pair_groups):len(pair_groups) + len(noise_groups)]
     var_groups = groups[len(pair_groups) + len(noise_groups):-1]

@@ -21,7 +21,7 @@ from __future__ import annotations
 import functools
 import math
 from dataclasses import dataclass
-from typing import Iterable, Sequence
+from typing import Callable, Iterable, Sequence
 
 import numpy as np
 
@@ -220,7 +220,8 @@ EXPLAINED_SHARE = 1e-12
 """A column whose variance left after the residualising steps is below this share of its own is treated as explained."""
 
 
-def causal_order(X, seed: int = 0, measure: str = "auto", max_n: int | None = None) -> tuple[int, ...]:
+def causal_order(X, seed: int = 0, measure: str = "auto", max_n: int | None = None,
+                 on_step: Callable[[int, int], None] | None = None) -> tuple[int, ...]:
     """A causal order of the columns by the DirectLiNGAM search.
 
     Descriptive (no test): under a linear acyclic model with independent
@@ -250,6 +251,10 @@ def causal_order(X, seed: int = 0, measure: str = "auto", max_n: int | None = No
 
     ``max_n``: when given and n is larger, the search runs on a seeded
     subsample of ``max_n`` rows drawn with ``seed``; otherwise ``seed`` is unused.
+    ``on_step(done, total)``, when given, is called after each step with
+    the candidate pairs scored so far and in all (a step over k columns
+    scores k (k - 1) / 2 pairs, so the count follows the work); it cannot
+    change the result.
     Returns the column indices, most exogenous first.
     """
     if measure not in MEASURES:
@@ -269,6 +274,8 @@ def causal_order(X, seed: int = 0, measure: str = "auto", max_n: int | None = No
     left = np.ones(p)
     order: list[int] = []
     k = p
+    pairs_total = (p + 1) * p * (p - 1) // 6  # sum of k (k - 1) / 2 for k = 2..p
+    pairs_done = 0
     while k > 1:
         active = Z[:, :k]
         rho = active.T @ active / n
@@ -296,6 +303,9 @@ def causal_order(X, seed: int = 0, measure: str = "auto", max_n: int | None = No
         block -= chosen[:, None] * slopes[None, :]
         block /= np.sqrt(np.where(degenerate[:k], 1.0, remaining_share))[None, :]
         block[:, degenerate[:k]] = 0.0
+        pairs_done += (k + 1) * k // 2
+        if on_step is not None:
+            on_step(pairs_done, pairs_total)
     order.extend(labels[:1])
     return tuple(order)
 

@@ -202,7 +202,7 @@ def test_help_and_version_import_no_heavy_module(argument):
              f"sys.argv = ['preflight', {argument!r}]\n"
              "from preflight.cli import main\n"
              "try:\n    main()\nexcept SystemExit:\n    pass\n"
-             "heavy = ('numpy', 'scipy', 'pandas', 'statsmodels', 'sklearn', 'matplotlib', 'pingouin', 'pyarrow')\n"
+             "heavy = ('numpy', 'scipy', 'pandas', 'statsmodels', 'sklearn', 'matplotlib', 'pingouin', 'pyarrow', 'tqdm')\n"
              "print('LOADED=' + ','.join(m for m in heavy if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, check=True).stdout
     assert out.strip().splitlines()[-1] == "LOADED=", out

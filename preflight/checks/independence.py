@@ -33,7 +33,7 @@ import hashlib
 import math
 from collections import OrderedDict
 from dataclasses import replace
-from typing import NamedTuple
+from typing import Callable, NamedTuple
 
 import numpy as np
 
@@ -729,7 +729,8 @@ def hsic(x, y, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 40
 
 
 def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 40,
-               permutations: int = 0, seed: int = 0, column_seeds=None) -> list[CheckResult]:
+               permutations: int = 0, seed: int = 0, column_seeds=None,
+               on_pair: Callable[[int, int], None] | None = None) -> list[CheckResult]:
     """:func:`hsic` for many pairs of columns of one table, sharing the work between pairs.
 
     H0 for each pair (a, b): column a and column b are independent.  Up to
@@ -743,6 +744,9 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
     columns in many pairs this is about three times fewer products and k
     instead of 2 * #pairs feature evaluations.  References: Gretton et al.
     (2008); Zhang et al. (2018).
+
+    ``on_pair(done, total)``, when given, is called as each pair is
+    finished (for a progress display); it cannot change a result.
     """
     from preflight.checks._validate import as_matrix
 
@@ -754,9 +758,17 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
     n_features = _check_features(n_features)
     n = X.shape[0]
     m = min(n, int(max_n))
+    def finished(results: list[CheckResult]) -> None:
+        if on_pair is not None:
+            on_pair(len(results), len(pairs))
+
     if m <= exact_max_n or not pairs:
-        return [hsic(X[:, a], X[:, b], exact_max_n=exact_max_n, max_n=max_n, n_features=n_features,
-                     permutations=permutations, seed=s) for (a, b), s in zip(pairs, seeds)]
+        exact: list[CheckResult] = []
+        for (a, b), s in zip(pairs, seeds):
+            exact.append(hsic(X[:, a], X[:, b], exact_max_n=exact_max_n, max_n=max_n, n_features=n_features,
+                              permutations=permutations, seed=s))
+            finished(exact)
+        return exact
     subsample_note = ""
     if n > max_n:
         rows = np.sort(np.random.default_rng(seed).choice(n, int(max_n), replace=False))
@@ -780,6 +792,7 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
         if features[a] is None or features[b] is None:
             result = _constant_result("hsic", m, "x" if features[a] is None else "y", _NORMALISED_HSIC)
             out.append(replace(result, note=subsample_note + result.note))
+            finished(out)
             continue
         phi, trace_x, norm_xx, fallback_x = features[a]
         psi, trace_y, norm_yy, fallback_y = features[b]
@@ -795,6 +808,7 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
                   f"(Zhang et al. 2018); {_bandwidth_rows_note(m)}{_bandwidth_note(fallback_x, fallback_y)}"
                   f"{null_note}{ignored_note}"),
         ))
+        finished(out)
     return out
 
 
