@@ -133,21 +133,6 @@ def simple_slope(x: np.ndarray, y: np.ndarray) -> tuple[float, np.ndarray]:
     return slope, yc - slope * xc
 
 
-def pairwise_slopes(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """All slopes b[i, j] of column j regressed on column i, from one covariance matrix.
-
-    Returns (slopes, residual_variances) where residual_variances[i, j] is the
-    variance of the residual of j on i.
-    """
-    cov = np.cov(X, rowvar=False, ddof=0)
-    var = np.diag(cov).copy()
-    safe = np.where(var > 0, var, 1.0)
-    slopes = cov / safe[:, None]
-    resid_var = var[None, :] - slopes * cov
-    np.fill_diagonal(resid_var, 0.0)
-    return slopes, resid_var
-
-
 def spline_df(n: int, max_df: int = 10) -> int:
     """Degrees of freedom of the regression spline: round(n ** 0.2) + 2, within [4, max_df].
 

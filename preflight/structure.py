@@ -10,8 +10,8 @@
   independent.
 * :func:`henze_zirkler` -- multivariate normality of the whole table.
 * :func:`rows_needed` -- rows for Jarque-Bera to see a given noise shape.
-* :func:`varsortability`, :func:`r2_sortability` -- Reisach et al. (2021,
-  2023): would sorting by marginal variance (or R^2) already give the order?
+* :func:`varsortability` -- Reisach et al. (2021): would sorting by
+  marginal variance already give the order?
 * :func:`spectral_confounding` -- re-exported from
   :mod:`preflight.checks.confounding`.
 """
@@ -39,7 +39,6 @@ __all__ = [
     "noise_estimates",
     "pairwise_likelihood_ratios",
     "prune_parents",
-    "r2_sortability",
     "rows_needed",
     "spectral_confounding",
     "varsortability",
@@ -919,22 +918,3 @@ def varsortability(X, edges: Iterable[tuple[int, int]], paths: bool = False, exp
     X = as_matrix(X, name="X", min_n=2)
     twice = None if exponents is None else 2 * np.asarray(exponents, dtype=np.int64)
     return _sortability(X.var(axis=0, ddof=1), _pairs_to_score(edges, X.shape[1], paths), twice)
-
-
-def r2_sortability(X, edges: Iterable[tuple[int, int]], paths: bool = False) -> float:
-    """Share of edges i -> j along which R^2 on all other columns increases (ties count half).
-
-    Descriptive.  R^2 of each column regressed on all others (with
-    intercept) is scale-invariant, so unlike varsortability it survives
-    standardisation; near 1 means the order can be read off the R^2.
-    Constant columns score R^2 = 0.  Reference: Reisach et al. (2023), "A
-    scale-invariant sorting criterion to find a causal order in additive
-    noise models" (NeurIPS).
-    """
-    from preflight.screen import variance_inflation_factors
-
-    X = as_matrix(X, name="X", min_n=3)
-    vif = variance_inflation_factors(X)
-    with np.errstate(divide="ignore"):
-        r_squared = np.where(np.isnan(vif), 0.0, 1.0 - 1.0 / vif)
-    return _sortability(r_squared, _pairs_to_score(edges, X.shape[1], paths))

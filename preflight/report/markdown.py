@@ -196,8 +196,6 @@ REFERENCES = {
                    "dependence with Hilbert-Schmidt norms. Algorithmic Learning Theory (ALT), 63-77.",
     "gretton2008": "Gretton, A., Fukumizu, K., Teo, C. H., Song, L., Schoelkopf, B. and Smola, A. J. (2008). A kernel "
                    "statistical test of independence. Advances in Neural Information Processing Systems 20.",
-    "harvey1977": "Harvey, A. C. and Collier, P. (1977). Testing for functional misspecification in regression "
-                  "analysis. Journal of Econometrics 6(1), 103-119.",
     "henze1990": "Henze, N. and Zirkler, B. (1990). A class of invariant consistent tests for multivariate "
                  "normality. Communications in Statistics - Theory and Methods 19(10), 3595-3617.",
     "holm1979": "Holm, S. (1979). A simple sequentially rejective multiple test procedure. Scandinavian Journal "
@@ -300,8 +298,6 @@ METHODS: tuple[Method, ...] = (
            ("ramsey1969",), _has("ramsey", "reset")),
     Method("spline-f", "linearity", "a nested-model F-test of a cubic regression spline (B-spline basis with "
            "knots at quantiles; de Boor 1978) against the straight line", ("deboor1978",), _has("spline f")),
-    Method("harvey-collier", "linearity", "the Harvey-Collier test on recursive residuals (Harvey and Collier 1977)",
-           ("harvey1977",), _has("harvey")),
     Method("breusch-pagan", "variance", "the Breusch-Pagan test (Breusch and Pagan 1979) in Koenker's "
            "studentized form (Koenker 1981)", ("breusch1979", "koenker1981"), _has("breusch")),
     Method("white", "variance", "White's test (White 1980)", ("white1980",), _starts("white")),
