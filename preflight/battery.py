@@ -53,16 +53,12 @@ class PairFindings:
     x: str
     y: str
     adjacent: bool
-    orientation: str
     lingam_orientation: str
     anm_orientation: str
     flags: tuple[str, ...]
     facts: frozenset[str]
     checks: tuple[CheckResult, ...]
-    favoured: str
-    """``forward`` or ``reverse``: the direction whose residual looks most independent."""
     conditioning: tuple[str, ...] = ()
-    note: str = ""
 
 
 def _hsic_kwargs(policy: Policy, seed: int) -> dict:
@@ -306,9 +302,8 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
             judged.append(t.result)
         if noise_dependence is not None:
             judged.append(replace(noise_dependence, passed=not significant(noise_dependence, alpha)))
-        return PairFindings(battery.x, battery.y, False, "undetermined", "undetermined", "undetermined",
-                            tuple(flags), frozenset(facts | set(flags)), tuple(judged), "forward",
-                            battery.conditioning)
+        return PairFindings(battery.x, battery.y, False, "undetermined", "undetermined",
+                            tuple(flags), frozenset(facts | set(flags)), tuple(judged), battery.conditioning)
 
     facts.add("adjacent")
     indep = {role: not any(significant(r, alpha) for r in _of(checks, "residual independence", role))
@@ -416,6 +411,5 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     if noise_dependence is not None:
         judged.append(replace(noise_dependence, passed=not significant(noise_dependence, alpha)))
 
-    orientation = lingam if lingam != "undetermined" else anm
-    return PairFindings(battery.x, battery.y, True, orientation, lingam, anm, tuple(flags),
-                        frozenset(facts | set(flags)), tuple(judged), favoured, battery.conditioning)
+    return PairFindings(battery.x, battery.y, True, lingam, anm, tuple(flags),
+                        frozenset(facts | set(flags)), tuple(judged), battery.conditioning)

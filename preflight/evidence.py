@@ -21,19 +21,6 @@ import numpy as np
 
 from preflight.results import CheckResult
 
-FAMILIES = {
-    "noise normality": "normality tests of regression residuals and noise estimates",
-    "linearity": "Ramsey RESET and spline F-tests",
-    "variance": "Breusch-Pagan (Koenker) and White tests",
-    "residual independence": "HSIC between regressor and residual",
-    "additive-noise independence": "HSIC between regressor and spline residual",
-    "association": "Pearson (Fisher z), Spearman and HSIC between the two variables",
-    "noise dependence": "HSIC between noise estimates of the structural equations",
-    "autocorrelation": "Ljung-Box tests on each column",
-    "component dependence": "HSIC between independent components",
-}
-
-
 @dataclass(frozen=True)
 class Tagged:
     """A check with the family it is corrected in and the role it plays."""

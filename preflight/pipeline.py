@@ -30,7 +30,6 @@ class StructuralView:
     variable_checks: dict[int, list[Tagged]]
     global_checks: list[Tagged]
     global_flags: tuple[str, ...]
-    gaussian_noises: tuple[str, ...]
 
 
 def _many_pair_hsic(X: np.ndarray, names, pairs, label: str, policy: Policy, pair_seeds,
@@ -134,7 +133,7 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
         if share >= policy.varsortable_min_share and len(edges) >= 2:
             flags.append("varsortable")
     return StructuralView(order=order, parents=parents, noise=noise, variable_checks=variable_checks,
-                          global_checks=global_checks, global_flags=tuple(flags), gaussian_noises=())
+                          global_checks=global_checks, global_flags=tuple(flags))
 
 
 def _whole_table_screens(X: np.ndarray, policy: Policy) -> tuple[list[CheckResult], bool]:

@@ -17,7 +17,6 @@ from preflight.policy import LEVELS, level_rank
 SCOPES = ("global", "variable", "pair")
 EDGE_REACH = ("all", "touching", "none")
 KINDS = ("limit", "caution")
-ORIENTING_RUNGS = ("linear-non-gaussian", "additive-noise")
 
 
 @dataclass(frozen=True)
