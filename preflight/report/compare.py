@@ -20,6 +20,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from preflight.policy import LEVELS, level_rank
+from preflight.report.discovery import cause_effect
 
 FLOOR_FROM_REQUIRE = "--require"
 FLOOR_FROM_OLD_LEVEL = "the old report's level"
@@ -146,20 +147,12 @@ class ReportComparison:
 
 # ---------------------------------------------------------------- comparing
 
-def _cause_effect(pair: dict[str, Any]) -> tuple[str, str] | None:
-    if pair["orientation"] == "x->y":
-        return pair["x"], pair["y"]
-    if pair["orientation"] == "y->x":
-        return pair["y"], pair["x"]
-    return None
-
-
 def _edge_words(pair: dict[str, Any] | None, columns_present: bool) -> str:
     if pair is None:
         return "not adjacent" if columns_present else "absent"
     if not pair["adjacent"]:
         return "not adjacent"
-    direction = _cause_effect(pair)
+    direction = cause_effect(pair)
     return f"{direction[0]} -> {direction[1]}" if direction else f"{pair['x']} -- {pair['y']}"
 
 
@@ -175,8 +168,8 @@ def _edge_change(old: dict[str, Any] | None, new: dict[str, Any] | None, new_has
     if not old_adjacent and not new_adjacent:
         return None
     changes: list[str] = []
-    old_dir = _cause_effect(old) if old_adjacent else None
-    new_dir = _cause_effect(new) if new_adjacent else None
+    old_dir = cause_effect(old) if old_adjacent else None
+    new_dir = cause_effect(new) if new_adjacent else None
     if old_adjacent and not new_adjacent:
         changes.append(EDGE_GONE if new_has_columns else COLUMN_GONE)
     elif new_adjacent and not old_adjacent:
