@@ -14,12 +14,13 @@ a process holding many objects.
 from __future__ import annotations
 
 from collections import defaultdict
+from collections.abc import Iterable
 from dataclasses import dataclass, replace
-from typing import Iterable
 
 import numpy as np
 
 from preflight.results import CheckResult
+
 
 @dataclass(frozen=True)
 class Tagged:

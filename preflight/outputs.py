@@ -18,8 +18,8 @@ import os
 import stat
 import sys
 import tempfile
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 from preflight.errors import InputError
 

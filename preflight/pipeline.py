@@ -5,8 +5,9 @@ from __future__ import annotations
 import datetime as _dt
 import itertools
 import os
+from collections.abc import Callable
 from dataclasses import dataclass, replace
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 
@@ -14,7 +15,7 @@ from preflight._version import __version__
 from preflight.battery import PairBattery, PairFindings, derived_seed, judge_pair, run_pair_battery
 from preflight.evidence import Tagged, adjust_families, significant
 from preflight.io import LoadedData
-from preflight.policy import LEVELS, Policy, level_rank
+from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
 from preflight.results import CheckResult
 from preflight.rules import evaluate, meets

@@ -10,8 +10,9 @@ from __future__ import annotations
 import dataclasses
 import math
 import os
-from dataclasses import dataclass, field, fields
-from typing import Any, Mapping
+from collections.abc import Mapping
+from dataclasses import dataclass, fields
+from typing import Any
 
 from preflight.errors import InputError
 

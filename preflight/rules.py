@@ -7,10 +7,10 @@ loads, validates and applies it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from collections.abc import Mapping
+from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
-from typing import Mapping
 
 from preflight.policy import LEVELS, level_rank
 

@@ -8,7 +8,7 @@ reach (``expected_level``).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 

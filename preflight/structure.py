@@ -20,8 +20,8 @@ from __future__ import annotations
 
 import functools
 import math
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
-from typing import Callable, Iterable, Sequence
 
 import numpy as np
 
@@ -588,10 +588,10 @@ def fastica_gaussian_components(
 
     from sklearn.decomposition import FastICA
     from sklearn.exceptions import ConvergenceWarning
-    from preflight.evidence import adjust_p_values
 
     from preflight.checks.independence import hsic_pairs
     from preflight.checks.normality import is_nongaussian, normality_checks
+    from preflight.evidence import adjust_p_values
 
     if not 0.0 < alpha < 1.0:
         raise InputError(f"alpha must lie in (0, 1), got {alpha}")

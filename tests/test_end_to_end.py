@@ -1,7 +1,6 @@
 """The CLI as a pipeline uses it: reports, schema, seed, gate, demo."""
 
 import json
-import os
 
 import numpy as np
 import pytest

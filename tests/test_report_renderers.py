@@ -18,8 +18,9 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-from conftest import validate_report
 from preflight.report.model import CAUTIONS, Report
+
+from conftest import validate_report
 
 DEMO_ROWS = 1000
 DEMO_PLOT_POINTS = 600  # below DEMO_ROWS, so the plots really show a subsample

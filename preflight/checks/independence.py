@@ -32,8 +32,9 @@ from __future__ import annotations
 import hashlib
 import math
 from collections import OrderedDict
+from collections.abc import Callable
 from dataclasses import replace
-from typing import Callable, NamedTuple
+from typing import NamedTuple
 
 import numpy as np
 

@@ -15,8 +15,8 @@ with m_k the k-th central sample moment using divisor n, which is what
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 

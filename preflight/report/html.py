@@ -14,9 +14,10 @@ and says so in place of those plots.
 from __future__ import annotations
 
 import html
-import warnings
 import re
-from typing import Any, Sequence
+import warnings
+from collections.abc import Sequence
+from typing import Any
 
 from preflight.report.markdown import (
     CHECK_HEADER,
@@ -25,11 +26,11 @@ from preflight.report.markdown import (
     conclusion_words,
     edge_text,
     findings_explained,
-    gate_outcome,
     fmt_count,
     fmt_number,
     fmt_p,
     fmt_setting,
+    gate_outcome,
     methods_paragraphs,
     methods_used,
     noise_finding,

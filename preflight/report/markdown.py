@@ -13,8 +13,9 @@ from __future__ import annotations
 
 import math
 import re
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
-from typing import Any, Callable, Iterable, Sequence
+from typing import Any
 
 from preflight.report.model import Report
 from preflight.report.text import FLAG_MEANING, LEVEL_WORDS, WHAT_STILL_FITS, headline

@@ -16,8 +16,9 @@ import html
 import io
 import itertools
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -368,10 +369,9 @@ _MARGIN = 12.0
 
 
 def _text_width(text: str, size: float) -> float:
+    import matplotlib
     from matplotlib.font_manager import FontProperties
     from matplotlib.textpath import TextPath
-
-    import matplotlib
 
     if not text:
         return 0.0

@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import re
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 _CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
 _NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
