@@ -839,7 +839,7 @@ def draw_power_curves(curves: list[dict], directory: Path) -> list[Path]:
         labels = {}
         for row in rows:
             labels.setdefault(row["test"], row["alternative"])
-        for test, alternative in labels.items():
+        for test in labels:
             points = sorted((r["n"], r["power"]) for r in rows if r["test"] == test)
             ax.plot([x for x, _ in points], [y for _, y in points], marker="o", label=test)
         ax.axhline(ALPHA, color="grey", linestyle=":", linewidth=1, label=f"alpha = {ALPHA}")

@@ -113,7 +113,8 @@ def _direction_checks(regressor: np.ndarray, response: np.ndarray, label: str, r
     if not np.std(regressor) > 0 or not np.std(residual) > 1e-10 * max(spread, 1e-300):
         # An exact linear relation (a duplicated or derived column) leaves no
         # noise to test; the collinearity screen reports the cause.
-        why = "the regressor is constant" if not np.std(regressor) > 0 else "the residual is zero (exact linear relation)"
+        why = ("the regressor is constant" if not np.std(regressor) > 0
+               else "the residual is zero (exact linear relation)")
         return [Tagged(None, role, _degenerate(f"battery ({label})", n, why))]
     out: list[Tagged] = []
     for result in normality_checks(residual, max_n=policy.shapiro_max_n, seed=seed):
@@ -187,7 +188,8 @@ def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str
         result = hsic(regressor, residual, **_hsic_kwargs(policy, seed))
         out.append(Tagged("additive-noise independence", role,
                           replace(result, name=f"hsic of spline residual ({label})",
-                                  note=(result.note + "; " if result.note else "") + "residual of a regression spline")))
+                                  note=(result.note + "; " if result.note else "")
+                                  + "residual of a regression spline")))
     return out
 
 
@@ -391,7 +393,8 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
             if t.role != guard_role:
                 passed = None
                 r = replace(r, note=(r.note + "; " if r.note else "") +
-                            "direction not favoured by the evidence: a departure here is expected under non-Gaussian noise")
+                            "direction not favoured by the evidence: a departure here is expected "
+                            "under non-Gaussian noise")
             elif t.family in ("linearity",):
                 passed = not _material_departure([r], alpha, policy.nonlinear_min_r2_gain)
             elif t.family == "variance":
@@ -400,7 +403,8 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
                     r = replace(r, note=(r.note + "; " if r.note else "") + (
                         "not the guard: the mechanism is judged nonlinear, so the spline residual's spread decides"
                         if nonlinear else
-                        "not the guard: the mechanism is judged linear, so the straight-line residual's spread decides"))
+                        "not the guard: the mechanism is judged linear, so the straight-line residual's "
+                        "spread decides"))
                 else:
                     passed = not _material_departure([r], alpha, policy.heteroscedastic_min_r2)
             else:

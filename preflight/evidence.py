@@ -16,6 +16,7 @@ from __future__ import annotations
 from collections import defaultdict
 from collections.abc import Iterable
 from dataclasses import dataclass, replace
+from typing import cast
 
 import numpy as np
 
@@ -70,7 +71,8 @@ def adjust_families(groups: list[list[Tagged]], method: str) -> list[list[Tagged
     out = [list(group) for group in groups]
     for family in sorted(positions):
         where = positions[family]
-        adjusted = adjust_p_values((groups[g][k].result.p_value for g, k in where), method)
+        # positions holds only checks with a finite p-value.
+        adjusted = adjust_p_values((cast(float, groups[g][k].result.p_value) for g, k in where), method)
         for (g, k), p_adj in zip(where, adjusted):
             tagged = out[g][k]
             out[g][k] = replace(tagged, result=replace(tagged.result, p_adjusted=float(p_adj)))

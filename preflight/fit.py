@@ -237,7 +237,10 @@ def derived_from_basis(basis: np.ndarray, name: str, build) -> np.ndarray:
 
 
 def basis_of_tail(view: np.ndarray) -> np.ndarray | None:
-    """The remembered basis of which ``view`` is exactly ``basis[:, 1:]`` (the design of a fit with intercept), or None."""
+    """The remembered basis of which ``view`` is exactly ``basis[:, 1:]``, or None.
+
+    ``basis[:, 1:]`` is the design of a fit with intercept.
+    """
     owner = view.base
     if owner is None or owner.flags.writeable or view.ndim != 2:
         return None

@@ -489,7 +489,7 @@ def v_structures(dag) -> set[tuple[int, int, int]]:
     """
     G = _as_pdag(dag, "dag")
     directed, _, _, nonadjacent = _parts(G)
-    out = set()
+    out: set[tuple[int, int, int]] = set()
     for k in np.flatnonzero(directed.sum(axis=0) >= 2).tolist():
         parents = np.flatnonzero(directed[:, k]).tolist()
         out.update((i, k, j) for i, j in itertools.combinations(parents, 2) if nonadjacent[i, j])
@@ -820,6 +820,7 @@ def topological_order(dag) -> list[int]:
                 heapq.heappush(heap, child)
     if len(order) < D.shape[0]:
         cycle = find_cycle(D)
+        assert cycle is not None  # the sort stopped early, so there is a cycle
         raise InputError(f"the graph has a cycle: {' -> '.join(str(k) for k in cycle + [cycle[0]])}")
     return order
 

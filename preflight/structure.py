@@ -22,6 +22,7 @@ import functools
 import math
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
+from typing import cast
 
 import numpy as np
 
@@ -319,7 +320,8 @@ def _validate_order(order: Sequence[int], p: int) -> tuple[int, ...]:
     return order
 
 
-def prune_parents(X, order: Sequence[int], alpha: float = 0.05, correction: str = "holm") -> tuple[tuple[int, ...], ...]:
+def prune_parents(X, order: Sequence[int], alpha: float = 0.05,
+                  correction: str = "holm") -> tuple[tuple[int, ...], ...]:
     """Parents of each variable: its significant predecessors in ``order``.
 
     Each variable is regressed by OLS (with intercept) on all variables
@@ -387,7 +389,8 @@ def _nested_t_tests(X: np.ndarray, active: list[int]):
         return None, None
     design = X[:, active] - X[:, active].mean(axis=0)
     design /= np.sqrt((design * design).sum(axis=0))
-    r = np.linalg.qr(design, mode="r")
+    # numpy's stubs type mode="r" as the (Q, R) pair; it returns R alone.
+    r = cast(np.ndarray, np.linalg.qr(design, mode="r"))
     diagonal = np.abs(np.diag(r))
     if diagonal.min() <= 1e-10 * diagonal.max():
         return None, None
@@ -505,7 +508,10 @@ COMPONENT_DEPENDENCE_MAX_N = 5000
 """Rows on which the pairs of ICA components are tested for dependence (seeded subsample above)."""
 
 DEPENDENCE_EFFECT_ROWS = 30.0
-"""Default materiality of component dependence: normalised HSIC of at least this / n (see fastica_gaussian_components)."""
+"""Default materiality of component dependence: normalised HSIC of at least this / n.
+
+See fastica_gaussian_components.
+"""
 
 
 def _pair_seed(seed: int, a: int, b: int) -> int:
@@ -642,7 +648,7 @@ def fastica_gaussian_components(
     where = [(c, t) for c in range(k) for t, r in enumerate(normality[c])
              if r.p_value is not None and np.isfinite(r.p_value)]
     if where:
-        adjusted = adjust_p_values([normality[c][t].p_value for c, t in where], correction)
+        adjusted = adjust_p_values([cast(float, normality[c][t].p_value) for c, t in where], correction)
         for (c, t), value in zip(where, adjusted):
             normality[c][t] = _with_adjusted(normality[c][t], float(value))
     named = [tuple(r.with_name(f"{r.name} (ica component {c + 1})") for r in normality[c]) for c in range(k)]
@@ -662,7 +668,7 @@ def fastica_gaussian_components(
     rows_tested = min(n, hsic_max_n, COMPONENT_DEPENDENCE_MAX_N)
     material = DEPENDENCE_EFFECT_ROWS / rows_tested if min_dependence_effect is None else float(min_dependence_effect)
     if tested:
-        adjusted = adjust_p_values([dependence[m].p_value for m in tested], correction)
+        adjusted = adjust_p_values([cast(float, dependence[m].p_value) for m in tested], correction)
         for m, value in zip(tested, adjusted):
             dependence[m] = _with_adjusted(dependence[m], float(value))
             effect = dependence[m].effect
@@ -678,9 +684,10 @@ def fastica_gaussian_components(
               "is identifiable"),
     )]
     if tested:
-        raw = [dependence[m].p_value for m in tested]
-        adj = [dependence[m].p_adjusted for m in tested]
-        effects = [dependence[m].effect for m in tested if dependence[m].effect is not None]
+        # tested keeps only finite p-values, each adjusted above.
+        raw = [cast(float, dependence[m].p_value) for m in tested]
+        adj = [cast(float, dependence[m].p_adjusted) for m in tested]
+        effects = [effect for m in tested if (effect := dependence[m].effect) is not None]
         checks.append(CheckResult(
             name="ica component dependence (hsic)", statistic=float(len(dependent_pairs)),
             p_value=float(min(raw)), p_adjusted=float(min(adj)),

@@ -404,7 +404,8 @@ def test_varsortability_counts_paths_like_the_definition():
     # Direct count: variances 1, 4, 2 on 0 -> 1 -> 2 plus 0 -> 2.  Edges:
     # (0,1) up, (1,2) down, (0,2) up -> 2/3.  Paths of each length: length 1
     # as the edges, length 2: (0,2) once more, up -> 3/4.
-    X = np.column_stack([np.array([-1.0, 1.0] * 50), np.array([-2.0, 2.0] * 50), np.array([1.0, -1.0] * 50) * math.sqrt(2)])
+    X = np.column_stack([np.array([-1.0, 1.0] * 50), np.array([-2.0, 2.0] * 50),
+                         np.array([1.0, -1.0] * 50) * math.sqrt(2)])
     edges = [(0, 1), (1, 2), (0, 2)]
     assert structure.varsortability(X, edges) == pytest.approx(2 / 3)
     assert structure.varsortability(X, edges, paths=True) == pytest.approx(3 / 4)

@@ -183,7 +183,8 @@ REFERENCES = {
     "belsley1980": "Belsley, D. A., Kuh, E. and Welsch, R. E. (1980). Regression Diagnostics: Identifying "
                    "Influential Data and Sources of Collinearity. Wiley.",
     "benjamini1995": "Benjamini, Y. and Hochberg, Y. (1995). Controlling the false discovery rate: a practical and "
-                     "powerful approach to multiple testing. Journal of the Royal Statistical Society B 57(1), 289-300.",
+                     "powerful approach to multiple testing. Journal of the Royal Statistical Society B 57(1), "
+                     "289-300.",
     "breusch1979": "Breusch, T. S. and Pagan, A. R. (1979). A simple test for heteroscedasticity and random "
                    "coefficient variation. Econometrica 47(5), 1287-1294.",
     "colombo2014": "Colombo, D. and Maathuis, M. H. (2014). Order-independent constraint-based causal structure "
@@ -274,7 +275,8 @@ GROUPS = {
     "normality": "Normality of regression residuals and of the structural noise estimates was assessed with",
     "linearity": "Linearity of each regression was assessed with",
     "variance": "Constant residual variance was assessed with",
-    "independence": "Independence (of each regressor and its residual, of the two variables, and of pairs of noise estimates) was assessed with",
+    "independence": "Independence (of each regressor and its residual, of the two variables, and of pairs of "
+                    "noise estimates) was assessed with",
     "direction": "The direction of each adjacent pair was further weighed with",
     "whole": "The whole table was checked with",
 }
@@ -283,7 +285,8 @@ METHODS: tuple[Method, ...] = (
     Method("ljung-box", "screen", "the Ljung-Box test of autocorrelation in file order (Ljung and Box 1978)",
            ("ljung1978",), _has("ljung")),
     Method("collinearity", "screen", "variance inflation factors and the condition number of the standardised "
-           "design (Belsley et al. 1980)", ("belsley1980",), _has("collinear", "variance inflation", "condition number")),
+           "design (Belsley et al. 1980)", ("belsley1980",),
+           _has("collinear", "variance inflation", "condition number")),
     Method("shapiro-wilk", "normality", "the Shapiro-Wilk test (Shapiro and Wilk 1965), with p-values from "
            "Royston's approximation (Royston 1995)", ("shapiro1965", "royston1995"), _has("shapiro")),
     Method("anderson-darling", "normality", "the Anderson-Darling test (Anderson and Darling 1952), with the "

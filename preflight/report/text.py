@@ -104,7 +104,8 @@ def render_text(report: dict[str, Any], style: Callable[..., str] | None = None,
         lines.append(f"  {'edge'.ljust(width)}  {'basis'.ljust(24)}  flags")
         for p in edges:
             basis = p["basis"] or "undetermined"
-            lines.append(f"  {_arrow(p).ljust(width)}  {visible(basis).ljust(24)}  {visible(', '.join(p['flags'])) or '-'}")
+            flags = visible(", ".join(p["flags"])) or "-"
+            lines.append(f"  {_arrow(p).ljust(width)}  {visible(basis).ljust(24)}  {flags}")
     lines.append("")
     lines.append("Why:")
     for reason in c["reasons"]:
