@@ -137,7 +137,7 @@ def _hand_adjust(raw: dict, keys: list) -> dict:
     for family in ("normal", "linear", "variance"):
         flat = [(k, m) for k in keys for m in range(len(raw[k][family]))]
         values = _holm([raw[k][family][m] for k, m in flat])
-        for (k, m), value in zip(flat, values):
+        for (k, _m), value in zip(flat, values):
             adjusted.setdefault((k, family), []).append(value)
     return adjusted
 

@@ -39,16 +39,15 @@ for _variable in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
 import argparse  # noqa: E402
 import datetime  # noqa: E402
 import json  # noqa: E402
-import math  # noqa: E402
 import platform  # noqa: E402
 import shlex  # noqa: E402
 import sys  # noqa: E402
 import time  # noqa: E402
 import zlib  # noqa: E402
 from collections import Counter, defaultdict  # noqa: E402
+from collections.abc import Callable, Iterable  # noqa: E402
 from dataclasses import asdict, dataclass, replace  # noqa: E402
 from pathlib import Path  # noqa: E402
-from typing import Callable, Iterable  # noqa: E402
 
 import numpy as np  # noqa: E402
 
@@ -373,9 +372,10 @@ def score(scenario, spec: Spec, report: dict) -> dict:
 
 def run_spec(spec: Spec) -> dict:
     """Simulate, check and score one replicate (never raises: failures are recorded)."""
+    from threadpoolctl import threadpool_limits
+
     import preflight
     from preflight.scenarios import simulate, to_frame
-    from threadpoolctl import threadpool_limits
 
     record = {"spec": asdict(spec)}
     started = time.perf_counter()
@@ -839,7 +839,7 @@ def draw_power_curves(curves: list[dict], directory: Path) -> list[Path]:
         labels = {}
         for row in rows:
             labels.setdefault(row["test"], row["alternative"])
-        for test, alternative in labels.items():
+        for test in labels:
             points = sorted((r["n"], r["power"]) for r in rows if r["test"] == test)
             ax.plot([x for x, _ in points], [y for _, y in points], marker="o", label=test)
         ax.axhline(ALPHA, color="grey", linestyle=":", linewidth=1, label=f"alpha = {ALPHA}")

@@ -6,8 +6,9 @@ The CLI calls exactly this.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import replace
-from typing import Any, Callable
+from typing import Any
 
 from preflight.io import LoadedData, load_table
 from preflight.policy import Policy, build_policy

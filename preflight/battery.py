@@ -15,7 +15,7 @@ all pairs.
 from __future__ import annotations
 
 import zlib
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -53,16 +53,12 @@ class PairFindings:
     x: str
     y: str
     adjacent: bool
-    orientation: str
     lingam_orientation: str
     anm_orientation: str
     flags: tuple[str, ...]
     facts: frozenset[str]
     checks: tuple[CheckResult, ...]
-    favoured: str
-    """``forward`` or ``reverse``: the direction whose residual looks most independent."""
     conditioning: tuple[str, ...] = ()
-    note: str = ""
 
 
 def _hsic_kwargs(policy: Policy, seed: int) -> dict:
@@ -117,7 +113,8 @@ def _direction_checks(regressor: np.ndarray, response: np.ndarray, label: str, r
     if not np.std(regressor) > 0 or not np.std(residual) > 1e-10 * max(spread, 1e-300):
         # An exact linear relation (a duplicated or derived column) leaves no
         # noise to test; the collinearity screen reports the cause.
-        why = "the regressor is constant" if not np.std(regressor) > 0 else "the residual is zero (exact linear relation)"
+        why = ("the regressor is constant" if not np.std(regressor) > 0
+               else "the residual is zero (exact linear relation)")
         return [Tagged(None, role, _degenerate(f"battery ({label})", n, why))]
     out: list[Tagged] = []
     for result in normality_checks(residual, max_n=policy.shapiro_max_n, seed=seed):
@@ -191,7 +188,8 @@ def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str
         result = hsic(regressor, residual, **_hsic_kwargs(policy, seed))
         out.append(Tagged("additive-noise independence", role,
                           replace(result, name=f"hsic of spline residual ({label})",
-                                  note=(result.note + "; " if result.note else "") + "residual of a regression spline")))
+                                  note=(result.note + "; " if result.note else "")
+                                  + "residual of a regression spline")))
     return out
 
 
@@ -306,9 +304,8 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
             judged.append(t.result)
         if noise_dependence is not None:
             judged.append(replace(noise_dependence, passed=not significant(noise_dependence, alpha)))
-        return PairFindings(battery.x, battery.y, False, "undetermined", "undetermined", "undetermined",
-                            tuple(flags), frozenset(facts | set(flags)), tuple(judged), "forward",
-                            battery.conditioning)
+        return PairFindings(battery.x, battery.y, False, "undetermined", "undetermined",
+                            tuple(flags), frozenset(facts | set(flags)), tuple(judged), battery.conditioning)
 
     facts.add("adjacent")
     indep = {role: not any(significant(r, alpha) for r in _of(checks, "residual independence", role))
@@ -396,7 +393,8 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
             if t.role != guard_role:
                 passed = None
                 r = replace(r, note=(r.note + "; " if r.note else "") +
-                            "direction not favoured by the evidence: a departure here is expected under non-Gaussian noise")
+                            "direction not favoured by the evidence: a departure here is expected "
+                            "under non-Gaussian noise")
             elif t.family in ("linearity",):
                 passed = not _material_departure([r], alpha, policy.nonlinear_min_r2_gain)
             elif t.family == "variance":
@@ -405,7 +403,8 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
                     r = replace(r, note=(r.note + "; " if r.note else "") + (
                         "not the guard: the mechanism is judged nonlinear, so the spline residual's spread decides"
                         if nonlinear else
-                        "not the guard: the mechanism is judged linear, so the straight-line residual's spread decides"))
+                        "not the guard: the mechanism is judged linear, so the straight-line residual's "
+                        "spread decides"))
                 else:
                     passed = not _material_departure([r], alpha, policy.heteroscedastic_min_r2)
             else:
@@ -416,6 +415,5 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     if noise_dependence is not None:
         judged.append(replace(noise_dependence, passed=not significant(noise_dependence, alpha)))
 
-    orientation = lingam if lingam != "undetermined" else anm
-    return PairFindings(battery.x, battery.y, True, orientation, lingam, anm, tuple(flags),
-                        frozenset(facts | set(flags)), tuple(judged), favoured, battery.conditioning)
+    return PairFindings(battery.x, battery.y, True, lingam, anm, tuple(flags),
+                        frozenset(facts | set(flags)), tuple(judged), battery.conditioning)

@@ -10,6 +10,7 @@ from __future__ import annotations
 import functools
 import os
 import sys
+from typing import Any
 
 import click
 
@@ -53,7 +54,7 @@ class _Progress:
     def __init__(self, enabled: bool, stream=None):
         self.stream = stream if stream is not None else sys.stderr
         self.enabled = enabled and self.stream.isatty()
-        self.bar = None
+        self.bar: Any = None  # a tqdm bar once drawn (tqdm ships no type information)
         self.stage: str | None = None
 
     def __call__(self, stage: str, done: int, total: int) -> None:

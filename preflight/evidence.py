@@ -14,24 +14,13 @@ a process holding many objects.
 from __future__ import annotations
 
 from collections import defaultdict
+from collections.abc import Iterable
 from dataclasses import dataclass, replace
-from typing import Iterable
+from typing import cast
 
 import numpy as np
 
 from preflight.results import CheckResult
-
-FAMILIES = {
-    "noise normality": "normality tests of regression residuals and noise estimates",
-    "linearity": "Ramsey RESET and spline F-tests",
-    "variance": "Breusch-Pagan (Koenker) and White tests",
-    "residual independence": "HSIC between regressor and residual",
-    "additive-noise independence": "HSIC between regressor and spline residual",
-    "association": "Pearson (Fisher z), Spearman and HSIC between the two variables",
-    "noise dependence": "HSIC between noise estimates of the structural equations",
-    "autocorrelation": "Ljung-Box tests on each column",
-    "component dependence": "HSIC between independent components",
-}
 
 
 @dataclass(frozen=True)
@@ -82,7 +71,8 @@ def adjust_families(groups: list[list[Tagged]], method: str) -> list[list[Tagged
     out = [list(group) for group in groups]
     for family in sorted(positions):
         where = positions[family]
-        adjusted = adjust_p_values((groups[g][k].result.p_value for g, k in where), method)
+        # positions holds only checks with a finite p-value.
+        adjusted = adjust_p_values((cast(float, groups[g][k].result.p_value) for g, k in where), method)
         for (g, k), p_adj in zip(where, adjusted):
             tagged = out[g][k]
             out[g][k] = replace(tagged, result=replace(tagged.result, p_adjusted=float(p_adj)))

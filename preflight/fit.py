@@ -133,21 +133,6 @@ def simple_slope(x: np.ndarray, y: np.ndarray) -> tuple[float, np.ndarray]:
     return slope, yc - slope * xc
 
 
-def pairwise_slopes(X: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """All slopes b[i, j] of column j regressed on column i, from one covariance matrix.
-
-    Returns (slopes, residual_variances) where residual_variances[i, j] is the
-    variance of the residual of j on i.
-    """
-    cov = np.cov(X, rowvar=False, ddof=0)
-    var = np.diag(cov).copy()
-    safe = np.where(var > 0, var, 1.0)
-    slopes = cov / safe[:, None]
-    resid_var = var[None, :] - slopes * cov
-    np.fill_diagonal(resid_var, 0.0)
-    return slopes, resid_var
-
-
 def spline_df(n: int, max_df: int = 10) -> int:
     """Degrees of freedom of the regression spline: round(n ** 0.2) + 2, within [4, max_df].
 
@@ -252,7 +237,10 @@ def derived_from_basis(basis: np.ndarray, name: str, build) -> np.ndarray:
 
 
 def basis_of_tail(view: np.ndarray) -> np.ndarray | None:
-    """The remembered basis of which ``view`` is exactly ``basis[:, 1:]`` (the design of a fit with intercept), or None."""
+    """The remembered basis of which ``view`` is exactly ``basis[:, 1:]``, or None.
+
+    ``basis[:, 1:]`` is the design of a fit with intercept.
+    """
     owner = view.base
     if owner is None or owner.flags.writeable or view.ndim != 2:
         return None

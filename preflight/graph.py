@@ -1,5 +1,5 @@
 """Graphs for the equivalence-class rung: PC-stable skeleton, v-structures,
-Meek rules, CPDAGs, background orientations and user-supplied graphs.
+Meek rules, CPDAGs and user-supplied graphs.
 
 Encoding (used by every function here): a graph on p nodes is an int8
 ``(p, p)`` matrix ``G``.
@@ -25,9 +25,10 @@ import csv
 import io
 import itertools
 import math
+from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterable, Iterator, Mapping, NamedTuple, Sequence
+from typing import NamedTuple
 
 import numpy as np
 
@@ -488,7 +489,7 @@ def v_structures(dag) -> set[tuple[int, int, int]]:
     """
     G = _as_pdag(dag, "dag")
     directed, _, _, nonadjacent = _parts(G)
-    out = set()
+    out: set[tuple[int, int, int]] = set()
     for k in np.flatnonzero(directed.sum(axis=0) >= 2).tolist():
         parents = np.flatnonzero(directed[:, k]).tolist()
         out.update((i, k, j) for i, j in itertools.combinations(parents, 2) if nonadjacent[i, j])
@@ -744,114 +745,6 @@ def dag_to_cpdag(dag) -> np.ndarray:
 
 
 # ---------------------------------------------------------------------------
-# background orientations
-
-
-@dataclass(frozen=True)
-class OrientationConflict:
-    """A background orientation that ``orient_with_background`` did not apply.
-
-    ``kind`` is ``"not-adjacent"``, ``"contradicts-compelled"`` (the graph
-    given already had the opposite direction) or ``"contradicts-earlier"``
-    (orientations accepted before it, through Meek's rules, imply the
-    opposite direction).
-    """
-
-    edge: tuple[int, int]
-    kind: str
-    reason: str
-
-
-def consistent_extension(G) -> np.ndarray | None:
-    """A DAG with the PDAG's skeleton, directed edges and v-structures, or None if none exists.
-
-    Reference: Dor and Tarsi (1992), "A simple algorithm to construct a
-    consistent extension of a partially oriented graph".  The node removed
-    at each step is the smallest-index one that qualifies.
-    """
-    Gb = _as_pdag(G).astype(bool)
-    p = Gb.shape[0]
-    adjacent = Gb | Gb.T
-    dag = (Gb & ~Gb.T).astype(np.int8)
-    remaining = np.ones(p, dtype=bool)
-    for _ in range(p):
-        for x in np.flatnonzero(remaining).tolist():
-            if np.any(Gb[x] & ~Gb[:, x] & remaining):
-                continue  # x has a directed edge out: not a sink
-            neighbours = adjacent[x] & remaining
-            undirected = np.flatnonzero(Gb[x] & Gb[:, x] & remaining)
-            ok = True
-            for y in undirected.tolist():
-                others = neighbours.copy()
-                others[y] = False
-                if not np.all(adjacent[y, others]):
-                    ok = False
-                    break
-            if ok:
-                dag[undirected, x] = 1
-                remaining[x] = False
-                break
-        else:
-            return None
-    return dag
-
-
-def orient_with_background(G, oriented_edges: Iterable[tuple[int, int]]):
-    """Add known orientations ``(i, j)`` meaning ``i -> j`` to a CPDAG and propagate them with Meek's rules.
-
-    Orientations are taken one at a time in the order given (put the
-    best-supported first); after each, rules R1-R4 run to a fixpoint.  One
-    that contradicts the current graph is skipped and reported.  For a CPDAG
-    this is exactly the consistency test: by Meek (1995, theorem 4) a set of
-    orientations is consistent with the class when, and only when, adding
-    them one by one and closing under R1-R4 never meets an edge already
-    oriented the other way; the graph returned then has a DAG extension
-    (see :func:`consistent_extension`).  For a graph that is not a CPDAG
-    (for example a skeleton search that made errors) the same screen runs
-    but carries no such guarantee.
-
-    Returns ``(G, conflicts)``: the new PDAG and a tuple of
-    :class:`OrientationConflict`.
-
-    Reference: Meek (1995), "Causal inference and causal explanation with
-    background knowledge"; the orientations typically come from non-Gaussian
-    noise, Hoyer, Hyvärinen, Scheines, Spirtes, Ramsey, Lacerda and Shimizu
-    (2008), "Causal discovery of linear acyclic models with arbitrary
-    distributions".
-    """
-    rules = frozenset(_MEEK_RULES)
-    original = _as_pdag(G)
-    p = original.shape[0]
-    current = _meek_closure(original.copy(), rules)
-    conflicts: list[OrientationConflict] = []
-    seen: set[tuple[int, int]] = set()
-    for edge in oriented_edges:
-        try:
-            i, j = (int(k) for k in edge)
-        except (TypeError, ValueError):
-            raise InputError(f"each background orientation must be a pair (i, j), got {edge!r}") from None
-        if not (0 <= i < p and 0 <= j < p) or i == j:
-            raise InputError(f"background orientation {i} -> {j} is not an edge between two distinct nodes 0..{p - 1}")
-        if (i, j) in seen:
-            continue
-        seen.add((i, j))
-        forward, backward = bool(current[i, j]), bool(current[j, i])
-        if not (forward or backward):
-            conflicts.append(OrientationConflict((i, j), "not-adjacent", f"{i} and {j} are not adjacent"))
-        elif backward and not forward:
-            if original[j, i] and not original[i, j]:
-                conflicts.append(OrientationConflict((i, j), "contradicts-compelled",
-                                                     f"{i} -> {j} contradicts the compelled edge {j} -> {i}"))
-            else:
-                conflicts.append(OrientationConflict((i, j), "contradicts-earlier",
-                                                     f"{i} -> {j} contradicts {j} -> {i}, implied by earlier orientations"))
-        elif forward and backward:
-            current[j, i] = 0
-            current = _meek_closure(current, rules)
-    return current, tuple(conflicts)
-
-
-# ---------------------------------------------------------------------------
 # reading graphs
 
 
@@ -927,6 +820,7 @@ def topological_order(dag) -> list[int]:
                 heapq.heappush(heap, child)
     if len(order) < D.shape[0]:
         cycle = find_cycle(D)
+        assert cycle is not None  # the sort stopped early, so there is a cycle
         raise InputError(f"the graph has a cycle: {' -> '.join(str(k) for k in cycle + [cycle[0]])}")
     return order
 

@@ -102,7 +102,7 @@ def _send_again(period: float = 0.25) -> None:
     main = threading.main_thread()
     while True:
         time.sleep(period)
-        if _State.settled or not main.is_alive():
+        if _State.settled or not main.is_alive() or main.ident is None or _State.signum is None:
             return
         signal.pthread_kill(main.ident, _State.signum)
 

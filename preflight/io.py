@@ -314,7 +314,9 @@ def load_table(
     for option, listed in (("--columns", asked), ("--exclude", exclude)):
         for name in listed or []:
             if name not in names:
-                raise InputError(f"{option} names {name!r}, which is not a column of {label} (columns: {', '.join(names[:12])}{' ...' if len(names) > 12 else ''})")
+                more = " ..." if len(names) > 12 else ""
+                raise InputError(f"{option} names {name!r}, which is not a column of {label} "
+                                 f"(columns: {', '.join(names[:12])}{more})")
     if asked is not None:
         _refuse_duplicates(asked, "--columns")
     chosen = asked if asked is not None else names

@@ -18,8 +18,8 @@ import os
 import stat
 import sys
 import tempfile
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 from preflight.errors import InputError
 
@@ -108,7 +108,8 @@ def plan_outputs(requested: Sequence[tuple[str, str | None]], inputs: Sequence[s
             raise InputError(f"{option} needs a file name, got an empty one")
         if path == "-" or (_identity(path) is not None and _identity(path) == _stdout_identity()):
             if "-" in claimed:
-                raise InputError(f"only one report can go to standard output; {claimed['-']} and {option} both ask for it")
+                raise InputError(f"only one report can go to standard output; {claimed['-']} and {option} "
+                                 "both ask for it")
             claimed["-"] = option
             targets.append(Target(option, path, "stdout", "-"))
             continue

@@ -5,8 +5,9 @@ from __future__ import annotations
 import datetime as _dt
 import itertools
 import os
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
-from typing import Any, Callable
+from typing import Any, cast
 
 import numpy as np
 
@@ -14,7 +15,7 @@ from preflight._version import __version__
 from preflight.battery import PairBattery, PairFindings, derived_seed, judge_pair, run_pair_battery
 from preflight.evidence import Tagged, adjust_families, significant
 from preflight.io import LoadedData
-from preflight.policy import LEVELS, Policy, level_rank
+from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
 from preflight.results import CheckResult
 from preflight.rules import evaluate, meets
@@ -30,7 +31,6 @@ class StructuralView:
     variable_checks: dict[int, list[Tagged]]
     global_checks: list[Tagged]
     global_flags: tuple[str, ...]
-    gaussian_noises: tuple[str, ...]
 
 
 def _many_pair_hsic(X: np.ndarray, names, pairs, label: str, policy: Policy, pair_seeds,
@@ -134,7 +134,7 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
         if share >= policy.varsortable_min_share and len(edges) >= 2:
             flags.append("varsortable")
     return StructuralView(order=order, parents=parents, noise=noise, variable_checks=variable_checks,
-                          global_checks=global_checks, global_flags=tuple(flags), gaussian_noises=())
+                          global_checks=global_checks, global_flags=tuple(flags))
 
 
 def _whole_table_screens(X: np.ndarray, policy: Policy) -> tuple[list[CheckResult], bool]:
@@ -213,6 +213,7 @@ def _shared_association(X: np.ndarray, names, pairs, policy: Policy,
     if not pairs:
         return {}
     linear = pairwise_associations(X, pairs)
+    kernel: Sequence[CheckResult | None]
     if min(X.shape[0], policy.hsic_max_n) <= policy.hsic_exact_max_n:
         kernel = [None] * len(pairs)
     else:
@@ -345,13 +346,13 @@ def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=Non
             results[k] = _battery_task(tasks[k])
             done += 1
             progress("pair battery", done, len(heavy))
-        return results
+        return cast("list[PairBattery]", results)  # every slot is filled by now
     chunk = max(1, len(heavy) // (8 * jobs))
     for k, result in zip(heavy, pool.map(_battery_task, [tasks[k] for k in heavy], chunksize=chunk)):
         results[k] = result
         done += 1
         progress("pair battery", done, len(heavy))
-    return results
+    return cast("list[PairBattery]", results)  # every slot is filled by now
 
 
 def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batteries: list[PairBattery],
@@ -420,7 +421,8 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
         p_value=None, effect=float(s.excess_kurtosis), effect_name="excess kurtosis", n=int(noise_column.shape[0]),
         note=("rows for the Jarque-Bera test to detect this noise's skewness "
               f"({s.skewness:.3f}) and excess kurtosis ({s.excess_kurtosis:.3f}) with 80% power at alpha "
-              f"{policy.alpha:g}" if needed is not None else "noise shape indistinguishable from Gaussian: no finite number"))
+              f"{policy.alpha:g}" if needed is not None
+              else "noise shape indistinguishable from Gaussian: no finite number"))
 
 
 # ---------------------------------------------------------------- the run
@@ -551,7 +553,8 @@ def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, pro
     global_flags: list[str] = []
     global_checks: list[Tagged] = [Tagged(None, "global", CheckResult(
         name="usable rows", statistic=float(n), p_value=None, effect=None, effect_name=None, n=n,
-        note=f"minimum {policy.min_rows} for any conclusion, {policy.min_rows_orientation} to orient from noise shape"))]
+        note=(f"minimum {policy.min_rows} for any conclusion, {policy.min_rows_orientation} "
+              "to orient from noise shape")))]
     if n < policy.min_rows:
         global_flags.append("too-few-rows")
     elif n < policy.min_rows_orientation:
@@ -658,7 +661,8 @@ def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, pro
     for k, (b, g) in enumerate(zip(batteries, pair_groups)):
         nd = noise_of.get(pair_index[k])
         if nd is not None and (b.x in misspecified or b.y in misspecified):
-            nd = replace(nd, note="not used as a confounding signal: a structural equation at this pair is nonlinear, so its linear noise estimate is not a noise")
+            nd = replace(nd, note="not used as a confounding signal: a structural equation at this pair is "
+                                  "nonlinear, so its linear noise estimate is not a noise")
             findings.append(replace(judge_pair(b, g, policy), checks=preliminary[k].checks + (nd,)))
         else:
             findings.append(judge_pair(b, g, policy, noise_dependence=nd))
@@ -688,26 +692,27 @@ def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, pro
     global_flags = [f for f in global_flags if f != "any-nonlinear"]
 
     # ---- per-edge verdicts
-    pairs_out = []
+    pairs_out: list[dict[str, Any]] = []
     oriented = 0
     total = 0
+    finding: PairFindings | None
     for k, (i, j) in enumerate(pair_index):
         x, y = names[i], names[j]
         if findings:
-            f = findings[k]
-            flags, checks = list(f.flags), [r.to_dict() for r in f.checks]
+            finding = findings[k]
+            flags, checks = list(finding.flags), [r.to_dict() for r in finding.checks]
         else:
-            f, flags, checks = None, [], []
+            finding, flags, checks = None, [], []
         adjacent = bool(adjacency[i, j]) and not void
         orientation, basis = "undetermined", None
-        if adjacent and f is not None:
+        if adjacent and finding is not None:
             total += 1
             banned = outcome.edge_ruled_out.get((x, y), frozenset())
             compelled = status.get((i, j), "undirected")
-            if f.lingam_orientation != "undetermined" and "linear-non-gaussian" not in banned:
-                orientation, basis = f.lingam_orientation, "linear-non-gaussian"
-            elif f.anm_orientation != "undetermined" and "additive-noise" not in banned:
-                orientation, basis = f.anm_orientation, "additive-noise"
+            if finding.lingam_orientation != "undetermined" and "linear-non-gaussian" not in banned:
+                orientation, basis = finding.lingam_orientation, "linear-non-gaussian"
+            elif finding.anm_orientation != "undetermined" and "additive-noise" not in banned:
+                orientation, basis = finding.anm_orientation, "additive-noise"
             elif (compelled != "undirected" and "equivalence-class" not in banned
                   and level_rank(outcome.level) <= level_rank("equivalence-class")):
                 orientation, basis = ("x->y" if compelled == "i->j" else "y->x"), "equivalence-class"
@@ -715,7 +720,7 @@ def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, pro
                 oriented += 1
         pairs_out.append({"x": x, "y": y, "adjacent": adjacent, "orientation": orientation, "basis": basis,
                           "flags": flags, "checks": checks,
-                          "conditioning": list(f.conditioning) if f is not None else []})
+                          "conditioning": list(finding.conditioning) if finding is not None else []})
 
     # ---- conclusion and gate
     present_flags = set(global_flags)

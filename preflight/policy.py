@@ -10,8 +10,10 @@ from __future__ import annotations
 import dataclasses
 import math
 import os
-from dataclasses import dataclass, field, fields
-from typing import Any, Mapping
+import sys
+from collections.abc import Mapping
+from dataclasses import dataclass, fields
+from typing import Any
 
 from preflight.errors import InputError
 
@@ -194,7 +196,8 @@ class Policy:
     to flag any repeat.
     """
     duplicate_rows_continuous_min_distinct_share: float = 0.5
-    """Repeated rows are judged only when some column has at least this share of distinct values among the distinct rows.
+    """Repeated rows are judged only when some column has at least this share of distinct values
+    among the distinct rows.
 
     A column drawn from a continuous distribution has (almost) only distinct
     values, so whole-row repeats are copies; in coarse data (counts, a few
@@ -336,9 +339,12 @@ def describe_policy() -> list[tuple[str, Any, str]]:
     source = inspect.getsource(Policy)
     tree = ast.parse(source)
     docs: dict[str, str] = {}
-    body = tree.body[0].body
+    cls = tree.body[0]
+    assert isinstance(cls, ast.ClassDef)
+    body = cls.body
     for node, nxt in zip(body, body[1:]):
-        if isinstance(node, ast.AnnAssign) and isinstance(nxt, ast.Expr) and isinstance(nxt.value, ast.Constant):
+        if (isinstance(node, ast.AnnAssign) and isinstance(node.target, ast.Name)
+                and isinstance(nxt, ast.Expr) and isinstance(nxt.value, ast.Constant)):
             docs[node.target.id] = " ".join(str(nxt.value.value).split())
     default = Policy()
     out = []
@@ -386,10 +392,10 @@ def _coerce(key: str, value: Any, source: str) -> Any:
 
 
 def _read_toml(path: str) -> dict[str, Any]:
-    try:
+    if sys.version_info >= (3, 11):
         import tomllib
-    except ModuleNotFoundError:  # Python 3.10
-        import tomli as tomllib  # type: ignore[no-redef]
+    else:  # Python 3.10
+        import tomli as tomllib
     try:
         with open(path, "rb") as handle:
             return tomllib.load(handle)

@@ -60,7 +60,7 @@ class CheckResult:
     p_adjusted: float | None = None
     passed: bool | None = None
 
-    def with_name(self, name: str) -> "CheckResult":
+    def with_name(self, name: str) -> CheckResult:
         return replace(self, name=name)
 
     def to_dict(self) -> dict[str, Any]:

@@ -7,17 +7,17 @@ loads, validates and applies it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import sys
+from collections.abc import Mapping
+from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
-from typing import Mapping
 
 from preflight.policy import LEVELS, level_rank
 
 SCOPES = ("global", "variable", "pair")
 EDGE_REACH = ("all", "touching", "none")
 KINDS = ("limit", "caution")
-ORIENTING_RUNGS = ("linear-non-gaussian", "additive-noise")
 
 
 @dataclass(frozen=True)
@@ -98,10 +98,10 @@ def _parse_rule(raw: dict, position: int) -> Rule:
 
 @lru_cache(maxsize=1)
 def load_rules() -> tuple[Rule, ...]:
-    try:
+    if sys.version_info >= (3, 11):
         import tomllib
-    except ModuleNotFoundError:  # Python 3.10
-        import tomli as tomllib  # type: ignore[no-redef]
+    else:  # Python 3.10
+        import tomli as tomllib
     text = resources.files("preflight").joinpath("rules.toml").read_text(encoding="utf-8")
     table = tomllib.loads(text)
     rules = tuple(_parse_rule(raw, k) for k, raw in enumerate(table["rule"]))

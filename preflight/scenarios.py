@@ -8,7 +8,7 @@ reach (``expected_level``).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -146,7 +146,7 @@ def simulate(kind: str, shape: str = "chain", p: int = 4, n: int = 2000, noise: 
                 ar[t] = 0.8 * ar[t - 1] + np.sqrt(1 - 0.64) * e[t]
             e = ar
         total = np.zeros(n)
-        for i in np.flatnonzero(dag[:, j]):
+        for i in np.flatnonzero(dag[:, j]).tolist():
             parent = X[:, i] / X[:, i].std()
             if kind == "nonlinear":
                 total += np.sign(weights[i, j]) * 1.5 * np.tanh(1.5 * parent)
@@ -177,7 +177,8 @@ def simulate(kind: str, shape: str = "chain", p: int = 4, n: int = 2000, noise: 
     else:
         identifiable = compelled & dag_perm.astype(bool)
     inverse = np.argsort(perm)
-    hidden_perm = tuple(tuple(sorted((int(inverse[a]), int(inverse[b])))) for a, b in hidden)
+    hidden_perm = tuple((min(a2, b2), max(a2, b2)) for a2, b2 in
+                        ((int(inverse[a]), int(inverse[b])) for a, b in hidden))
     names = tuple(f"v{k}" for k in range(p))
     return Scenario(kind=kind, shape=shape, noise=noise if kind != "gaussian" else "gaussian", n=n, data=X,
                     names=names, dag=dag_perm, identifiable=identifiable,

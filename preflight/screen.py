@@ -23,7 +23,8 @@ The flags, in the order they are listed on a variable:
     normal-consistency idea (sqrt(pi/2); Iglewicz & Hoaglin 1993).
 ``autocorrelated``
     Ljung-Box test (Ljung & Box 1978; the statistic of
-    ``statsmodels.stats.diagnostic.acorr_ljungbox``) on the column in file order at ``autocorrelation_lags`` lags.  Raised
+    ``statsmodels.stats.diagnostic.acorr_ljungbox``) on the column in file
+    order at ``autocorrelation_lags`` lags.  Raised
     when the p-value, adjusted across all screened variables with
     ``policy.correction`` (Holm by default), is below ``alpha`` AND the
     largest |autocorrelation| over lags 1..L is at least
@@ -242,7 +243,7 @@ def design_spectrum(X: np.ndarray) -> DesignSpectrum:
             vt = vectors[:, ::-1].T
         else:
             Z = np.linalg.qr(Z, mode="r")
-    if s is None:
+    if s is None or vt is None:
         _, s, vt = np.linalg.svd(Z, full_matrices=True)
     s_full = np.zeros(k)
     s_full[: s.shape[0]] = s

@@ -10,8 +10,8 @@
   independent.
 * :func:`henze_zirkler` -- multivariate normality of the whole table.
 * :func:`rows_needed` -- rows for Jarque-Bera to see a given noise shape.
-* :func:`varsortability`, :func:`r2_sortability` -- Reisach et al. (2021,
-  2023): would sorting by marginal variance (or R^2) already give the order?
+* :func:`varsortability` -- Reisach et al. (2021): would sorting by
+  marginal variance already give the order?
 * :func:`spectral_confounding` -- re-exported from
   :mod:`preflight.checks.confounding`.
 """
@@ -20,8 +20,9 @@ from __future__ import annotations
 
 import functools
 import math
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
-from typing import Callable, Iterable, Sequence
+from typing import cast
 
 import numpy as np
 
@@ -39,7 +40,6 @@ __all__ = [
     "noise_estimates",
     "pairwise_likelihood_ratios",
     "prune_parents",
-    "r2_sortability",
     "rows_needed",
     "spectral_confounding",
     "varsortability",
@@ -320,7 +320,8 @@ def _validate_order(order: Sequence[int], p: int) -> tuple[int, ...]:
     return order
 
 
-def prune_parents(X, order: Sequence[int], alpha: float = 0.05, correction: str = "holm") -> tuple[tuple[int, ...], ...]:
+def prune_parents(X, order: Sequence[int], alpha: float = 0.05,
+                  correction: str = "holm") -> tuple[tuple[int, ...], ...]:
     """Parents of each variable: its significant predecessors in ``order``.
 
     Each variable is regressed by OLS (with intercept) on all variables
@@ -388,7 +389,8 @@ def _nested_t_tests(X: np.ndarray, active: list[int]):
         return None, None
     design = X[:, active] - X[:, active].mean(axis=0)
     design /= np.sqrt((design * design).sum(axis=0))
-    r = np.linalg.qr(design, mode="r")
+    # numpy's stubs type mode="r" as the (Q, R) pair; it returns R alone.
+    r = cast(np.ndarray, np.linalg.qr(design, mode="r"))
     diagonal = np.abs(np.diag(r))
     if diagonal.min() <= 1e-10 * diagonal.max():
         return None, None
@@ -506,7 +508,10 @@ COMPONENT_DEPENDENCE_MAX_N = 5000
 """Rows on which the pairs of ICA components are tested for dependence (seeded subsample above)."""
 
 DEPENDENCE_EFFECT_ROWS = 30.0
-"""Default materiality of component dependence: normalised HSIC of at least this / n (see fastica_gaussian_components)."""
+"""Default materiality of component dependence: normalised HSIC of at least this / n.
+
+See fastica_gaussian_components.
+"""
 
 
 def _pair_seed(seed: int, a: int, b: int) -> int:
@@ -589,10 +594,10 @@ def fastica_gaussian_components(
 
     from sklearn.decomposition import FastICA
     from sklearn.exceptions import ConvergenceWarning
-    from preflight.evidence import adjust_p_values
 
     from preflight.checks.independence import hsic_pairs
     from preflight.checks.normality import is_nongaussian, normality_checks
+    from preflight.evidence import adjust_p_values
 
     if not 0.0 < alpha < 1.0:
         raise InputError(f"alpha must lie in (0, 1), got {alpha}")
@@ -643,7 +648,7 @@ def fastica_gaussian_components(
     where = [(c, t) for c in range(k) for t, r in enumerate(normality[c])
              if r.p_value is not None and np.isfinite(r.p_value)]
     if where:
-        adjusted = adjust_p_values([normality[c][t].p_value for c, t in where], correction)
+        adjusted = adjust_p_values([cast(float, normality[c][t].p_value) for c, t in where], correction)
         for (c, t), value in zip(where, adjusted):
             normality[c][t] = _with_adjusted(normality[c][t], float(value))
     named = [tuple(r.with_name(f"{r.name} (ica component {c + 1})") for r in normality[c]) for c in range(k)]
@@ -663,7 +668,7 @@ def fastica_gaussian_components(
     rows_tested = min(n, hsic_max_n, COMPONENT_DEPENDENCE_MAX_N)
     material = DEPENDENCE_EFFECT_ROWS / rows_tested if min_dependence_effect is None else float(min_dependence_effect)
     if tested:
-        adjusted = adjust_p_values([dependence[m].p_value for m in tested], correction)
+        adjusted = adjust_p_values([cast(float, dependence[m].p_value) for m in tested], correction)
         for m, value in zip(tested, adjusted):
             dependence[m] = _with_adjusted(dependence[m], float(value))
             effect = dependence[m].effect
@@ -679,9 +684,10 @@ def fastica_gaussian_components(
               "is identifiable"),
     )]
     if tested:
-        raw = [dependence[m].p_value for m in tested]
-        adj = [dependence[m].p_adjusted for m in tested]
-        effects = [dependence[m].effect for m in tested if dependence[m].effect is not None]
+        # tested keeps only finite p-values, each adjusted above.
+        raw = [cast(float, dependence[m].p_value) for m in tested]
+        adj = [cast(float, dependence[m].p_adjusted) for m in tested]
+        effects = [effect for m in tested if (effect := dependence[m].effect) is not None]
         checks.append(CheckResult(
             name="ica component dependence (hsic)", statistic=float(len(dependent_pairs)),
             p_value=float(min(raw)), p_adjusted=float(min(adj)),
@@ -919,22 +925,3 @@ def varsortability(X, edges: Iterable[tuple[int, int]], paths: bool = False, exp
     X = as_matrix(X, name="X", min_n=2)
     twice = None if exponents is None else 2 * np.asarray(exponents, dtype=np.int64)
     return _sortability(X.var(axis=0, ddof=1), _pairs_to_score(edges, X.shape[1], paths), twice)
-
-
-def r2_sortability(X, edges: Iterable[tuple[int, int]], paths: bool = False) -> float:
-    """Share of edges i -> j along which R^2 on all other columns increases (ties count half).
-
-    Descriptive.  R^2 of each column regressed on all others (with
-    intercept) is scale-invariant, so unlike varsortability it survives
-    standardisation; near 1 means the order can be read off the R^2.
-    Constant columns score R^2 = 0.  Reference: Reisach et al. (2023), "A
-    scale-invariant sorting criterion to find a causal order in additive
-    noise models" (NeurIPS).
-    """
-    from preflight.screen import variance_inflation_factors
-
-    X = as_matrix(X, name="X", min_n=3)
-    vif = variance_inflation_factors(X)
-    with np.errstate(divide="ignore"):
-        r_squared = np.where(np.isnan(vif), 0.0, 1.0 - 1.0 / vif)
-    return _sortability(r_squared, _pairs_to_score(edges, X.shape[1], paths))

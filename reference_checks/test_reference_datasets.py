@@ -2,7 +2,6 @@
 
 import numpy as np
 import pandas as pd
-import pytest
 
 import preflight
 from preflight.fit import coefficient_standard_errors, ols

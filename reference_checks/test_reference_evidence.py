@@ -6,7 +6,8 @@ Source: ``statsmodels.stats.multitest.multipletests`` (methods ``holm`` and
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from statsmodels.stats.multitest import multipletests
 
 from preflight.evidence import adjust_p_values

@@ -4,7 +4,6 @@ and in its name."""
 
 from __future__ import annotations
 
-import math
 from fractions import Fraction
 
 import numpy as np
@@ -14,7 +13,6 @@ from scipy import stats
 from statsmodels.stats.diagnostic import (
     het_breuschpagan,
     het_white,
-    linear_harvey_collier,
     linear_reset,
     normal_ad,
 )
@@ -185,25 +183,6 @@ def test_engel_heteroscedasticity_detected():
     residuals = sm.OLS(y, sm.add_constant(x)).fit().resid
     bp, white = var.variance_checks(residuals, x)
     assert bp.p_value < 0.01 and white.p_value < 0.01
-
-
-@pytest.mark.parametrize("dataset", list(DATASETS))
-def test_harvey_collier_direct_prefix_fits_and_statsmodels(dataset):
-    x, y = DATASETS[dataset]()
-    order = np.argsort(x, kind="stable")
-    xs, ys = x[order], y[order]
-    direct = []
-    for t in range(2, xs.shape[0]):
-        slope, intercept = np.polyfit(xs[:t] - xs[:t].mean(), ys[:t], 1)
-        offset = xs[t] - xs[:t].mean()
-        sxx = ((xs[:t] - xs[:t].mean()) ** 2).sum()
-        direct.append((ys[t] - intercept - slope * offset) / math.sqrt(1 + 1 / t + offset**2 / sxx))
-    direct = np.array(direct)
-    result = lin.harvey_collier(x, y)
-    assert result.statistic == pytest.approx(stats.ttest_1samp(direct, 0.0).statistic, rel=1e-8)
-    # statsmodels drops one more residual (issue #8446) and drifts slightly (see tests/).
-    sm_t = linear_harvey_collier(sm.OLS(y, sm.add_constant(x)).fit(), order_by=order).statistic
-    assert stats.ttest_1samp(direct[1:], 0.0).statistic == pytest.approx(sm_t, abs=2e-3)
 
 
 @pytest.mark.parametrize("dataset", list(DATASETS))

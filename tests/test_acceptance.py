@@ -28,7 +28,8 @@ def _pair_finding(args):
     x = draw()
     y = 0.8 * x + 0.6 * draw()
     finding = judged_pair(x, y)
-    return finding.orientation, finding.flags
+    orientation = finding.lingam_orientation
+    return (orientation if orientation != "undetermined" else finding.anm_orientation), finding.flags
 
 
 def _mechanism_finding(args):

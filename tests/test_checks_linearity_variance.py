@@ -1,10 +1,9 @@
-"""Linearity (RESET, spline F, Harvey-Collier) and variance (Breusch-Pagan,
+"""Linearity (RESET, spline F) and variance (Breusch-Pagan,
 White) checks: agreement with statsmodels, calibration under the null,
 power under curved and heteroscedastic alternatives, input validation."""
 
 from __future__ import annotations
 
-import math
 import warnings
 
 import numpy as np
@@ -14,9 +13,7 @@ from scipy import stats
 from statsmodels.stats.diagnostic import (
     het_breuschpagan,
     het_white,
-    linear_harvey_collier,
     linear_reset,
-    recursive_olsresiduals,
 )
 
 from preflight.checks import linearity as lin
@@ -198,61 +195,6 @@ def test_full_rank_columns_select_as_with_the_economic_factorisation():
         assert kept.shape == expected.shape and np.array_equal(kept, expected)
 
 
-# ---------------------------------------------------------------- Harvey-Collier
-
-def _direct_recursive_residuals(x, y, first):
-    """Two-pass least squares on every prefix (O(n^2)), the definition of Brown, Durbin & Evans (1975)."""
-    out = []
-    for t in range(first, x.shape[0]):
-        xp, yp = x[:t], y[:t]
-        mx, my = xp.mean(), yp.mean()
-        sxx = ((xp - mx) ** 2).sum()
-        slope = ((xp - mx) * (yp - my)).sum() / sxx
-        out.append((y[t] - my - slope * (x[t] - mx)) / math.sqrt(1 + 1 / t + (x[t] - mx) ** 2 / sxx))
-    return np.array(out)
-
-
-@pytest.mark.parametrize("name,x,y", PAIRS, ids=PAIR_IDS)
-def test_recursive_residuals_match_direct_and_statsmodels(name, x, y):
-    order = np.argsort(x, kind="stable")
-    ours = lin.recursive_residuals(x[order], y[order])
-    direct = _direct_recursive_residuals(x[order], y[order], 2)
-    scale = np.abs(direct).max()
-    assert np.abs(ours - direct).max() <= 1e-12 * scale
-    # statsmodels updates (X'X)^-1 by rank-one steps from the 2x2 inverse of
-    # the two smallest x, and that drifts: measured up to 5e-5 of the largest
-    # residual on these pairs (the shifted ones; 3e-7 on centred ones), while
-    # ours stays within 1e-14 of the direct prefix fits.  Tolerance 1e-4.
-    reference = recursive_olsresiduals(_ols(x, y), order_by=order)[4][2:]
-    assert np.abs(ours - reference).max() <= 1e-4 * scale
-
-
-@pytest.mark.parametrize("name,x,y", PAIRS, ids=PAIR_IDS)
-def test_harvey_collier_t_and_statsmodels(name, x, y):
-    order = np.argsort(x, kind="stable")
-    direct = _direct_recursive_residuals(x[order], y[order], 2)
-    reference_t = stats.ttest_1samp(direct, 0.0)
-    result = lin.harvey_collier(x, y)
-    assert result.statistic == pytest.approx(reference_t.statistic, rel=1e-9)
-    assert result.p_value == pytest.approx(reference_t.pvalue, rel=1e-8, abs=1e-300)
-    # statsmodels' linear_harvey_collier drops one more residual (rr[3][3:],
-    # statsmodels issue #8446); on that same set the t statistics agree up to
-    # its drift (above), which moves t by at most 6e-4 on these pairs.
-    sm_t = linear_harvey_collier(_ols(x, y), order_by=order)
-    assert stats.ttest_1samp(direct[1:], 0.0).statistic == pytest.approx(sm_t.statistic, abs=2e-3)
-    assert result.n == x.shape[0] and f"from {x.shape[0] - 2} recursive residuals" in result.note
-
-
-def test_recursive_residuals_start_after_tied_minimum():
-    rng = np.random.default_rng(19)
-    x = np.concatenate([np.zeros(4), rng.uniform(0.1, 2, size=60)])
-    y = 1 + x + rng.normal(size=64)
-    ours = lin.recursive_residuals(x, y)
-    assert ours.shape[0] == 64 - 5
-    assert np.allclose(ours, _direct_recursive_residuals(x, y, 5), rtol=0, atol=1e-12)
-    assert "62 df" not in lin.harvey_collier(x, y).note and "from 59 recursive" in lin.harvey_collier(x, y).note
-
-
 # ---------------------------------------------------------------- variance
 
 @pytest.mark.parametrize("name,x,y", PAIRS, ids=PAIR_IDS)
@@ -318,13 +260,13 @@ def test_variance_checks_order():
 def test_false_alarm_rates_under_linear_homoscedastic_gaussian_null():
     replicates, n = 300, 200
     rng = np.random.default_rng(20240602)
-    names = ["reset", "spline", "harvey-collier", "breusch-pagan", "white"]
+    names = ["reset", "spline", "breusch-pagan", "white"]
     rejections = np.zeros(len(names))
     for _ in range(replicates):
         x = rng.normal(size=n)
         y = 0.5 + 1.5 * x + rng.normal(size=n)
         residuals = y - np.polyval(np.polyfit(x, y, 1), x)
-        results = lin.linearity_checks(x, y) + (lin.harvey_collier(x, y),) + var.variance_checks(residuals, x)
+        results = lin.linearity_checks(x, y) + var.variance_checks(residuals, x)
         rejections += np.array([r.p_value <= ALPHA for r in results])
     rates = rejections / replicates
     low, high = _interval_rate(replicates)
@@ -364,7 +306,7 @@ def test_noise_scaled_by_abs_x_caught_by_white():
 
 # ---------------------------------------------------------------- input validation
 
-PAIR_CHECKS = [lin.ramsey_reset, lin.spline_f_test, lin.harvey_collier, lin.linearity_checks,
+PAIR_CHECKS = [lin.ramsey_reset, lin.spline_f_test, lin.linearity_checks,
                var.breusch_pagan, var.white_test, var.variance_checks]
 
 
@@ -388,7 +330,7 @@ def test_length_mismatch_and_too_short_raise(check):
         check(rng.normal(size=2), rng.normal(size=2))
 
 
-@pytest.mark.parametrize("check", [lin.ramsey_reset, lin.spline_f_test, lin.harvey_collier, var.variance_checks],
+@pytest.mark.parametrize("check", [lin.ramsey_reset, lin.spline_f_test, var.variance_checks],
                          ids=lambda f: f.__name__)
 def test_matrix_where_vector_expected_raises(check):
     rng = np.random.default_rng(2)
@@ -396,7 +338,7 @@ def test_matrix_where_vector_expected_raises(check):
         check(rng.normal(size=(50, 2)), rng.normal(size=50))
 
 
-@pytest.mark.parametrize("check", [lin.ramsey_reset, lin.spline_f_test, lin.harvey_collier])
+@pytest.mark.parametrize("check", [lin.ramsey_reset, lin.spline_f_test])
 def test_constant_inputs_raise(check):
     x = np.random.default_rng(3).normal(size=40)
     with pytest.raises(InputError, match="constant"):
@@ -435,6 +377,5 @@ def test_inputs_not_mutated_and_no_warnings():
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         lin.linearity_checks(x, y)
-        lin.harvey_collier(x, y)
         var.variance_checks(y - x, x)
     assert np.array_equal(x, x0) and np.array_equal(y, y0)

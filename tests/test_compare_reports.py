@@ -13,8 +13,8 @@ import json
 import os
 
 import pytest
+from test_report_renderers import ODD_NAMES, handmade_report
 
-from conftest import validate_report
 from preflight.report.compare import (
     BASIS_CHANGED,
     COLUMN_GONE,
@@ -27,7 +27,8 @@ from preflight.report.compare import (
     ORIENTATION_REVERSED,
     compare_reports,
 )
-from test_report_renderers import ODD_NAMES, handmade_report
+
+from conftest import validate_report
 
 
 @pytest.fixture(scope="module")

@@ -14,18 +14,18 @@ import os
 
 import networkx as nx
 import pytest
+from test_report_renderers import demo, handmade_report  # noqa: F401 - demo is a session fixture
 
-from conftest import load_json, validate_report
 from preflight.report.discovery import (
     FLAG_SEPARATOR,
     GRAPH_FORMATS,
     LICENSED_BASES,
-    background_knowledge,
     render_graph,
     to_networkx,
 )
 from preflight.report.model import Report
-from test_report_renderers import demo, handmade_report  # noqa: F401 - demo is a session fixture
+
+from conftest import load_json, validate_report
 
 AWKWARD = ("a:b", 'say "hi"', "back\\slash", "comma,name", "node")
 

@@ -1,7 +1,6 @@
 """The CLI as a pipeline uses it: reports, schema, seed, gate, demo."""
 
 import json
-import os
 
 import numpy as np
 import pytest
@@ -117,7 +116,8 @@ def test_stdin_tsv_and_parquet_agree(tmp_path, linear_uniform_csv):
 
 def test_text_column_skipped_with_warning(tmp_path):
     rng = np.random.default_rng(8)
-    lines = ["a,operator,b"] + [f"{u:.5f},{'east' if u > 0.5 else 'west'},{v:.5f}" for u, v in rng.uniform(size=(300, 2))]
+    lines = ["a,operator,b"] + [f"{u:.5f},{'east' if u > 0.5 else 'west'},{v:.5f}"
+                                for u, v in rng.uniform(size=(300, 2))]
     (tmp_path / "t.csv").write_text("\n".join(lines) + "\n")
     run_cli("check", str(tmp_path / "t.csv"), "--json", str(tmp_path / "r.json"))
     data = load_json(tmp_path / "r.json")
@@ -202,7 +202,8 @@ def test_help_and_version_import_no_heavy_module(argument):
              f"sys.argv = ['preflight', {argument!r}]\n"
              "from preflight.cli import main\n"
              "try:\n    main()\nexcept SystemExit:\n    pass\n"
-             "heavy = ('numpy', 'scipy', 'pandas', 'statsmodels', 'sklearn', 'matplotlib', 'pingouin', 'pyarrow', 'tqdm')\n"
+             "heavy = ('numpy', 'scipy', 'pandas', 'statsmodels', 'sklearn', 'matplotlib', 'pingouin', "
+             "'pyarrow', 'tqdm')\n"
              "print('LOADED=' + ','.join(m for m in heavy if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, check=True).stdout
     assert out.strip().splitlines()[-1] == "LOADED=", out

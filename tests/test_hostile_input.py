@@ -126,7 +126,8 @@ def _setup(case, tmp_path, data):
         (tmp_path / "p.toml").write_text("seed = -5\n")
         return ["check", d, "--policy", str(tmp_path / "p.toml")], "seed"
     if case == "12-folder-missing":
-        return ["check", d, "--json", str(tmp_path / "r.json"), "--html", str(tmp_path / "no" / "x.html")], "does not exist"
+        missing_folder = str(tmp_path / "no" / "x.html")
+        return ["check", d, "--json", str(tmp_path / "r.json"), "--html", missing_folder], "does not exist"
     if case == "12-parent-is-a-file":
         return ["check", d, "--json", str(tmp_path / "r.json"), "--html", str(data / "x.html")], "not a folder"
     if case == "13-report-missing-key":

@@ -12,7 +12,6 @@ import subprocess
 
 import numpy as np
 import pytest
-
 from test_report_renderers import demo_html
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")

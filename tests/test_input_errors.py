@@ -1,12 +1,11 @@
 """Bad input: exit 2, one clear line on stderr, no traceback, input untouched (issue: foundation)."""
 
 import hashlib
-import os
 
 import numpy as np
 import pytest
 
-from conftest import run_cli, write_csv
+from conftest import run_cli
 
 
 def _one_line_error(code, out, err, fragment):
@@ -35,7 +34,7 @@ CASES = [
     ("text-only.csv", b"a,b\nx,y\nz,w\n", "at least 2 numeric columns"),
     ("duplicate.csv", b"a,b,a\n1,2,3\n4,5,6\n", "more than once"),
     ("ragged-long.csv", ("a,b\n" + GOOD_ROWS + "1,2,3\n").encode(), "ragged"),
-    ("ragged-short.csv", ("a,b,c\n1,2,3\n4,5\n").encode(), "ragged"),
+    ("ragged-short.csv", (b"a,b,c\n1,2,3\n4,5\n"), "ragged"),
     ("inf.csv", ("a,b\n" + GOOD_ROWS + "inf,2\n").encode(), "infinite"),
     ("garbage.csv", bytes(range(256)) * 8, "binary"),
     ("latin1.csv", "a,b\n1,2\n\xe9,3\n".encode("latin-1"), "utf-8"),

@@ -114,8 +114,9 @@ def test_extreme_magnitudes_run_without_warnings(recwarn):
 
 
 def test_varsortability_is_only_a_caution():
-    import tomllib
     from importlib import resources
+
+    import tomllib
 
     rules = tomllib.loads(resources.files("preflight").joinpath("rules.toml").read_text())
     rows = [row for row in rules["rule"] if "varsortable" in row.get("when", [])]

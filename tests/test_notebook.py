@@ -6,11 +6,11 @@ import copy
 import os
 
 import pandas as pd
-import pytest
+from test_report_renderers import ODD_NAMES, every_check, handmade_report, void_report
+
+from preflight.report.notebook import CHECK_COLUMNS, CHECK_FIELDS, PAIR_COLUMNS, REPR_REASONS, VARIABLE_COLUMNS
 
 from conftest import ROOT
-from preflight.report.notebook import CHECK_COLUMNS, CHECK_FIELDS, PAIR_COLUMNS, REPR_REASONS, VARIABLE_COLUMNS
-from test_report_renderers import ODD_NAMES, every_check, handmade_report, void_report
 
 NOTEBOOK = os.path.join(ROOT, "docs", "example.ipynb")
 

@@ -8,10 +8,10 @@ import os
 import numpy as np
 import pytest
 
-from conftest import run_cli
-
 from preflight.errors import InputError
 from preflight.policy import BOUNDS, POLICY_KEYS, Policy, build_policy, describe_policy
+
+from conftest import run_cli
 
 WORK_KEYS = ("autocorrelation_lags", "spline_max_df", "hsic_exact_max_n", "hsic_max_n", "hsic_features",
              "hsic_permutations", "plot_max_points")

@@ -12,8 +12,9 @@ import sys
 import numpy as np
 import pytest
 
-from conftest import ROOT, write_csv
 from preflight.cli import _Progress
+
+from conftest import ROOT, write_csv
 
 pty = pytest.importorskip("pty")
 fcntl = pytest.importorskip("fcntl")

@@ -9,16 +9,16 @@ import json
 import os
 import sys
 
-import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import HealthCheck, event, example, given, settings, strategies as st
+from hypothesis import HealthCheck, event, example, given, settings
+from hypothesis import strategies as st
 
 sys.path.insert(0, os.path.dirname(__file__))
-from conftest import run_cli, validate_report  # noqa: E402
-
 import preflight  # noqa: E402
 from preflight.scenarios import simulate, to_frame  # noqa: E402
+
+from conftest import run_cli, validate_report  # noqa: E402
 
 KINDS = st.sampled_from(["linear-non-gaussian", "gaussian", "heteroscedastic", "nonlinear"])
 SHAPES = st.sampled_from(["pair", "chain"])

@@ -17,10 +17,8 @@ import hashlib
 import io
 
 import numpy as np
-import pytest
 from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
-
 from test_hostile_input import run_main
 
 STRAY_TOKENS = ("-", "?", "0x1F", "n/a", "", "NA", "1,5", "abc", " ", "--", "1e999", "$", "\\", "<b>")

@@ -18,8 +18,9 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-from conftest import validate_report
 from preflight.report.model import CAUTIONS, Report
+
+from conftest import validate_report
 
 DEMO_ROWS = 1000
 DEMO_PLOT_POINTS = 600  # below DEMO_ROWS, so the plots really show a subsample
@@ -228,7 +229,7 @@ def test_markdown_carries_the_whole_report(demo):
         assert reason in md_plain(sections["Why"])
     for caution in data["cautions"]:
         assert caution in md_plain(sections["Cautions"])
-    for key, value in data["settings"].items():
+    for key in data["settings"]:
         assert f"| `{key}` |" in sections["Settings in force"]
     assert data["input"]["sha256"] in sections["Input"]
     assert f"{data['input']['rows']:,}" in sections["Input"] and f"{data['input']['rows_used']:,}" in sections["Input"]
@@ -266,7 +267,8 @@ def test_markdown_appendix_has_one_row_per_check(demo):
                  if line.startswith("| ") and not line.startswith("| check |")]
     n_checks = sum(1 for _ in every_check(data))
     assert len(body_rows) == n_checks
-    groups_with_checks = (sum(1 for v in data["variables"] if v["checks"]) + sum(1 for p in data["pairs"] if p["checks"])
+    groups_with_checks = (sum(1 for v in data["variables"] if v["checks"])
+                          + sum(1 for p in data["pairs"] if p["checks"])
                           + (1 if data["global"]["checks"] else 0))
     assert header_rows == groups_with_checks
     results = [line.rsplit(" | ", 2)[-2] for line in body_rows]
@@ -394,7 +396,8 @@ def test_html_rerendered_from_json_keeps_graph_and_tables_but_not_data_plots(dem
     assert "The residual, Q-Q and spline plots need the data" in words
     assert "Plots show" not in words
     assert len(tree.findall(".//section[@id='edges']//table")) >= 1
-    assert len(tree.findall(".//section[@id='checks']//details")) == len(demo.data["variables"]) + len(demo.data["pairs"]) + 1
+    groups = len(demo.data["variables"]) + len(demo.data["pairs"]) + 1
+    assert len(tree.findall(".//section[@id='checks']//details")) == groups
 
 
 def test_html_is_reproducible(demo, demo_page):
@@ -485,7 +488,8 @@ def _junit_checks(text: str, data: dict) -> ET.Element:
                       + [f"preflight.pairs.{p['x']}__{p['y']}" for p in data["pairs"]]
                       + ["preflight.global", "preflight.conclusion"])
     assert [s.get("name") for s in suites] == expected_names
-    groups = [v["checks"] for v in data["variables"]] + [p["checks"] for p in data["pairs"]] + [data["global"]["checks"]]
+    groups = ([v["checks"] for v in data["variables"]] + [p["checks"] for p in data["pairs"]]
+              + [data["global"]["checks"]])
     for suite, checks in zip(suites, groups):
         cases = list(suite)
         assert all(c.tag == "testcase" for c in cases)

@@ -32,8 +32,9 @@ from __future__ import annotations
 import hashlib
 import math
 from collections import OrderedDict
+from collections.abc import Callable
 from dataclasses import replace
-from typing import Callable, NamedTuple
+from typing import NamedTuple
 
 import numpy as np
 
@@ -363,7 +364,10 @@ def _residual_terms_exact(u: np.ndarray, sigma: float, gram: np.ndarray) -> tupl
 
 def _fitted_coefficient_shift(regressor_terms: tuple[float, float, float],
                               residual_terms: tuple[float, float, float]) -> tuple[float, float]:
-    """Additions to the null mean and variance of the statistic: tr P tr Q and 2 (2 tr(C_xx P) tr(C_yy Q) + ||P||^2 ||Q||^2)."""
+    """Additions to the null mean and variance of the statistic.
+
+    They are tr P tr Q and 2 (2 tr(C_xx P) tr(C_yy Q) + ||P||^2 ||Q||^2).
+    """
     trace_p, norm_p, trace_cp = regressor_terms
     trace_q, norm_q, trace_cq = residual_terms
     return trace_p * trace_q, 2.0 * (2.0 * trace_cp * trace_cq + norm_p * norm_q)
@@ -544,7 +548,9 @@ _FEATURE_CACHE_SIZE = 6
 
 def _features_and_covariance(v: np.ndarray, sigma: float, n_frequencies: int,
                              rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """:func:`_fourier_features` of v, their covariance and derivative mean, remembered for the last few (v, frequencies).
+    """:func:`_fourier_features` of v, their covariance and derivative mean.
+
+    They are remembered for the last few (v, frequencies).
 
     Within one pair the same seed draws the same frequencies for the
     regressor in every HSIC it enters (association, residual, spline
@@ -789,13 +795,14 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
         features[c] = (phi, float(np.trace(c_self)), float(np.einsum("ij,ij->", c_self, c_self)), fallback)
     out = []
     for a, b in pairs:
-        if features[a] is None or features[b] is None:
-            result = _constant_result("hsic", m, "x" if features[a] is None else "y", _NORMALISED_HSIC)
+        features_a, features_b = features[a], features[b]
+        if features_a is None or features_b is None:
+            result = _constant_result("hsic", m, "x" if features_a is None else "y", _NORMALISED_HSIC)
             out.append(replace(result, note=subsample_note + result.note))
             finished(out)
             continue
-        phi, trace_x, norm_xx, fallback_x = features[a]
-        psi, trace_y, norm_yy, fallback_y = features[b]
+        phi, trace_x, norm_xx, fallback_x = features_a
+        psi, trace_y, norm_yy, fallback_y = features_b
         c_xy = (phi.T @ psi).astype(np.float64) / m
         cross = float(np.einsum("ij,ij->", c_xy, c_xy))
         p_value, null_note = _rff_gamma_p_value(m * cross, m, trace_x, trace_y, norm_xx, norm_yy)

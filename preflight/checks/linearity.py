@@ -1,4 +1,4 @@
-"""Linearity of y in x: Ramsey RESET, a regression-spline F-test, Harvey-Collier.
+"""Linearity of y in x: Ramsey RESET and a regression-spline F-test.
 
 Each check compares the straight-line least-squares fit of y on [1, x] with
 a richer alternative.  The caller has already partialled out any
@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from preflight.checks._distributions import f_sf, t_sf
+from preflight.checks._distributions import f_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
 from preflight.fit import LinearFit, basis_of_tail, bspline_basis, derived_from_basis, ols, spline_df
@@ -20,7 +20,6 @@ from preflight.results import CheckResult
 
 RAMSEY_RESET = "ramsey reset"
 SPLINE_F_TEST = "spline f-test"
-HARVEY_COLLIER = "harvey-collier"
 
 _R2_GAIN = "R-squared gain"
 
@@ -240,77 +239,8 @@ def _spline_f_result(comparison: SplineComparison) -> CheckResult:
                              f"delta BIC (spline - linear) = {comparison.delta_bic:.6g}"))
 
 
-def recursive_residuals(x, y) -> np.ndarray:
-    """Standardised one-step-ahead prediction errors of the straight line, in the given order.
-
-    w_t = (y_t - a_{t-1} - b_{t-1} x_t) / sqrt(1 + 1/(t-1) + (x_t - mean_{t-1})^2 / Sxx_{t-1}),
-    where a, b, mean and Sxx come from the first t-1 observations.  The
-    running means and co-moments are Welford's updates written as cumulative
-    sums (O(n), no matrix inverse to drift).  The first residual is for the
-    first observation after two distinct x values have been seen; under a
-    correct linear model with iid N(0, s^2) errors the w_t are iid N(0, s^2).
-    Reference: Brown, Durbin & Evans (1975).
-    """
-    xv = as_vector(x, name="x", min_n=3)
-    yv = as_vector(y, name="y", min_n=3)
-    same_length(xv, yv, names=("x", "y"))
-    distinct = np.flatnonzero(xv != xv[0])
-    if distinct.size == 0:
-        raise InputError("x is constant; a regression on it is undefined")
-    first = int(distinct[0]) + 1  # first index predicted from a sample with two distinct x
-    # Centring removes the common offset so the cumulative sums carry no large constant.
-    xc = xv - xv.mean()
-    yc = yv - yv.mean()
-    counts = np.arange(1, xv.shape[0] + 1, dtype=np.float64)
-    mean_x = np.cumsum(xc) / counts
-    mean_y = np.cumsum(yc) / counts
-    prev_x = np.concatenate([[xc[0]], mean_x[:-1]])
-    sxx = np.cumsum((xc - prev_x) * (xc - mean_x))
-    sxy = np.cumsum((xc - prev_x) * (yc - mean_y))
-    # Quantities of the first t observations predict observation t (0-based).
-    t = np.arange(first, xv.shape[0])
-    before = t - 1
-    slope = sxy[before] / sxx[before]
-    offset = xc[t] - mean_x[before]
-    error = yc[t] - mean_y[before] - slope * offset
-    scale = np.sqrt(1.0 + 1.0 / t + offset * offset / sxx[before])
-    return error / scale
-
-
-def harvey_collier(x, y) -> CheckResult:
-    """Harvey-Collier test: do the recursive residuals, ordered by x, have mean zero?
-
-    Null hypothesis: E[y | x] is linear in x.  The observations are sorted by
-    x (stable sort, so ties keep their input order) so that curvature shows
-    as a drift in the one-step-ahead errors; the statistic is the one-sample
-    t of the n - 2 recursive residuals, on n - 3 degrees of freedom.
-    Reference: Harvey & Collier (1977).  Effect: mean / sd of the recursive
-    residuals (the t statistic over sqrt(n - 2)).
-
-    statsmodels' ``linear_harvey_collier`` drops the first three entries
-    whatever the number of regressors, so with [1, x] it leaves out one
-    residual more than this function does.
-    """
-    xv, yv = _pair(x, y, min_n=5)
-    order = np.argsort(xv, kind="stable")
-    residuals = recursive_residuals(xv[order], yv[order])
-    m = residuals.shape[0]
-    n = xv.shape[0]
-    if m < 3 or np.ptp(residuals) == 0:
-        return CheckResult(name=HARVEY_COLLIER, statistic=math.nan, p_value=None, effect=None,
-                           effect_name="standardised mean recursive residual", n=n,
-                           note=f"{m} recursive residuals, too few or all equal: no test")
-    mean = float(residuals.mean())
-    sd = float(residuals.std(ddof=1))
-    t_stat = mean / sd * math.sqrt(m)
-    p_value = float(2.0 * t_sf(abs(t_stat), m - 1))
-    note = f"sorted by x; t on {m - 1} df from {m} recursive residuals"
-    return CheckResult(name=HARVEY_COLLIER, statistic=t_stat, p_value=p_value, effect=mean / sd,
-                       effect_name="standardised mean recursive residual", n=n, note=note)
-
-
 def linearity_checks(x, y, max_df: int = 10) -> tuple[CheckResult, ...]:
-    """Ramsey RESET and the spline F-test, in that order (Harvey-Collier is left to callers who want it).
+    """Ramsey RESET and the spline F-test, in that order.
 
     Null hypothesis of both: E[y | x] is linear in x.  References: see the
     individual functions.

@@ -15,8 +15,8 @@ with m_k the k-th central sample moment using divisor n, which is what
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 
@@ -137,16 +137,12 @@ def _shapiro_wilk(values: np.ndarray, max_n: int, seed: int) -> CheckResult:
                        effect_name="1 - W", n=int(values.shape[0]), note=note)
 
 
-def anderson_darling_statistic(x) -> float:
-    """A^2 of ``x`` against the normal with the sample mean and sd (ddof=1).
+def _anderson_darling_statistic(values: np.ndarray) -> float:
+    """A^2 of ``values`` against the normal with the sample mean and sd (ddof=1).
 
     Computed on the log scale (log Phi and log(1 - Phi) directly) so that
     values far in a tail do not round to log(0).
     """
-    return _anderson_darling_statistic(_vector(x))
-
-
-def _anderson_darling_statistic(values: np.ndarray) -> float:
     from scipy.special import log_ndtr
 
     values = np.sort(values)

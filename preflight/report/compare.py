@@ -167,9 +167,10 @@ def _edge_change(old: dict[str, Any] | None, new: dict[str, Any] | None, new_has
     new_adjacent = bool(new and new["adjacent"])
     if not old_adjacent and not new_adjacent:
         return None
+    assert reference is not None  # one side is adjacent, so present
     changes: list[str] = []
-    old_dir = cause_effect(old) if old_adjacent else None
-    new_dir = cause_effect(new) if new_adjacent else None
+    old_dir = cause_effect(old) if old and old_adjacent else None
+    new_dir = cause_effect(new) if new and new_adjacent else None
     if old_adjacent and not new_adjacent:
         changes.append(EDGE_GONE if new_has_columns else COLUMN_GONE)
     elif new_adjacent and not old_adjacent:
@@ -180,8 +181,8 @@ def _edge_change(old: dict[str, Any] | None, new: dict[str, Any] | None, new_has
         changes.append(ORIENTATION_REVERSED)
     elif new_dir and not old_dir:
         changes.append(ORIENTATION_GAINED)
-    basis_before = old["basis"] if old_adjacent else None
-    basis_after = new["basis"] if new_adjacent else None
+    basis_before = old["basis"] if old and old_adjacent else None
+    basis_after = new["basis"] if new and new_adjacent else None
     if old_adjacent and new_adjacent and basis_before != basis_after:
         changes.append(BASIS_CHANGED)
     old_flags = list(old["flags"]) if old else []
@@ -295,7 +296,8 @@ def render_comparison_text(comparison: ReportComparison, style=None, quiet: bool
     lines.append(f"Input: {c.old_source} -> {c.new_source}; rows used {c.old_rows_used} -> {c.new_rows_used}; "
                  f"{data_words}.")
     if c.columns_added or c.columns_removed:
-        lines.append(f"Columns added: {', '.join(c.columns_added) or '-'}; removed: {', '.join(c.columns_removed) or '-'}.")
+        added, removed = ", ".join(c.columns_added) or "-", ", ".join(c.columns_removed) or "-"
+        lines.append(f"Columns added: {added}; removed: {removed}.")
     if c.settings_changed:
         lines.append("Settings changed: " + "; ".join(f"{k} {_setting(a)} -> {_setting(b)}"
                                                       for k, a, b in c.settings_changed) + ".")

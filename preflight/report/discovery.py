@@ -107,7 +107,9 @@ def background_knowledge(data: dict[str, Any]) -> BackgroundKnowledge:
             if level != "none":
                 apart.append((pair["x"], pair["y"]))
         elif direction_may_be_fixed(pair, level):
-            fixed.append(cause_effect(pair))
+            edge = cause_effect(pair)
+            assert edge is not None  # a direction that may be fixed is an oriented one
+            fixed.append(edge)
         else:
             open_.append((pair["x"], pair["y"]))
     return BackgroundKnowledge(level, tuple(fixed), tuple(apart), tuple(open_))

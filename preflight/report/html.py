@@ -14,9 +14,10 @@ and says so in place of those plots.
 from __future__ import annotations
 
 import html
-import warnings
 import re
-from typing import Any, Sequence
+import warnings
+from collections.abc import Sequence
+from typing import Any
 
 from preflight.report.markdown import (
     CHECK_HEADER,
@@ -25,11 +26,11 @@ from preflight.report.markdown import (
     conclusion_words,
     edge_text,
     findings_explained,
-    gate_outcome,
     fmt_count,
     fmt_number,
     fmt_p,
     fmt_setting,
+    gate_outcome,
     methods_paragraphs,
     methods_used,
     noise_finding,
@@ -122,7 +123,7 @@ footer { margin-top: 40px; color: var(--muted); font-size: 12.5px; border-top: 1
   details > summary { list-style: none; }
   .verdict, tr.failed td, th, .cautions, .notice { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
 }
-"""
+"""  # noqa: E501 -- a stylesheet embedded verbatim; rewrapping it would change the report's bytes
 
 # Closed <details> would hide every check on paper; open them all before printing.
 _PRINT_SCRIPT = ("window.addEventListener('beforeprint',function(){"
@@ -169,7 +170,8 @@ def _check_table(checks: Sequence[dict[str, Any]]) -> str:
             effect += f' <span class="none">({_e(c["effect_name"])})</span>'
         failed = ' class="failed"' if c["passed"] is False else ""
         rows.append(f"<tr{failed}><td>{_e(c['name'])}</td><td class=\"num\">{_e(fmt_number(c['statistic']))}</td>"
-                    f"<td class=\"num\">{_e(fmt_p(c['p_value']))}</td><td class=\"num\">{_e(fmt_p(c['p_adjusted']))}</td>"
+                    f"<td class=\"num\">{_e(fmt_p(c['p_value']))}</td>"
+                    f"<td class=\"num\">{_e(fmt_p(c['p_adjusted']))}</td>"
                     f"<td>{effect}</td><td class=\"num\">{_e(c['n'])}</td>{_result_cell(c['passed'])}"
                     f"<td class=\"note\">{_e(c.get('note') or '')}</td></tr>")
     return _table(CHECK_HEADER, rows)
@@ -222,7 +224,8 @@ def _why(data: dict[str, Any]) -> str:
     findings = findings_explained(data)
     if findings:
         rows = [f"<tr><td>{_flags([flag])}</td><td>{_e(meaning)}</td>"
-                f"<td>{_e(fits) if fits else '<span class=none>-</span>'}</td></tr>" for flag, meaning, fits in findings]
+                f"<td>{_e(fits) if fits else '<span class=none>-</span>'}</td></tr>"
+                for flag, meaning, fits in findings]
         parts.append("<h3>What each finding means, and what analysis still fits</h3>")
         parts.append(_table(("finding", "what it means", "what still fits"), rows))
     parts.append("</section>")
@@ -243,7 +246,9 @@ def _graph(data: dict[str, Any]) -> str:
     order = structure.get("order") or []
     where = (f"Variables are laid out left to right along the estimated causal order ({_e(' < '.join(order))})."
              if order else "No causal order was estimated; variables are shown in column order.")
-    label = "Overview graph of the variables: solid arrows are oriented edges, dashed lines are adjacent pairs whose direction is not determined, dotted lines with a diamond mark pairs with signs of a hidden common cause."
+    label = ("Overview graph of the variables: solid arrows are oriented edges, dashed lines are adjacent pairs "
+             "whose direction is not determined, dotted lines with a diamond mark pairs with signs of a hidden "
+             "common cause.")
     return (f'<section id="graph"><h2>The graph</h2><figure>{_svg_with_label(svg, label)}'
             f"<figcaption>{_e(label)} {where} A variable's box lists its flags and whether its noise looks "
             f"Gaussian.</figcaption></figure></section>")
@@ -264,9 +269,9 @@ def _edges(data: dict[str, Any]) -> str:
 
     header = ("x", "y", "adjacent", "edge", "orientation", "basis", "flags", "conditioning set")
     parts = [f'<section id="edges"><h2>{_e(SECTION_TITLES["pairs"])}</h2>',
-             "<p>Edges (adjacent pairs) and pairs suspected of a hidden common cause. In the edge column the cause comes first "
-             "(\u2192); \u2014 marks an adjacent pair whose direction is not determined. The basis is the rung of "
-             "the ladder that licenses the orientation.</p>"]
+             "<p>Edges (adjacent pairs) and pairs suspected of a hidden common cause. "
+             "In the edge column the cause comes first (\u2192); \u2014 marks an adjacent pair whose direction "
+             "is not determined. The basis is the rung of the ladder that licenses the orientation.</p>"]
     parts.append(_table(header, [row(p) for p in shown]) if shown else "<p>No pair is adjacent or flagged.</p>")
     if rest:
         parts.append(f"<details><summary>The other {len(rest)} pairs: not adjacent</summary>"
@@ -330,8 +335,9 @@ def _plots(data: dict[str, Any], samples: dict[str, Any] | None, max_edge_plots:
     for k, pair in enumerate(edges[:max_edge_plots]):
         label = f"Residuals of {pair['y']} on {pair['x']} and of {pair['x']} on {pair['y']}"
         svg = plots.residual_pair_svg(pair, samples, alpha=alpha, key=f"edge{k}")
-        parts.append(f"<figure>{_svg_with_label(svg, label)}<figcaption>{_e(edge_text(pair, arrow=ARROW, line=UNDIRECTED))}"
-                     f"{' (given ' + _e(', '.join(pair.get('conditioning', []))) + ')' if pair.get('conditioning') else ''}"
+        given = f" (given {_e(', '.join(pair['conditioning']))})" if pair.get("conditioning") else ""
+        parts.append(f"<figure>{_svg_with_label(svg, label)}<figcaption>"
+                     f"{_e(edge_text(pair, arrow=ARROW, line=UNDIRECTED))}{given}"
                      f": {_e(label)}; HSIC p-values as in the report.</figcaption></figure>")
     if len(edges) > max_edge_plots:
         parts.append(f"<p>Residual plots are shown for the first {max_edge_plots} of {len(edges)} edges.</p>")

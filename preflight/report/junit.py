@@ -11,7 +11,8 @@ from __future__ import annotations
 
 import re
 import xml.etree.ElementTree as ET
-from typing import Any, Sequence
+from collections.abc import Sequence
+from typing import Any
 
 from preflight.report.markdown import fmt_number, fmt_p
 from preflight.report.text import headline

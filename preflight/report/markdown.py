@@ -13,8 +13,9 @@ from __future__ import annotations
 
 import math
 import re
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
-from typing import Any, Callable, Iterable, Sequence
+from typing import Any
 
 from preflight.report.model import Report
 from preflight.report.text import FLAG_MEANING, LEVEL_WORDS, WHAT_STILL_FITS, headline
@@ -182,7 +183,8 @@ REFERENCES = {
     "belsley1980": "Belsley, D. A., Kuh, E. and Welsch, R. E. (1980). Regression Diagnostics: Identifying "
                    "Influential Data and Sources of Collinearity. Wiley.",
     "benjamini1995": "Benjamini, Y. and Hochberg, Y. (1995). Controlling the false discovery rate: a practical and "
-                     "powerful approach to multiple testing. Journal of the Royal Statistical Society B 57(1), 289-300.",
+                     "powerful approach to multiple testing. Journal of the Royal Statistical Society B 57(1), "
+                     "289-300.",
     "breusch1979": "Breusch, T. S. and Pagan, A. R. (1979). A simple test for heteroscedasticity and random "
                    "coefficient variation. Econometrica 47(5), 1287-1294.",
     "colombo2014": "Colombo, D. and Maathuis, M. H. (2014). Order-independent constraint-based causal structure "
@@ -196,8 +198,6 @@ REFERENCES = {
                    "dependence with Hilbert-Schmidt norms. Algorithmic Learning Theory (ALT), 63-77.",
     "gretton2008": "Gretton, A., Fukumizu, K., Teo, C. H., Song, L., Schoelkopf, B. and Smola, A. J. (2008). A kernel "
                    "statistical test of independence. Advances in Neural Information Processing Systems 20.",
-    "harvey1977": "Harvey, A. C. and Collier, P. (1977). Testing for functional misspecification in regression "
-                  "analysis. Journal of Econometrics 6(1), 103-119.",
     "henze1990": "Henze, N. and Zirkler, B. (1990). A class of invariant consistent tests for multivariate "
                  "normality. Communications in Statistics - Theory and Methods 19(10), 3595-3617.",
     "holm1979": "Holm, S. (1979). A simple sequentially rejective multiple test procedure. Scandinavian Journal "
@@ -275,7 +275,8 @@ GROUPS = {
     "normality": "Normality of regression residuals and of the structural noise estimates was assessed with",
     "linearity": "Linearity of each regression was assessed with",
     "variance": "Constant residual variance was assessed with",
-    "independence": "Independence (of each regressor and its residual, of the two variables, and of pairs of noise estimates) was assessed with",
+    "independence": "Independence (of each regressor and its residual, of the two variables, and of pairs of "
+                    "noise estimates) was assessed with",
     "direction": "The direction of each adjacent pair was further weighed with",
     "whole": "The whole table was checked with",
 }
@@ -284,7 +285,8 @@ METHODS: tuple[Method, ...] = (
     Method("ljung-box", "screen", "the Ljung-Box test of autocorrelation in file order (Ljung and Box 1978)",
            ("ljung1978",), _has("ljung")),
     Method("collinearity", "screen", "variance inflation factors and the condition number of the standardised "
-           "design (Belsley et al. 1980)", ("belsley1980",), _has("collinear", "variance inflation", "condition number")),
+           "design (Belsley et al. 1980)", ("belsley1980",),
+           _has("collinear", "variance inflation", "condition number")),
     Method("shapiro-wilk", "normality", "the Shapiro-Wilk test (Shapiro and Wilk 1965), with p-values from "
            "Royston's approximation (Royston 1995)", ("shapiro1965", "royston1995"), _has("shapiro")),
     Method("anderson-darling", "normality", "the Anderson-Darling test (Anderson and Darling 1952), with the "
@@ -300,8 +302,6 @@ METHODS: tuple[Method, ...] = (
            ("ramsey1969",), _has("ramsey", "reset")),
     Method("spline-f", "linearity", "a nested-model F-test of a cubic regression spline (B-spline basis with "
            "knots at quantiles; de Boor 1978) against the straight line", ("deboor1978",), _has("spline f")),
-    Method("harvey-collier", "linearity", "the Harvey-Collier test on recursive residuals (Harvey and Collier 1977)",
-           ("harvey1977",), _has("harvey")),
     Method("breusch-pagan", "variance", "the Breusch-Pagan test (Breusch and Pagan 1979) in Koenker's "
            "studentized form (Koenker 1981)", ("breusch1979", "koenker1981"), _has("breusch")),
     Method("white", "variance", "White's test (White 1980)", ("white1980",), _starts("white")),

@@ -63,7 +63,7 @@ class Report:
         return json.dumps(self.data, indent=indent, ensure_ascii=False, allow_nan=False) + "\n"
 
     @classmethod
-    def from_dict(cls, data: dict[str, Any]) -> "Report":
+    def from_dict(cls, data: dict[str, Any]) -> Report:
         return cls(data=data)
 
     # In a notebook ------------------------------------------------------------

@@ -43,7 +43,8 @@ def report_repr(data: dict[str, Any]) -> str:
     try:
         return _report_repr(data)
     except (KeyError, TypeError, AttributeError):  # a repr must never raise, even on a partial dictionary
-        return f"<preflight Report: incomplete data with keys {sorted(map(str, data)) if isinstance(data, dict) else type(data).__name__}>"
+        keys = sorted(map(str, data)) if isinstance(data, dict) else type(data).__name__
+        return f"<preflight Report: incomplete data with keys {keys}>"
 
 
 def _report_repr(data: dict[str, Any]) -> str:
@@ -96,7 +97,8 @@ def report_html(data: dict[str, Any]) -> str:
     parts = [
         '<div style="font-family:system-ui,-apple-system,\'Segoe UI\',Roboto,sans-serif;line-height:1.45;'
         'max-width:1000px;">',
-        f'<div style="border-left:6px solid {ink};background:{paper};color:#1b1b1b;padding:8px 14px;margin:4px 0 10px;">'
+        f'<div style="border-left:6px solid {ink};background:{paper};color:#1b1b1b;'
+        'padding:8px 14px;margin:4px 0 10px;">'
         f'<span style="display:inline-block;background:{ink};color:#fff;font-weight:700;padding:1px 8px;'
         f'border-radius:4px;margin-right:8px;">{status}</span>'
         f'<strong style="font-size:115%;">{_e(c["level"])}</strong>'
@@ -109,7 +111,8 @@ def report_html(data: dict[str, Any]) -> str:
     if edges:
         rows = [[_e(edge_text(p, arrow="\u2192", line="\u2014")), _e(p["basis"] or "undetermined"),
                  _flags(p["flags"])] for p in edges]
-        parts.append('<div style="font-weight:600;margin-top:6px;">Edges (cause \u2192 effect; \u2014 not determined)</div>')
+        parts.append('<div style="font-weight:600;margin-top:6px;">'
+                     'Edges (cause \u2192 effect; \u2014 not determined)</div>')
         parts.append(_table(("edge", "basis", "flags"), rows))
     else:
         parts.append("<div>No adjacent edges.</div>")

@@ -16,8 +16,9 @@ import html
 import io
 import itertools
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -32,7 +33,7 @@ FIT_LINE = "#1b1b1b"
 SPLINE_LINE = "#b3261e"
 
 _SVG_METADATA = {"Creator": None, "Date": None, "Format": None, "Type": None}
-_RC = {
+_RC: dict[Any, Any] = {
     "font.family": "DejaVu Sans",
     "font.size": 9.0,
     "axes.titlesize": 9.5,
@@ -190,7 +191,8 @@ def _style_axes(ax) -> None:
 
 # ---------------------------------------------------------------- residual plots
 
-def residuals_both_ways(pair: dict[str, Any], samples: dict[str, Any]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def residuals_both_ways(pair: dict[str, Any],
+                        samples: dict[str, Any]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """(x, residual of y on x, y, residual of x on y) after partialling out the pair's conditioning set.
 
     x and y are returned with their means added back (see ``_partialled``);
@@ -237,7 +239,8 @@ def residual_pair_svg(pair: dict[str, Any], samples: dict[str, Any], *, alpha: f
                 verdict = "looks independent" if p >= alpha else "dependent"
             chosen = "  [reported direction]" if pair.get("orientation") == orientation else ""
             shown_p = _p_text(p)
-            title = (f"{_label(resp_name)} on {_label(reg_name)}{chosen}\nHSIC p {shown_p if shown_p.startswith('<') else '= ' + shown_p}"
+            p_shown = shown_p if shown_p.startswith("<") else "= " + shown_p
+            title = (f"{_label(resp_name)} on {_label(reg_name)}{chosen}\nHSIC p {p_shown}"
                      f"{' (' + kind + ')' if kind else ''}: {verdict}")
             titles.append(" ".join(title.split()))
             ax.set_title(title, loc="left")
@@ -329,7 +332,8 @@ def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, max_d
     (:func:`preflight.fit.spline_df` of the full row count).
     """
     fits = linear_and_spline_fits(pair, samples, max_df=max_df)
-    regressor, response, reg_name, resp_name, df = fits.regressor, fits.response, fits.regressor_name, fits.response_name, fits.df
+    regressor, response, df = fits.regressor, fits.response, fits.df
+    reg_name, resp_name = fits.regressor_name, fits.response_name
     order = np.argsort(regressor)
     grid = regressor[order]
     spline_fitted = fits.spline_fitted[order]
@@ -368,10 +372,9 @@ _MARGIN = 12.0
 
 
 def _text_width(text: str, size: float) -> float:
+    import matplotlib
     from matplotlib.font_manager import FontProperties
     from matplotlib.textpath import TextPath
-
-    import matplotlib
 
     if not text:
         return 0.0
@@ -380,7 +383,8 @@ def _text_width(text: str, size: float) -> float:
     return float(path.get_extents().width)
 
 
-def graph_layout(names: Sequence[str], order: Sequence[str], edges: Sequence[tuple[str, str]]) -> dict[str, tuple[int, int]]:
+def graph_layout(names: Sequence[str], order: Sequence[str],
+                 edges: Sequence[tuple[str, str]]) -> dict[str, tuple[int, int]]:
     """Layer and row of each variable: left to right along the estimated causal order.
 
     A variable's layer is one more than the deepest earlier-in-order
@@ -428,7 +432,8 @@ def graph_layout(names: Sequence[str], order: Sequence[str], edges: Sequence[tup
         for level in levels:
             pos = centred(arrangement)
             current = {n: k for k, n in enumerate(arrangement[level])}
-            def key(n: str) -> tuple[float, int]:
+            # The loop's values are bound as defaults: the key belongs to this level's sort alone.
+            def key(n: str, pos=pos, current=current, level=level) -> tuple[float, int]:
                 near = [pos[m] for m in neighbours[n]]
                 return (float(np.mean(near)) if near else current[n] - (len(arrangement[level]) - 1) / 2, rank[n])
             arrangement[level].sort(key=key)
@@ -476,7 +481,8 @@ def _clear_bend(p0: np.ndarray, p2: np.ndarray, others: list[tuple[tuple[float, 
     return best
 
 
-def _arrow_head(ax, tip: np.ndarray, direction: np.ndarray, colour: str, length: float = 9.0, width: float = 3.8) -> np.ndarray:
+def _arrow_head(ax, tip: np.ndarray, direction: np.ndarray, colour: str, length: float = 9.0,
+                width: float = 3.8) -> np.ndarray:
     from matplotlib.patches import Polygon
 
     d = direction / (np.linalg.norm(direction) or 1.0)
@@ -487,7 +493,7 @@ def _arrow_head(ax, tip: np.ndarray, direction: np.ndarray, colour: str, length:
     return base
 
 
-def _edge_style(kind: str) -> tuple[str, object, float]:
+def _edge_style(kind: str) -> tuple[str, Any, float]:
     if kind == "suspect":
         return SUSPECT, (0, (1.2, 2.2)), 1.8
     if kind == "oriented":

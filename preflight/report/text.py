@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import re
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 _CONTROL = re.compile("[\x00-\x1f\x7f-\x9f]")
 _NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
@@ -103,7 +104,8 @@ def render_text(report: dict[str, Any], style: Callable[..., str] | None = None,
         lines.append(f"  {'edge'.ljust(width)}  {'basis'.ljust(24)}  flags")
         for p in edges:
             basis = p["basis"] or "undetermined"
-            lines.append(f"  {_arrow(p).ljust(width)}  {visible(basis).ljust(24)}  {visible(', '.join(p['flags'])) or '-'}")
+            flags = visible(", ".join(p["flags"])) or "-"
+            lines.append(f"  {_arrow(p).ljust(width)}  {visible(basis).ljust(24)}  {flags}")
     lines.append("")
     lines.append("Why:")
     for reason in c["reasons"]:
