@@ -175,8 +175,12 @@ def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str
     adjacency = np.array(skeleton.adjacency, dtype=bool)
     # Colliders by the conservative rule over every separating set, not the
     # first one found, which depends on the column order.
-    cpdag = graphs.cpdag_from_all_separating_sets(
-        X, adjacency, alpha=policy.alpha, max_condition_size=max(skeleton.max_condition_size_reached, 0)).cpdag
+    if policy.collider_rule == "first-separating-set":
+        cpdag = graphs.cpdag_from_skeleton(adjacency, dict(skeleton.separating_sets))
+    else:
+        cpdag = graphs.cpdag_from_all_separating_sets(
+            X, adjacency, alpha=policy.alpha, max_condition_size=max(skeleton.max_condition_size_reached, 0),
+            rule=policy.collider_rule).cpdag
     return adjacency, cpdag, "estimated: PC-stable skeleton (Fisher-z partial correlations)"
 
 

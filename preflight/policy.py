@@ -27,6 +27,7 @@ LEVELS: tuple[str, ...] = (
 """The conclusion ladder, strongest first (DESIGN.md)."""
 
 CORRECTIONS = ("holm", "fdr_bh")
+COLLIDER_RULES = ("first-separating-set", "conservative", "majority")
 
 PAIR_FLAGS = ("gaussian-noise", "nonlinear", "heteroscedastic", "confounding-suspected", "no-association")
 VARIABLE_FLAGS = ("constant", "discrete", "heavy-tailed", "outliers", "autocorrelated", "missing-values", "collinear")
@@ -149,6 +150,20 @@ class Policy:
     """Significance level of every test, applied to multiplicity-adjusted p-values."""
     correction: str = "holm"
     """Multiplicity correction within each family of tests: ``holm`` or ``fdr_bh``."""
+    collider_rule: str = "first-separating-set"
+    """How the equivalence class decides whether a - k - b (a, b not adjacent) is a collider.
+
+    ``first-separating-set``: k is a collider when it is not in the separating
+    set the PC-stable skeleton search found first (Spirtes, Glymour and Scheines
+    2000; Colombo and Maathuis 2014).  Which set is found first depends on the
+    order of the columns, and the analysis always sees them sorted by name, so
+    the class does not depend on the order you give them in.
+    ``conservative`` (Ramsey, Zhang and Spirtes 2006) and ``majority``
+    (Colombo and Maathuis 2014) decide from every separating subset and are
+    order-independent by construction.  The default is the first set on
+    measurement: on the validity study's 32 linear non-Gaussian random DAGs of
+    1,000 and 5,000 rows, 11 of 304 edges were oriented wrongly with it, 14
+    with ``majority`` and 19 with ``conservative``."""
     seed: int = 20261202
     """Seed of every random choice (subsamples, permutations, random features)."""
     require: str = "linear-non-gaussian"
@@ -298,6 +313,9 @@ class Policy:
     and switching."""
 
     def __post_init__(self) -> None:
+        if self.collider_rule not in COLLIDER_RULES:
+            raise InputError(f"policy collider_rule must be one of {', '.join(COLLIDER_RULES)}, "
+                             f"got {self.collider_rule!r}")
         if self.correction not in CORRECTIONS:
             raise InputError(f"policy correction must be one of {', '.join(CORRECTIONS)}, got {self.correction!r}")
         if self.require not in LEVELS:
