@@ -19,7 +19,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from preflight.evidence import Tagged, significant
+from preflight.evidence import Tagged, rejects, significant
 from preflight.fit import bspline_basis, ols, residualize, simple_slope, spline_df
 from preflight.policy import Policy
 from preflight.results import CheckResult
@@ -220,7 +220,7 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
         lr_value = float(lr.statistic)
         checks.append(Tagged(None, "pair", lr))
         linear_p = [t.result.p_value for t in checks if t.family == "linearity" and t.result.p_value is not None]
-        if linear_p and min(linear_p) < policy.alpha:
+        if linear_p and rejects(min(linear_p), policy.alpha):
             checks += additive_noise_checks(x, y, x_name, y_name, policy, seed, Z_for_y, Z_for_x)
         # Only a direction whose raw linearity tests reject can be judged
         # nonlinear, so only there is the spread of the spline residual needed.
@@ -228,7 +228,7 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
                                                  (yr, xr, f"{x_name} on {y_name}", "reverse")):
             role_p = [t.result.p_value for t in checks
                       if t.family == "linearity" and t.role == role and t.result.p_value is not None]
-            if role_p and min(role_p) < policy.alpha:
+            if role_p and rejects(min(role_p), policy.alpha):
                 checks += _spline_variance_checks(regressor, response, label, role, policy)
     return PairBattery(x=x_name, y=y_name, adjacent=adjacent, n=int(x.shape[0]),
                        conditioning=conditioning, checks=tuple(checks), likelihood_ratio=lr_value)

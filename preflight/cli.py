@@ -16,7 +16,7 @@ import click
 
 from preflight._version import __version__
 from preflight.errors import InputError
-from preflight.policy import LEVELS
+from preflight.policy import CORRECTIONS, LEVELS, Policy
 
 EXIT_PASS, EXIT_WEAKER, EXIT_INPUT, EXIT_INTERNAL = 0, 1, 2, 3
 
@@ -97,6 +97,10 @@ def _split(values: tuple[str, ...] | None) -> list[str] | None:
     for value in values:
         out += [v.strip() for v in value.split(",") if v.strip()]
     return out
+
+
+DEFAULTS = Policy()
+"""The defaults the help texts show: read from the policy, so they cannot drift from it."""
 
 
 def _settings(set_pairs: tuple[str, ...], **named) -> dict:
@@ -221,12 +225,15 @@ def _with(options):
 @click.option("--missing", type=click.Choice(["drop", "error"]), default="drop", show_default=True,
               help="Rows with missing values: drop and count them, or refuse the file.")
 @click.option("--graph", metavar="FILE", help="A hypothesised DAG: CSV with source,target or lines 'a -> b'.")
-@click.option("--require", type=click.Choice(LEVELS), help="Rung the gate asks for [default: linear-non-gaussian].")
+@click.option("--require", type=click.Choice(LEVELS), help=f"Rung the gate asks for [default: {DEFAULTS.require}].")
 @click.option("--fail-on", multiple=True, metavar="FLAG,...", help="Also fail the gate when any of these flags is raised.")
-@click.option("--alpha", type=float, help="Significance level after multiplicity correction [default: 0.05].")
-@click.option("--correction", type=click.Choice(["holm", "fdr_bh"]), help="Multiplicity correction [default: holm].")
-@click.option("--seed", type=int, help="Seed of every random choice; same data and seed give the same report.")
-@click.option("--min-rows", type=int, help="Fewest usable rows for any conclusion [default: 30].")
+@click.option("--alpha", type=float,
+              help=f"Significance level after multiplicity correction [default: {DEFAULTS.alpha:g}].")
+@click.option("--correction", type=click.Choice(CORRECTIONS),
+              help=f"Multiplicity correction [default: {DEFAULTS.correction}].")
+@click.option("--seed", type=int,
+              help=f"Seed of every random choice; same data and seed give the same report [default: {DEFAULTS.seed}].")
+@click.option("--min-rows", type=int, help=f"Fewest usable rows for any conclusion [default: {DEFAULTS.min_rows}].")
 @click.option("--rows-unordered", is_flag=True, default=None, help="Row order carries no meaning: skip the autocorrelation screen.")
 @click.option("--jobs", "-j", type=int, help="Worker processes for the pair battery; 0 or unset: every core available, more are capped to it.")
 @click.option("--policy", "policy_file", metavar="FILE", help="TOML file of policy settings (see `preflight policy`).")

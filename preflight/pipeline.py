@@ -146,7 +146,7 @@ def _whole_table_screens(X: np.ndarray, policy: Policy) -> tuple[list[CheckResul
     from preflight import structure
 
     checks = [structure.henze_zirkler(X, seed=policy.seed)]
-    ica = structure.fastica_gaussian_components(X, seed=policy.seed, alpha=policy.alpha)
+    ica = structure.fastica_gaussian_components(X, policy)
     checks += list(ica.checks)
     return checks, bool(ica.dependent)
 
@@ -281,11 +281,19 @@ def _jobs(policy: Policy, n_pairs: int) -> int:
     return max(1, min(wanted, n_pairs + 2))
 
 
+POOL_MIN_WORK = 200_000
+"""Rows x pairs below which the run stays in one process whatever ``jobs`` says.
+
+Not a policy key: it changes no result (reports do not depend on the
+number of processes), only whether starting worker processes, which costs
+about as much as the pair battery of a table this small, can pay off."""
+
+
 def _start_pool(X: np.ndarray, names, policy: Policy):
     """Worker processes for the run, or None when the table is too small to gain from them."""
     n, p = X.shape
     jobs = _jobs(policy, p * (p - 1) // 2)
-    if jobs <= 1 or n * p * (p - 1) // 2 < 200_000:
+    if jobs <= 1 or n * p * (p - 1) // 2 < POOL_MIN_WORK:
         return None
     import concurrent.futures as cf
     import multiprocessing as mp

@@ -132,6 +132,8 @@ BOUNDS: dict[str, Bounds] = {
     "hsic_features": Bounds(1, 256, high_why=_WORK),
     "hsic_permutations": Bounds(0, 10_000, high_why=_WORK),
     "varsortable_min_share": _SHARE,
+    "ica_stable_min_correlation": Bounds(0.0, 1.0, low_open=True),
+    "ica_dependence_min_effect_rows": _THRESHOLD,
     "plot_max_points": Bounds(1, 20_000, high_why=_WORK),
     "jobs": Bounds(0, low_why="0 means every core available"),
 }
@@ -296,6 +298,25 @@ class Policy:
     # --- structure
     varsortable_min_share: float = 0.9
     """Share of estimated edges along which marginal variance increases that raises ``varsortable``."""
+    ica_stable_min_correlation: float = 0.95
+    """|correlation| at which a FastICA component of one seeded start counts as found again by another.
+
+    The whole-table ICA screen runs eight seeded starts; unless every
+    component of the kept unmixing is found again (up to sign, scale and
+    order) in every other start, the components are not identified (too
+    little non-Gaussianity) and their dependence is not interpreted, so
+    ``dependent-components`` cannot be raised.  Lower accepts less
+    reproducible components as identified."""
+    ica_dependence_min_effect_rows: float = 30.0
+    """Materiality of dependence between ICA components: a normalised HSIC of at least this divided by the rows tested.
+
+    The estimated unmixing is only sqrt(n)-consistent, so even a true linear
+    non-Gaussian table leaves its components a small real dependence, which
+    HSIC detects on skewed sources: up to about 25 / n in simulations with 3
+    to 5 variables and 1,000 to 5,000 rows.  A component pair therefore
+    counts as dependent (``dependent-components``) only when its adjusted
+    p-value is below ``alpha`` and its normalised HSIC reaches this / m,
+    m the rows the test runs on (at most 5,000)."""
 
     # --- reports and speed
     plot_max_points: int = 2000

@@ -13,11 +13,24 @@ from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
 
-from preflight.policy import LEVELS, level_rank
+from preflight.policy import GLOBAL_FLAGS, LEVELS, PAIR_FLAGS, VARIABLE_FLAGS, level_rank
 
 SCOPES = ("global", "variable", "pair")
 EDGE_REACH = ("all", "touching", "none")
 KINDS = ("limit", "caution")
+
+PAIR_FINDINGS = ("adjacent", "not-adjacent", "lingam-oriented", "lingam-undetermined", "anm-oriented",
+                 "anm-undetermined", "orientation-conflict", "residuals-dependent-both-ways",
+                 "noise-estimates-dependent")
+"""Facts about a pair besides its flags (``battery.judge_pair``; ``orientation-conflict`` from the pipeline)."""
+GLOBAL_FINDINGS = ("any-nonlinear",)
+"""Facts about the table besides its flags: ``any-nonlinear`` when some adjacent pair is ``nonlinear``."""
+FACTS: dict[str, tuple[str, ...]] = {
+    "global": GLOBAL_FLAGS + GLOBAL_FINDINGS,
+    "variable": VARIABLE_FLAGS,
+    "pair": PAIR_FLAGS + PAIR_FINDINGS,
+}
+"""The facts a rule of each scope may condition on; any other name in ``when`` is refused when the table loads."""
 
 
 @dataclass(frozen=True)
@@ -83,6 +96,12 @@ def _parse_rule(raw: dict, position: int) -> Rule:
     for level in edge_rules_out:
         if level not in LEVELS or level == "none":
             raise ValueError(f"rule {raw['id']}: cannot rule out {level!r} for an edge")
+    when = tuple(raw["when"])
+    for fact in when:
+        name = fact[4:] if fact.startswith("not:") else fact
+        if name not in FACTS[scope]:
+            raise ValueError(f"rule {raw.get('id', position)}: unknown {scope} fact {name!r} in when; "
+                             f"known: {', '.join(FACTS[scope])}")
     edges = raw.get("edges", "touching" if scope != "global" else "all")
     if edges not in EDGE_REACH:
         raise ValueError(f"rule {raw['id']}: edges must be one of {EDGE_REACH}")
@@ -91,18 +110,23 @@ def _parse_rule(raw: dict, position: int) -> Rule:
         raise ValueError(f"rule {raw['id']}: kind must be one of {KINDS}")
     if kind == "caution" and (rules_out or edge_rules_out):
         raise ValueError(f"rule {raw['id']}: a caution rules nothing out")
-    return Rule(id=raw["id"], scope=scope, when=tuple(raw["when"]), rules_out=rules_out, edges=edges,
+    return Rule(id=raw["id"], scope=scope, when=when, rules_out=rules_out, edges=edges,
                 kind=kind, explain=" ".join(raw["explain"].split()), reference=raw.get("reference", ""),
                 edge_rules_out=edge_rules_out)
 
 
 @lru_cache(maxsize=1)
 def load_rules() -> tuple[Rule, ...]:
+    """The packaged table (``rules.toml``), validated."""
+    return parse_rules(resources.files("preflight").joinpath("rules.toml").read_text(encoding="utf-8"))
+
+
+def parse_rules(text: str) -> tuple[Rule, ...]:
+    """A rules table from its TOML text; ValueError naming the rule when a field or fact is unknown."""
     if sys.version_info >= (3, 11):
         import tomllib
     else:  # Python 3.10
         import tomli as tomllib
-    text = resources.files("preflight").joinpath("rules.toml").read_text(encoding="utf-8")
     table = tomllib.loads(text)
     rules = tuple(_parse_rule(raw, k) for k, raw in enumerate(table["rule"]))
     ids = [r.id for r in rules]

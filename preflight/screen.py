@@ -49,7 +49,7 @@ continuous.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -383,7 +383,7 @@ def screen_variables(X: np.ndarray, names: list[str], policy: Policy) -> list[Va
     stored in the check's ``p_adjusted`` before the ``autocorrelated`` rule
     is applied.  See the module docstring for every rule.
     """
-    from preflight.evidence import adjust_p_values
+    from preflight.evidence import rejects, with_adjusted
 
     X = np.asarray(X, dtype=np.float64)
     if X.ndim != 2 or len(names) != X.shape[1]:
@@ -424,14 +424,11 @@ def screen_variables(X: np.ndarray, names: list[str], policy: Policy) -> list[Va
     # --- autocorrelation: adjust across variables, then the rule
     where = [(j, k) for j, cs in enumerate(checks) for k, c in enumerate(cs)
              if c.name.startswith("ljung-box") and c.p_value is not None]
-    if where:
-        raw = np.array([checks[j][k].p_value for j, k in where])
-        adjusted = adjust_p_values(raw, policy.correction)
-        for (j, k), p_adj in zip(where, adjusted):
-            lb = replace(checks[j][k], p_adjusted=float(p_adj))
-            checks[j][k] = lb
-            if p_adj < policy.alpha and lb.effect is not None and lb.effect >= policy.autocorrelation_min_effect:
-                flags[j].append("autocorrelated")
+    for (j, k), lb in zip(where, with_adjusted([checks[j][k] for j, k in where], policy.correction)):
+        checks[j][k] = lb
+        if (rejects(lb.p_adjusted, policy.alpha) and lb.effect is not None
+                and lb.effect >= policy.autocorrelation_min_effect):
+            flags[j].append("autocorrelated")
 
     # --- collinearity among the non-constant columns
     varying = [j for j, c in enumerate(constant) if not c]

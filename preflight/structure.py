@@ -30,6 +30,7 @@ from preflight.checks._validate import as_matrix, unit_scaled
 from preflight.checks.confounding import spectral_confounding
 from preflight.errors import InputError
 from preflight.fit import coefficient_standard_errors, ols, residualize
+from preflight.policy import Policy
 from preflight.results import CheckResult
 
 __all__ = [
@@ -350,7 +351,7 @@ def prune_parents(X, order: Sequence[int], alpha: float = 0.05,
     keeps no parents from its untestable coefficients.  Returns a tuple
     indexed by column; each entry lists parent indices in ascending order.
     """
-    from preflight.evidence import adjust_p_values
+    from preflight.evidence import adjust_p_values, rejects
 
     if not 0.0 < alpha < 1.0:
         raise InputError(f"alpha must lie in (0, 1), got {alpha}")
@@ -365,7 +366,7 @@ def prune_parents(X, order: Sequence[int], alpha: float = 0.05,
         candidates, p_values = _per_equation_t_tests(X, active)
     parents: list[list[int]] = [[] for _ in range(p)]
     if p_values:
-        reject = adjust_p_values(p_values, correction) < alpha
+        reject = rejects(adjust_p_values(p_values, correction), alpha)
         for (child, parent), keep in zip(candidates, reject):
             if keep:
                 parents[child].append(parent)
@@ -488,88 +489,78 @@ class ComponentScreen:
     def dependent(self) -> bool:
         return bool(self.dependent_pairs)
 
-    @property
-    def flags(self) -> tuple[str, ...]:
-        out = []
-        if self.n_gaussian >= 2:
-            out.append("multiple-gaussian-components")
-        if self.dependent:
-            out.append("dependent-components")
-        return tuple(out)
 
-
-STABLE_COMPONENT_CORRELATION = 0.95
-"""Components of two FastICA starts match when their |correlation| reaches this."""
 
 ICA_FIT_MAX_N = 20000
-"""Rows FastICA is fitted on (a seeded subsample above); the unmixing is then applied to every row."""
+"""Rows FastICA is fitted on (a seeded subsample above); the unmixing is then applied to every row.
+
+Not a policy key: a cost cap, not a threshold.  The unmixing of 20,000 rows
+is estimated to within sampling error far below what the component tests
+resolve, and every row is then transformed and tested."""
 
 COMPONENT_DEPENDENCE_MAX_N = 5000
-"""Rows on which the pairs of ICA components are tested for dependence (seeded subsample above)."""
+"""Rows on which the pairs of ICA components are tested for dependence (seeded subsample above).
 
-DEPENDENCE_EFFECT_ROWS = 30.0
-"""Default materiality of component dependence: normalised HSIC of at least this / n.
-
-See fastica_gaussian_components.
-"""
+Not a policy key: a cost cap (k components make k (k - 1) / 2 pairs).  The
+materiality floor scales with the rows tested
+(``Policy.ica_dependence_min_effect_rows`` / m), so the verdict does not
+hinge on it; ``hsic_max_n`` lowers it further when smaller."""
 
 
 def _pair_seed(seed: int, a: int, b: int) -> int:
     return int(np.random.SeedSequence([seed & 0xFFFFFFFF, a & 0xFFFFFFFF, b & 0xFFFFFFFF]).generate_state(1)[0])
 
 
-def _same_components(S: np.ndarray, others: list[np.ndarray]) -> bool:
-    """Whether every other unmixing recovers each component of S up to sign, scale and order."""
+def _same_components(S: np.ndarray, others: list[np.ndarray], min_correlation: float = 0.95) -> bool:
+    """Whether every other unmixing recovers each component of S up to sign, scale and order.
+
+    A component is recovered when some component of the other unmixing has
+    |correlation| of at least ``min_correlation`` with it
+    (``Policy.ica_stable_min_correlation``).
+    """
     Zs = _standardise_columns(S)[0]
     for other in others:
         Zo = _standardise_columns(other)[0]
         matches = np.abs(Zs.T @ Zo / Zs.shape[0]).max(axis=1)
-        if matches.min() < STABLE_COMPONENT_CORRELATION:
+        if matches.min() < min_correlation:
             return False
     return True
 
 
 def fastica_gaussian_components(
     X,
-    seed: int = 0,
-    alpha: float = 0.05,
-    correction: str = "holm",
-    min_abs_skew: float = 0.1,
-    min_abs_excess_kurtosis: float = 0.2,
-    normality_max_n: int = 5000,
-    hsic_exact_max_n: int = 2000,
-    hsic_max_n: int = 20000,
-    hsic_features: int = 40,
-    hsic_permutations: int = 0,
-    min_dependence_effect: float | None = None,
+    policy: Policy | None = None,
+    *,
     restarts: int = 8,
     max_iter: int = 1000,
-    tol: float = 1e-4,
-) -> ComponentScreen:
+    tol: float = 1e-4) -> ComponentScreen:
     """FastICA cross-check of the noise shape and of hidden common causes.
 
     The non-constant columns are standardised and unmixed with
     ``sklearn.decomposition.FastICA`` (``whiten="unit-variance"``, as many
     components as the covariance has rank; fitted on at most
     ``ICA_FIT_MAX_N`` rows), from ``restarts`` seeded
-    starts (the first with ``random_state=seed``); the unmixing with the
+    starts (the first with ``random_state=policy.seed``); the unmixing with the
     largest summed log-cosh negentropy is kept.  When the starts disagree
     (some component of the kept unmixing has |correlation| below
-    ``STABLE_COMPONENT_CORRELATION`` with every component of another start)
+    ``policy.ica_stable_min_correlation`` with every component of another start)
     the components are not identified, which happens when the data are
     close to Gaussian; the note says so and no pair is called dependent.
 
     1. Each component gets the normality battery
-       (:func:`preflight.checks.normality.normality_checks`); p-values are
-       adjusted across all components' tests together; a component is
+       (:func:`preflight.checks.normality.normality_checks`, Shapiro-Wilk on
+       at most ``policy.shapiro_max_n`` values); p-values are adjusted with
+       ``policy.correction`` across all components' tests together; a component is
        Gaussian-like unless :func:`~preflight.checks.normality.is_nongaussian`
-       declares a material departure.  Null hypothesis per test: the
+       declares a material departure at ``policy.alpha`` with the shape
+       floors ``policy.nongaussian_min_abs_skew`` and
+       ``policy.nongaussian_min_abs_excess_kurtosis``.  Null hypothesis per test: the
        component is normal.  ICA cannot unmix more than one Gaussian source
        (Comon 1994), so two or more Gaussian-like components mean the
        linear non-Gaussian model is not identified.
     2. Every pair of components gets HSIC
-       (:func:`preflight.checks.independence.hsic`), adjusted within that
-       family.  Null hypothesis: the two components are independent.  A
+       (:func:`preflight.checks.independence.hsic` under the policy's
+       ``hsic_*`` settings), adjusted within that family.  Null hypothesis: the two components are independent.  A
        hidden common cause adds a source without adding an observed
        variable; the square unmixing then cannot recover independent
        components (Hoyer et al. 2008), so significant dependence points to
@@ -580,15 +571,15 @@ def fastica_gaussian_components(
        25 / n in our simulations, 3-5 variables, n = 1000-5000).  A pair
        therefore counts as dependent only when its adjusted p-value is below
        ``alpha`` AND its normalised HSIC is at least
-       ``min_dependence_effect``, by default ``DEPENDENCE_EFFECT_ROWS / m``
+       ``policy.ica_dependence_min_effect_rows / m``
        with m the rows HSIC runs on: at most ``COMPONENT_DEPENDENCE_MAX_N``
        (a seeded subsample shared by all pairs; k components make
        k (k - 1) / 2 pairs, so this screen would otherwise dominate the run
        time of a wide table).
 
-    The ``min_abs_*`` defaults are Policy.nongaussian_min_abs_skew and
-    Policy.nongaussian_min_abs_excess_kurtosis; the ``hsic_*`` ones mirror
-    the policy's HSIC keys.  Reference: Hyvärinen & Oja (2000) for FastICA.
+    ``policy`` defaults to ``Policy()``; ``restarts``, ``max_iter`` and
+    ``tol`` control the optimiser only.  Reference: Hyvärinen & Oja (2000)
+    for FastICA.
     """
     import warnings
 
@@ -597,10 +588,10 @@ def fastica_gaussian_components(
 
     from preflight.checks.independence import hsic_pairs
     from preflight.checks.normality import is_nongaussian, normality_checks
-    from preflight.evidence import adjust_p_values
+    from preflight.evidence import rejects, with_adjusted
 
-    if not 0.0 < alpha < 1.0:
-        raise InputError(f"alpha must lie in (0, 1), got {alpha}")
+    policy = Policy() if policy is None else policy
+    seed, alpha, correction = policy.seed, policy.alpha, policy.correction
     X = as_matrix(X, name="X", min_n=8)
     n = X.shape[0]
     Z, degenerate = _standardise_columns(X)
@@ -634,7 +625,7 @@ def fastica_gaussian_components(
     _, best_run, converged, S, best_ica = max(runs, key=lambda r: (r[0], -r[1]))
     if not converged:
         notes.append(f"FastICA did not converge in {max_iter} iterations (seed {seed})")
-    stable = _same_components(S, [r[3] for r in runs if r[1] != best_run])
+    stable = _same_components(S, [r[3] for r in runs if r[1] != best_run], policy.ica_stable_min_correlation)
     if Z_fit is not Z:
         S = best_ica.transform(Z)
     if not stable:
@@ -643,37 +634,29 @@ def fastica_gaussian_components(
     k = S.shape[1]
 
     # --- normality of each component, one family across all components
-    normality = [list(normality_checks(S[:, c], max_n=normality_max_n, seed=_pair_seed(seed, c, c)))
+    normality = [normality_checks(S[:, c], max_n=policy.shapiro_max_n, seed=_pair_seed(seed, c, c))
                  for c in range(k)]
-    where = [(c, t) for c in range(k) for t, r in enumerate(normality[c])
-             if r.p_value is not None and np.isfinite(r.p_value)]
-    if where:
-        adjusted = adjust_p_values([cast(float, normality[c][t].p_value) for c, t in where], correction)
-        for (c, t), value in zip(where, adjusted):
-            normality[c][t] = _with_adjusted(normality[c][t], float(value))
-    named = [tuple(r.with_name(f"{r.name} (ica component {c + 1})") for r in normality[c]) for c in range(k)]
+    adjusted = iter(with_adjusted([r for tests in normality for r in tests], correction))
+    named = [tuple(next(adjusted).with_name(f"{r.name} (ica component {c + 1})") for r in normality[c])
+             for c in range(k)]
     gaussian_like = tuple(c for c in range(k) if not is_nongaussian(
-        named[c], alpha, min_abs_skew=min_abs_skew, min_abs_excess_kurtosis=min_abs_excess_kurtosis,
-        p_key="p_adjusted"))
+        named[c], alpha, min_abs_skew=policy.nongaussian_min_abs_skew,
+        min_abs_excess_kurtosis=policy.nongaussian_min_abs_excess_kurtosis, p_key="p_adjusted"))
 
     # --- independence of every pair of components
     pairs = tuple((a, b) for a in range(k) for b in range(a + 1, k))
     dependence = [result.with_name(f"hsic (ica components {a + 1}, {b + 1})") for (a, b), result in zip(
         pairs, hsic_pairs(S, pairs, [_pair_seed(seed, a + 1, b + 1) for a, b in pairs],
-                          exact_max_n=hsic_exact_max_n, max_n=min(hsic_max_n, COMPONENT_DEPENDENCE_MAX_N),
-                          n_features=hsic_features,
-                          permutations=hsic_permutations, seed=_pair_seed(seed, 0, 0)))]
-    tested = [m for m, r in enumerate(dependence) if r.p_value is not None and np.isfinite(r.p_value)]
-    dependent_pairs: list[tuple[int, int]] = []
-    rows_tested = min(n, hsic_max_n, COMPONENT_DEPENDENCE_MAX_N)
-    material = DEPENDENCE_EFFECT_ROWS / rows_tested if min_dependence_effect is None else float(min_dependence_effect)
-    if tested:
-        adjusted = adjust_p_values([cast(float, dependence[m].p_value) for m in tested], correction)
-        for m, value in zip(tested, adjusted):
-            dependence[m] = _with_adjusted(dependence[m], float(value))
-            effect = dependence[m].effect
-            if stable and value < alpha and effect is not None and effect >= material:
-                dependent_pairs.append(pairs[m])
+                          exact_max_n=policy.hsic_exact_max_n,
+                          max_n=min(policy.hsic_max_n, COMPONENT_DEPENDENCE_MAX_N),
+                          n_features=policy.hsic_features,
+                          permutations=policy.hsic_permutations, seed=_pair_seed(seed, 0, 0)))]
+    dependence = with_adjusted(dependence, correction)
+    tested = [m for m, r in enumerate(dependence) if r.p_adjusted is not None]
+    rows_tested = min(n, policy.hsic_max_n, COMPONENT_DEPENDENCE_MAX_N)
+    material = policy.ica_dependence_min_effect_rows / rows_tested
+    dependent_pairs = [pairs[m] for m in tested if stable and rejects(dependence[m].p_adjusted, alpha)
+                       and dependence[m].effect is not None and dependence[m].effect >= material]
 
     checks = [CheckResult(
         name="gaussian-like ica components", statistic=float(len(gaussian_like)), p_value=None,
@@ -703,12 +686,6 @@ def fastica_gaussian_components(
         normality=tuple(named), pairs=pairs, dependence=tuple(dependence), checks=tuple(checks),
         converged=converged, note="; ".join(notes), stable=stable,
     )
-
-
-def _with_adjusted(result: CheckResult, p_adjusted: float) -> CheckResult:
-    from dataclasses import replace
-
-    return replace(result, p_adjusted=p_adjusted)
 
 
 # ------------------------------------------------------------------ multivariate normality

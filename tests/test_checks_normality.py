@@ -358,8 +358,8 @@ def test_is_nongaussian_is_monotone_in_alpha_and_floors(p_values, skew, kurt, al
     if nm.is_nongaussian(results, alpha / 2) or nm.is_nongaussian(
             results, alpha, min_abs_skew=0.1 * floor_scale, min_abs_excess_kurtosis=0.2 * floor_scale):
         assert verdict
-    # The rule is exactly its definition.
-    expected = min(p_values) <= alpha and (abs(skew) >= 0.1 or abs(kurt) >= 0.2)
+    # The rule is exactly its definition, with the one significance rule (p strictly below alpha).
+    expected = min(p_values) < alpha and (abs(skew) >= 0.1 or abs(kurt) >= 0.2)
     assert verdict == expected
 
 

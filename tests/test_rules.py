@@ -30,3 +30,33 @@ def test_shipped_table_leaves_a_contested_edge_undetermined():
 def test_bad_edge_rules_are_refused(fields):
     with pytest.raises(ValueError):
         _rule(**fields)
+
+
+def _shipped_text() -> str:
+    from importlib import resources
+
+    return resources.files("preflight").joinpath("rules.toml").read_text(encoding="utf-8")
+
+
+@pytest.mark.parametrize("right, wrong", [
+    ('when = ["adjacent", "gaussian-noise"]', 'when = ["adjacent", "gausian-noise"]'),
+    ('"not:confounding-suspected"]', '"not:confounding-suspect"]'),
+    ('when = ["outliers"]', 'when = ["adjacent"]'),
+])
+def test_a_misspelt_or_misplaced_fact_is_refused_when_the_table_loads(right, wrong):
+    from preflight.rules import parse_rules
+
+    text = _shipped_text()
+    assert text.count(right) == 1
+    assert len(parse_rules(text)) == len(load_rules())
+    name = wrong.split('"')[-2].removeprefix("not:")
+    with pytest.raises(ValueError, match=f"unknown (pair|variable) fact '{name}'"):
+        parse_rules(text.replace(right, wrong))
+
+
+def test_every_flag_is_a_fact_of_its_scope():
+    from preflight.policy import GLOBAL_FLAGS, PAIR_FLAGS, VARIABLE_FLAGS
+    from preflight.rules import FACTS
+
+    for scope, flags in (("global", GLOBAL_FLAGS), ("variable", VARIABLE_FLAGS), ("pair", PAIR_FLAGS)):
+        assert set(flags) <= set(FACTS[scope])

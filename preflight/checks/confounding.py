@@ -19,7 +19,11 @@ from preflight.errors import InputError
 from preflight.results import CheckResult
 
 SPECTRAL_MIN_PREDICTORS = 5
-"""The estimate rests on concentration of measure in the predictor dimension; below this it is noise."""
+"""The estimate rests on concentration of measure in the predictor dimension; below this it is noise.
+
+Not a policy key: it is a condition of the method (Janzing and Schölkopf
+2018 argue from high-dimensional predictors), not a trade-off a user
+could tune, and the check is descriptive: no flag or rule reads it."""
 
 _BETA_GRID = np.linspace(0.0, 1.0, 201)
 

@@ -324,7 +324,8 @@ def is_nongaussian(
     """Whether a set of normality results declares a material departure from normality.
 
     A departure is declared when at least one test among ``results`` (a
-    result with a raw p-value) has its ``p_key`` value at or below ``alpha``
+    result with a raw p-value) has its ``p_key`` value below ``alpha``
+    (:func:`preflight.evidence.rejects`, the one significance rule)
     AND the shape is material: |skewness| >= ``min_abs_skew`` or
     |excess kurtosis| >= ``min_abs_excess_kurtosis``.
 
@@ -343,6 +344,8 @@ def is_nongaussian(
     verdict.  The thresholds' defaults are Policy.nongaussian_min_abs_skew
     and Policy.nongaussian_min_abs_excess_kurtosis.
     """
+    from preflight.evidence import rejects as significant_p
+
     if p_key not in ("p_adjusted", "p_value"):
         raise ValueError(f"p_key must be 'p_adjusted' or 'p_value', got {p_key!r}")
     rejects = False
@@ -358,7 +361,7 @@ def is_nongaussian(
         if p is None:
             raise ValueError(f"{result.name} has a p-value but no {p_key}; run the multiplicity correction first "
                              "or pass p_key='p_value'")
-        if p <= alpha:
+        if significant_p(p, alpha):
             rejects = True
     if skewness is None and excess_kurtosis is None:
         raise ValueError("no result carries a skewness or excess kurtosis effect (jarque_bera, dagostino_pearson)")

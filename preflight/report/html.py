@@ -321,7 +321,7 @@ def _plots(data: dict[str, Any], samples: dict[str, Any] | None, max_edge_plots:
         return "".join(parts)
     shown, total = int(len(samples["values"])), int(samples.get("n") or len(samples["values"]))
     parts.append(f'<p class="notice">Plots show {shown:,} of {total:,} rows (seeded subsample).</p>')
-    alpha = float(data["settings"].get("alpha", 0.05))
+    alpha = float(data["settings"]["alpha"])
     edges = [p for p in data["pairs"] if p["adjacent"]]
 
     parts.append("<h3>Residual against regressor, both directions</h3>")
@@ -349,7 +349,7 @@ def _plots(data: dict[str, Any], samples: dict[str, Any] | None, max_edge_plots:
                      "the spline F-test compared it with. A material gap between them is what the "
                      "<span class=\"flag\">nonlinear</span> flag reports.</p>")
         parts.append('<div class="plotgrid wide">')
-        max_df = int(data["settings"].get("spline_max_df", 10))
+        max_df = int(data["settings"]["spline_max_df"])
         for k, pair in enumerate(nonlinear[:max_edge_plots]):
             label = f"Straight line and spline fit for {pair['x']} and {pair['y']}"
             svg = plots.linear_vs_spline_svg(pair, samples, max_df=max_df, key=f"spline{k}")

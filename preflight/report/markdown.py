@@ -405,8 +405,8 @@ def methods_used(report: dict[str, Any]) -> MethodsUsed:
     if structure.get("order") or any(p["adjacent"] for p in report["pairs"]):
         structural.append(("Edges compelled in the Markov equivalence class (CPDAG) were found from the v-structures "
                            "with Meek's orientation rules (Meek 1995).", ("meek1995",)))
-    correction = report["settings"].get("correction")
-    alpha = report["settings"].get("alpha")
+    correction = report["settings"]["correction"]
+    alpha = report["settings"]["alpha"]
     if correction == "fdr_bh":
         structural.append((f"p-values were adjusted within each family of tests across the whole table with the "
                            f"Benjamini-Hochberg procedure (Benjamini and Hochberg 1995); decisions use adjusted "

@@ -22,6 +22,8 @@ from typing import Any
 
 import numpy as np
 
+from preflight.evidence import rejects
+
 # Colours are never the only carrier of meaning: every styled element also
 # has a line style, a marker or a text label.
 INK = "#1b1b1b"
@@ -236,7 +238,7 @@ def residual_pair_svg(pair: dict[str, Any], samples: dict[str, Any], *, alpha: f
             if p is None:
                 verdict = "no HSIC p-value"
             else:
-                verdict = "looks independent" if p >= alpha else "dependent"
+                verdict = "dependent" if rejects(p, alpha) else "looks independent"
             chosen = "  [reported direction]" if pair.get("orientation") == orientation else ""
             shown_p = _p_text(p)
             p_shown = shown_p if shown_p.startswith("<") else "= " + shown_p
