@@ -174,13 +174,20 @@ def _print_warnings(report, quiet: bool) -> None:
         click.echo(f"preflight: warning: {visible(warning)}", err=True)
 
 
-def _print_summary(report, quiet: bool, no_color: bool, targets=()) -> None:
-    """The terminal summary; on stderr when a report itself goes to standard output."""
-    from preflight.report.text import render_text
+def _echo_summary(text_of_style, no_color: bool, targets=()) -> None:
+    """Print a terminal summary, on stderr (and without colour) when a report itself goes to standard output.
 
+    ``text_of_style`` renders the summary given a styling function or None.
+    """
     to_stderr = any(t.kind == "stdout" for t in targets)
     style = click.style if _use_colour(no_color) and not to_stderr else None
-    click.echo(render_text(report.data, style=style, quiet=quiet), nl=False, err=to_stderr)
+    click.echo(text_of_style(style), nl=False, err=to_stderr)
+
+
+def _print_summary(report, quiet: bool, no_color: bool, targets=()) -> None:
+    from preflight.report.text import render_text
+
+    _echo_summary(lambda style: render_text(report.data, style=style, quiet=quiet), no_color, targets)
 
 
 def _graph_path_checked(ctx, param, value):
@@ -264,8 +271,9 @@ def check_command(data, sep, columns, exclude, missing, graph, require, fail_on,
     _print_warnings(report, quiet)
     from preflight.pipeline import jobs_note
 
-    if not quiet and jobs_note(policy):  # after the run, so a refused input still gets one line
-        click.echo(f"preflight: note: {jobs_note(policy)}", err=True)
+    note = None if quiet else jobs_note(policy)
+    if note:  # after the run, so a refused input still gets one line
+        click.echo(f"preflight: note: {note}", err=True)
     _print_summary(report, quiet, no_color, targets)
     sys.exit(EXIT_PASS if report.passed else EXIT_WEAKER)
 
@@ -354,9 +362,7 @@ def compare_command(old_json, new_json, require, markdown_path, quiet, no_color)
     targets = plan_outputs([("--markdown", markdown_path)], [old_json, new_json])
     comparison = compare_reports(read_report(old_json), read_report(new_json), require=require)
     _write_all([(target, render_comparison_markdown(comparison)) for target in targets])
-    to_stderr = any(t.kind == "stdout" for t in targets)
-    style = click.style if _use_colour(no_color) and not to_stderr else None
-    click.echo(render_comparison_text(comparison, style=style, quiet=quiet), nl=False, err=to_stderr)
+    _echo_summary(lambda style: render_comparison_text(comparison, style=style, quiet=quiet), no_color, targets)
     sys.exit(EXIT_PASS if comparison.passed else EXIT_WEAKER)
 
 

@@ -233,9 +233,7 @@ def _as_numbers(column, name: str):
     limit = max(1, int(STRAY_MAX_SHARE * present))
     if stray > limit or stray >= present:
         return None, stray, example
-    values = values.copy()
-    values[stray_mask] = np.nan
-    return values, stray, example
+    return values, stray, example  # stray cells are already NaN: to_numeric coerced them
 
 
 def _cell_value(value, pd):

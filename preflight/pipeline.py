@@ -173,8 +173,8 @@ def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str
         return adjacency, cpdag, "hypothesised graph from " + os.path.basename(graph)
     skeleton = graphs.pc_stable_skeleton(X, alpha=policy.alpha)
     adjacency = np.array(skeleton.adjacency, dtype=bool)
-    # Colliders by the conservative rule over every separating set, not the
-    # first one found, which depends on the column order.
+    # The first separating set depends on the column order; the columns
+    # arrive sorted by name, so the class does not (see Policy.collider_rule).
     if policy.collider_rule == "first-separating-set":
         cpdag = graphs.cpdag_from_skeleton(adjacency, dict(skeleton.separating_sets))
     else:
