@@ -71,18 +71,36 @@ def _hsic_kwargs(policy: Policy, seed: int) -> dict:
     )
 
 
+@dataclass(frozen=True)
+class SharedAssociation:
+    """Association checks of one pair computed beforehand with many pairs at once (unconditioned).
+
+    Any of them may be None: it is then computed with the pair's battery.
+    """
+
+    pearson: CheckResult | None = None
+    spearman: CheckResult | None = None
+    hsic: CheckResult | None = None
+
+    @property
+    def complete(self) -> bool:
+        """All three are ready, so the pair needs no more work when it is not adjacent."""
+        return self.pearson is not None and self.spearman is not None and self.hsic is not None
+
+
 def association_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, n_conditioning: int,
-                       policy: Policy, seed: int, ready: tuple | None = None) -> list[Tagged]:
+                       policy: Policy, seed: int, ready: SharedAssociation | None = None) -> list[Tagged]:
     """Pearson, Spearman and HSIC between x and y.
 
-    ``ready`` holds (pearson, spearman, hsic) results computed beforehand for
-    the same pair (any may be None, which is then computed here).
+    ``ready`` holds results computed beforehand for the same pair (any may
+    be None, which is then computed here).
     """
     from preflight.checks.association import pearson_fisher_z, spearman
     from preflight.checks.independence import hsic
 
     label = f"({x_name}, {y_name})"
-    pearson_result, spearman_result, hsic_result = ready if ready is not None else (None, None, None)
+    ready = ready if ready is not None else SharedAssociation()
+    pearson_result, spearman_result, hsic_result = ready.pearson, ready.spearman, ready.hsic
     if pearson_result is None:
         pearson_result = pearson_fisher_z(x, y, n_conditioning=n_conditioning)
     if spearman_result is None:
@@ -170,20 +188,19 @@ def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, label: 
 
 
 def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str,
-                          policy: Policy, seed: int, Z_for_y: np.ndarray | None = None,
-                          Z_for_x: np.ndarray | None = None) -> list[Tagged]:
+                          policy: Policy, seed: int, Z: np.ndarray | None = None) -> list[Tagged]:
     """RESIT-style check (Peters et al. 2014): spline residual against regressor, both ways.
 
     ``x`` and ``y`` are the raw columns: partialling a conditioning set out
-    linearly would bend a nonlinear mechanism.  Instead each response's other
-    parents (``Z_for_y``, ``Z_for_x``) enter the spline regression linearly
-    (a partially linear model).
+    linearly would bend a nonlinear mechanism.  Instead the conditioning
+    columns ``Z`` (the observed common causes of the pair) enter the spline
+    regression of each response linearly (a partially linear model).
     """
     from preflight.checks.independence import hsic
 
     out = []
-    for regressor, response, Z, label, role in ((x, y, Z_for_y, f"{y_name} on {x_name}", "forward"),
-                                                 (y, x, Z_for_x, f"{x_name} on {y_name}", "reverse")):
+    for regressor, response, label, role in ((x, y, f"{y_name} on {x_name}", "forward"),
+                                              (y, x, f"{x_name} on {y_name}", "reverse")):
         residual = _spline_residual(regressor, response, policy.spline_max_df, Z)
         result = hsic(regressor, residual, **_hsic_kwargs(policy, seed))
         out.append(Tagged("additive-noise independence", role,
@@ -195,15 +212,13 @@ def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str
 
 def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: np.ndarray | None,
                      conditioning: tuple[str, ...], adjacent: bool, policy: Policy,
-                     Z_for_y: np.ndarray | None = None, Z_for_x: np.ndarray | None = None,
-                     association: tuple | None = None) -> PairBattery:
+                     association: SharedAssociation | None = None) -> PairBattery:
     """Run the battery on one pair.
 
-    ``Z`` holds the conditioning columns (or None) partialled out of both
-    variables; ``Z_for_y`` and ``Z_for_x`` are the other parents of each
-    variable, used by the additive-noise check.  ``association`` holds
-    (pearson, spearman, hsic) of x and y computed beforehand for many pairs
-    at once (only used when ``Z`` is empty; None entries are computed here).
+    ``Z`` holds the conditioning columns (or None), partialled out of both
+    variables and entering the additive-noise check's spline regressions
+    linearly.  ``association`` holds checks of x and y computed beforehand
+    for many pairs at once (only used when ``Z`` is empty).
     """
     from preflight.checks.direction import pairwise_likelihood_ratio
 
@@ -221,7 +236,7 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
         checks.append(Tagged(None, "pair", lr))
         linear_p = [t.result.p_value for t in checks if t.family == "linearity" and t.result.p_value is not None]
         if linear_p and rejects(min(linear_p), policy.alpha):
-            checks += additive_noise_checks(x, y, x_name, y_name, policy, seed, Z_for_y, Z_for_x)
+            checks += additive_noise_checks(x, y, x_name, y_name, policy, seed, Z)
         # Only a direction whose raw linearity tests reject can be judged
         # nonlinear, so only there is the spread of the spline residual needed.
         for regressor, response, label, role in ((xr, yr, f"{y_name} on {x_name}", "forward"),
@@ -286,33 +301,42 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     """Turn one pair's adjusted checks into flags, facts and an orientation.
 
     ``noise_dependence`` is the adjusted HSIC between the two variables'
-    structural noise estimates, if the structural view computed it.
+    structural noise estimates, if the structural view computed it (see
+    :func:`with_noise_dependence`).
     """
-    alpha = policy.alpha
-    association = [t.result for t in checks if t.family == "association"]
-    associated = any(significant(r, alpha) for r in association)
-    flags: list[str] = []
-    facts: set[str] = set()
-    judged: list[CheckResult] = []
+    associated = any(significant(t.result, policy.alpha) for t in checks if t.family == "association")
+    flags = () if associated else ("no-association",)
+    if battery.adjacent:
+        findings = _judge_adjacent(battery, checks, policy, flags)
+    else:
+        findings = PairFindings(battery.x, battery.y, False, "undetermined", "undetermined", flags,
+                                frozenset({"not-adjacent", *flags}), tuple(t.result for t in checks),
+                                battery.conditioning)
+    return findings if noise_dependence is None else with_noise_dependence(findings, noise_dependence, policy)
 
-    if not associated:
-        flags.append("no-association")
 
-    if not battery.adjacent:
-        facts.add("not-adjacent")
-        for t in checks:
-            judged.append(t.result)
-        if noise_dependence is not None:
-            judged.append(replace(noise_dependence, passed=not significant(noise_dependence, alpha)))
-        return PairFindings(battery.x, battery.y, False, "undetermined", "undetermined",
-                            tuple(flags), frozenset(facts | set(flags)), tuple(judged), battery.conditioning)
+def with_noise_dependence(findings: PairFindings, noise_dependence: CheckResult, policy: Policy) -> PairFindings:
+    """The findings with the adjusted HSIC between the pair's structural noise estimates judged and added.
 
-    facts.add("adjacent")
-    indep = {role: not any(significant(r, alpha) for r in _of(checks, "residual independence", role))
-             for role in ("forward", "reverse")}
-    gaussian = {role: not _nongaussian(_of(checks, "noise normality", role), policy) for role in ("forward", "reverse")}
+    Dependent structural noise estimates count as a confounding signal only
+    where the pair's own battery could not orient the edge: the estimates
+    rest on the global order, which one nonlinear or confounded corner of
+    the table can scramble, while a clean one-way independence here is
+    direct evidence against a hidden common cause of this pair.
+    """
+    dependent = significant(noise_dependence, policy.alpha)
+    judged = findings.checks + (replace(noise_dependence, passed=not dependent),)
+    if (findings.adjacent and dependent and findings.lingam_orientation == "undetermined"
+            and not {"nonlinear", "gaussian-noise", "confounding-suspected"} & set(findings.flags)):
+        return replace(findings, flags=findings.flags + ("confounding-suspected",), checks=judged,
+                       facts=findings.facts | {"confounding-suspected", "noise-estimates-dependent"})
+    return replace(findings, checks=judged)
+
+
+def _orientations(battery: PairBattery, checks: list[Tagged], gaussian: dict[str, bool],
+                  indep: dict[str, bool], alpha: float) -> tuple[str, str]:
+    """(linear non-Gaussian orientation, additive-noise orientation), each ``x->y``, ``y->x`` or undetermined."""
     lr = battery.likelihood_ratio or 0.0
-
     lingam = "undetermined"
     if not (gaussian["forward"] and gaussian["reverse"]):
         if indep["forward"] and not indep["reverse"] and lr > 0:
@@ -327,6 +351,18 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
             anm = "x->y"
         elif anm_indep["reverse"] and not anm_indep["forward"]:
             anm = "y->x"
+    return lingam, anm
+
+
+def _judge_adjacent(battery: PairBattery, checks: list[Tagged], policy: Policy,
+                    flags_so_far: tuple[str, ...]) -> PairFindings:
+    alpha = policy.alpha
+    flags = list(flags_so_far)
+    facts = {"adjacent"}
+    indep = {role: not any(significant(r, alpha) for r in _of(checks, "residual independence", role))
+             for role in ("forward", "reverse")}
+    gaussian = {role: not _nongaussian(_of(checks, "noise normality", role), policy) for role in ("forward", "reverse")}
+    lingam, anm = _orientations(battery, checks, gaussian, indep, alpha)
 
     # The favoured direction is the one whose residual the evidence says is
     # the noise: the orientation if there is one, else the one that looks
@@ -350,7 +386,8 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     # regression through a saturating curve has a spread that changes by
     # construction, so the straight-line favourite is no guide here.
     spread_role = favoured
-    if nonlinear and orientation_found == "undetermined" and anm_checks["forward"] and anm_checks["reverse"]:
+    if (nonlinear and orientation_found == "undetermined" and _of(checks, "additive-noise independence", "forward")
+            and _of(checks, "additive-noise independence", "reverse")):
         spread_role = _less_dependent(checks, "additive-noise independence", battery)
     heteroscedastic = _material_departure(_spread(checks, spread_role, spline=nonlinear), alpha,
                                           policy.heteroscedastic_min_r2)
@@ -369,21 +406,24 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
     if dependent["forward"] and dependent["reverse"] and not nonlinear and "gaussian-noise" not in flags:
         flags.append("confounding-suspected")
         facts.add("residuals-dependent-both-ways")
-
-    # Dependent structural noise estimates count as a confounding signal only
-    # where the pair's own battery could not orient the edge: the estimates
-    # rest on the global order, which one nonlinear or confounded corner of
-    # the table can scramble, while a clean one-way independence here is
-    # direct evidence against a hidden common cause of this pair.
-    if (noise_dependence is not None and significant(noise_dependence, alpha) and lingam == "undetermined"
-            and not nonlinear and "gaussian-noise" not in flags and "confounding-suspected" not in flags):
-        flags.append("confounding-suspected")
-        facts.add("noise-estimates-dependent")
-
     facts.add("lingam-oriented" if lingam != "undetermined" else "lingam-undetermined")
     facts.add("anm-oriented" if anm != "undetermined" else "anm-undetermined")
+    judged = _judged_checks(checks, policy, favoured, spread_role, nonlinear)
+    return PairFindings(battery.x, battery.y, True, lingam, anm, tuple(flags),
+                        frozenset(facts | set(flags)), judged, battery.conditioning)
 
+
+def _judged_checks(checks: list[Tagged], policy: Policy, favoured: str, spread_role: str,
+                   nonlinear: bool) -> tuple[CheckResult, ...]:
+    """Each check of an adjacent pair with ``passed`` set where it guards an assumption, None elsewhere.
+
+    Only the favoured direction guards (the spread on the spline residual:
+    the direction ``spread_role``); of the two spread checks, the one on the
+    residual that matches the mechanism (straight line or spline) decides.
+    """
+    alpha = policy.alpha
     guard_families = {"linearity", "variance", "residual independence", "additive-noise independence"}
+    judged = []
     for t in checks:
         r = t.result
         if t.family == "noise normality":
@@ -412,8 +452,4 @@ def judge_pair(battery: PairBattery, checks: list[Tagged], policy: Policy,
         else:
             passed = None
         judged.append(replace(r, passed=passed))
-    if noise_dependence is not None:
-        judged.append(replace(noise_dependence, passed=not significant(noise_dependence, alpha)))
-
-    return PairFindings(battery.x, battery.y, True, lingam, anm, tuple(flags),
-                        frozenset(facts | set(flags)), tuple(judged), battery.conditioning)
+    return tuple(judged)

@@ -17,9 +17,9 @@ independent when p >= alpha.
 from __future__ import annotations
 
 from collections import defaultdict
-from collections.abc import Iterable, Sequence
+from collections.abc import Hashable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, replace
-from typing import cast
+from typing import TypeVar, cast
 
 import numpy as np
 
@@ -104,6 +104,19 @@ def adjust_families(groups: list[list[Tagged]], method: str) -> list[list[Tagged
         for (g, k), result in zip(where, adjusted):
             out[g][k] = replace(out[g][k], result=result)
     return out
+
+
+Key = TypeVar("Key", bound=Hashable)
+
+
+def adjust_named_groups(groups: Mapping[Key, list[Tagged]], method: str) -> dict[Key, list[Tagged]]:
+    """:func:`adjust_families` on groups keyed by what they belong to; the same keys come back.
+
+    The groups are adjusted in the mapping's order, so the numbers are those
+    of :func:`adjust_families` on the same groups listed in that order.
+    """
+    keys = list(groups)
+    return dict(zip(keys, adjust_families([list(groups[key]) for key in keys], method)))
 
 
 def significant(result: CheckResult, alpha: float) -> bool:

@@ -1,37 +1,76 @@
-"""The stages of one analysis, in the order data flow through them."""
+"""The stages of one analysis, in the order data flow through them (:func:`run`).
+
+Each stage takes and returns the frozen records of :mod:`preflight.stages`.
+"""
 
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import itertools
 import os
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from typing import Any, cast
 
 import numpy as np
 
 from preflight._version import __version__
-from preflight.battery import PairBattery, PairFindings, derived_seed, judge_pair, run_pair_battery
-from preflight.evidence import Tagged, adjust_families, significant
+from preflight.battery import (
+    PairBattery,
+    PairFindings,
+    SharedAssociation,
+    derived_seed,
+    judge_pair,
+    run_pair_battery,
+    with_noise_dependence,
+)
+from preflight.evidence import Tagged, adjust_named_groups, significant
 from preflight.io import LoadedData
 from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
 from preflight.results import CheckResult
-from preflight.rules import evaluate, meets
+from preflight.rules import RulesOutcome, evaluate, meets
+from preflight.stages import (
+    Computed,
+    Conclusion,
+    Evidence,
+    Findings,
+    Pair,
+    PairPlan,
+    PairTask,
+    Screen,
+    Skeleton,
+    Structure,
+    Table,
+    VariableFindings,
+    WholeTable,
+)
 
 Progress = Callable[[str, int, int], None]
 
 
-@dataclass(frozen=True)
-class StructuralView:
-    order: tuple[int, ...]
-    parents: tuple[tuple[int, ...], ...]
-    noise: np.ndarray
-    variable_checks: dict[int, list[Tagged]]
-    global_checks: list[Tagged]
-    global_flags: tuple[str, ...]
+def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
+        keep_samples: bool) -> Report:
+    """One analysis, order- and unit-free: columns sorted by name and scaled by powers of two, then mapped back.
 
+    The report lists variables and pairs in the input's order, each pair with
+    x before y as in the input; a pair computed the other way round has its
+    orientation swapped to match (check names keep the literal names they
+    were computed with).
+    """
+    table = _canonical_table(loaded, policy)
+    screen = _screen(table)
+    computed = _compute(table, screen, graph, progress)
+    evidence = _second_pass(table, screen, computed, _adjust(table, screen, computed, computed.batteries), progress)
+    variables = _judge_variables(table, screen, computed, evidence)
+    findings = _judge_pairs(table, computed, evidence)
+    conclusion = _conclude(table, screen, computed, variables, findings)
+    report = _report(table, computed, evidence, variables, conclusion, keep_samples)
+    return _in_input_order(report, loaded, table.input_positions)
+
+
+# ---------------------------------------------------------------- shared computations
 
 def _many_pair_hsic(X: np.ndarray, names, pairs, label: str, policy: Policy, pair_seeds,
                     progress: Progress | None = None) -> list[CheckResult]:
@@ -76,11 +115,30 @@ def _tag_noise_dependence(results: list[CheckResult], names, pairs, progress: Pr
             for (i, j), result in zip(pairs, results)}
 
 
-# ---------------------------------------------------------------- stages
+# ---------------------------------------------------------------- table and screen
 
-def _screen(loaded: LoadedData, policy: Policy):
-    from preflight.screen import screen_variables
+def _canonical_table(loaded: LoadedData, policy: Policy) -> Table:
+    """The columns sorted by name (:func:`canonical_columns`) and scaled by powers of two (:func:`unit_exponents`)."""
+    from preflight.policy import working_seed
 
+    names = loaded.names
+    order = canonical_columns(names)
+    exponents = unit_exponents(loaded.values)
+    values = np.ldexp(loaded.values[:, order], -exponents[order][None, :])
+    # The same memory layout as the input keeps the round-off of every later
+    # matrix product as it was.
+    values = np.asfortranarray(values) if loaded.values.flags.f_contiguous and not loaded.values.flags.c_contiguous \
+        else np.ascontiguousarray(values)
+    canonical = replace(loaded, values=values, names=tuple(names[k] for k in order))
+    return Table(data=canonical, input_positions=tuple(order), exponents=exponents[order],
+                 policy=replace(policy, seed=working_seed(policy.seed)), requested=policy)
+
+
+def _screen(table: Table) -> Screen:
+    from preflight.screen import collinearity_check, duplicate_rows_check, screen_variables
+
+    loaded, policy = table.data, table.policy
+    X, names, n = loaded.values, loaded.names, loaded.values.shape[0]
     screens = screen_variables(loaded.values, list(loaded.names), policy)
     flags = {s.name: list(s.flags) for s in screens}
     for name in loaded.missing_by_column:
@@ -91,11 +149,81 @@ def _screen(loaded: LoadedData, policy: Policy):
         checks[name].append(Tagged(None, "variable", CheckResult(
             name="missing values", statistic=float(count), p_value=None, effect=count / loaded.rows,
             effect_name="share of rows", n=loaded.rows, note="rows with a missing value were dropped")))
-    return flags, checks
+    global_flags: list[str] = []
+    global_checks: list[Tagged] = [Tagged(None, "global", CheckResult(
+        name="usable rows", statistic=float(n), p_value=None, effect=None, effect_name=None, n=n,
+        note=(f"minimum {policy.min_rows} for any conclusion, {policy.min_rows_orientation} "
+              "to orient from noise shape")))]
+    if n < policy.min_rows:
+        global_flags.append("too-few-rows")
+    elif n < policy.min_rows_orientation:
+        global_flags.append("too-few-rows-to-orient")
+    global_checks.append(Tagged(None, "global", collinearity_check(X, list(names), policy)))
+    duplicates = duplicate_rows_check(X, list(names), policy)
+    global_checks.append(Tagged(None, "global", duplicates))
+    if duplicates.passed is False:
+        global_flags.append("duplicate-rows")
+    return Screen(variable_flags={name: tuple(f) for name, f in flags.items()},
+                  variable_checks={name: tuple(c) for name, c in checks.items()},
+                  global_checks=tuple(global_checks), global_flags=tuple(global_flags))
+
+
+# ---------------------------------------------------------------- structure, skeleton, pair plan, batteries
+
+def _compute(table: Table, screen: Screen, graph: str | None, progress: Progress) -> Computed:
+    """Every raw check of the analysis, in worker processes when the table is large enough."""
+    if screen.void:
+        if graph is not None:
+            from preflight import graph as graphs
+
+            graphs.read_graph_file(graph, list(table.names))  # a bad graph file is still a usage error
+        p = len(table.names)
+        return Computed(structure=None, skeleton=Skeleton(
+            estimated=np.zeros((p, p), dtype=bool), cpdag=np.zeros((p, p), dtype=np.int8),
+            source="not estimated: the data void the analysis"), plan=PairPlan(tasks=(), noise_pairs=()),
+            batteries=(), noise_dependence={}, whole_table=WholeTable(checks=(), dependent_components=False))
+    pool = _start_pool(table.values, table.names, table.policy)
+    try:
+        computed = _analyse_table(table, graph, progress, pool)
+    except BaseException:  # interrupted (Ctrl-C, SIGTERM) or failed: no worker may be left behind
+        if pool is not None:
+            _stop_pool(pool, interrupted=True)
+        raise
+    if pool is not None:
+        _stop_pool(pool, interrupted=False)
+    return computed
+
+
+def _analyse_table(table: Table, graph: str | None, progress: Progress, pool) -> Computed:
+    """Structural view, skeleton, every pair's battery, the noise dependence and the whole-table screens."""
+    X, names, policy = table.values, table.names, table.policy
+    whole = pool.submit(_whole_table_task, policy) if pool is not None else None
+    structure = _structural_view(X, names, policy, progress, table.exponents)
+    progress("skeleton", 0, 1)
+    skeleton = _adjacency(X, names, policy, graph)
+    progress("skeleton", 1, 1)
+    noise_pairs = tuple(ij for ij in table.pairs if skeleton.estimated[ij])
+    # The noise HSICs need nothing the pairs need: with workers they run in
+    # the one the whole-table screens left idle while this process shares
+    # the association checks.
+    noise_future = (pool.submit(_noise_dependence_task, structure.noise, noise_pairs, policy)
+                    if pool is not None and noise_pairs else None)
+    plan = _plan(table, structure, skeleton, noise_pairs, progress)
+    if noise_pairs:
+        progress("noise dependence", 0, len(noise_pairs))
+    noise_results = (noise_future.result() if noise_future is not None
+                     else _noise_dependence_results(structure.noise, names, noise_pairs, policy, progress))
+    noise_dependence = _tag_noise_dependence(noise_results, names, noise_pairs, progress)
+    batteries = _run_batteries(table, plan.tasks, progress, pool)
+    progress("whole-table screens", 0, 1)
+    whole_table = whole.result() if whole is not None else _whole_table_screens(X, policy)
+    progress("whole-table screens", 1, 1)
+    return Computed(structure=structure, skeleton=skeleton, plan=plan, batteries=tuple(batteries),
+                    noise_dependence=noise_dependence, whole_table=whole_table)
 
 
 def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, progress: Progress,
-                     exponents=None) -> StructuralView:
+                     exponents=None) -> Structure:
     from preflight import structure
     from preflight.checks.normality import normality_checks
 
@@ -133,11 +261,12 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
             note=f"varsortable when at least {policy.varsortable_min_share:.0%} (Reisach et al. 2021)")))
         if share >= policy.varsortable_min_share and len(edges) >= 2:
             flags.append("varsortable")
-    return StructuralView(order=order, parents=parents, noise=noise, variable_checks=variable_checks,
-                          global_checks=global_checks, global_flags=tuple(flags))
+    return Structure(order=order, parents=parents, noise=noise,
+                     variable_checks={j: tuple(checks) for j, checks in variable_checks.items()},
+                     global_checks=tuple(global_checks), global_flags=tuple(flags))
 
 
-def _whole_table_screens(X: np.ndarray, policy: Policy) -> tuple[list[CheckResult], bool]:
+def _whole_table_screens(X: np.ndarray, policy: Policy) -> WholeTable:
     """Henze-Zirkler and the FastICA cross-check: their checks, and whether components are dependent.
 
     Neither feeds the pair battery, so with worker processes they run in one
@@ -148,29 +277,28 @@ def _whole_table_screens(X: np.ndarray, policy: Policy) -> tuple[list[CheckResul
     checks = [structure.henze_zirkler(X, seed=policy.seed)]
     ica = structure.fastica_gaussian_components(X, policy)
     checks += list(ica.checks)
-    return checks, bool(ica.dependent)
+    return WholeTable(checks=tuple(checks), dependent_components=bool(ica.dependent))
 
 
-def _whole_table_task(policy: Policy) -> tuple[list[CheckResult], bool]:
+def _whole_table_task(policy: Policy) -> WholeTable:
     return _whole_table_screens(_WORKER["X"], policy)
 
 
-def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str | None):
+def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str | None) -> Skeleton:
     """Adjacency matrix and CPDAG; from the user's graph or estimated by PC-stable.
 
     The estimated skeleton rests only on partial correlations, which stay
     valid for linear mechanisms whatever the noise shape; the structural
     view's order, which a nonlinear or confounded part of the table can
     scramble, never adds or removes an edge.  It only decides which common
-    neighbours of a pair are conditioned on (see :func:`_conditioning_sets`).
+    neighbours of a pair are conditioned on (see :func:`_conditioning_set`).
     """
     from preflight import graph as graphs
 
     if graph is not None:
         dag = graphs.read_graph_file(graph, list(names))
-        adjacency = (dag + dag.T) > 0
-        cpdag = graphs.dag_to_cpdag(dag)
-        return adjacency, cpdag, "hypothesised graph from " + os.path.basename(graph)
+        return Skeleton(estimated=(dag + dag.T) > 0, cpdag=graphs.dag_to_cpdag(dag),
+                        source="hypothesised graph from " + os.path.basename(graph))
     skeleton = graphs.pc_stable_skeleton(X, alpha=policy.alpha)
     adjacency = np.array(skeleton.adjacency, dtype=bool)
     # The first separating set depends on the column order; the columns
@@ -181,30 +309,40 @@ def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str
         cpdag = graphs.cpdag_from_all_separating_sets(
             X, adjacency, alpha=policy.alpha, max_condition_size=max(skeleton.max_condition_size_reached, 0),
             rule=policy.collider_rule).cpdag
-    return adjacency, cpdag, "estimated: PC-stable skeleton (Fisher-z partial correlations)"
+    return Skeleton(estimated=adjacency, cpdag=cpdag,
+                    source="estimated: PC-stable skeleton (Fisher-z partial correlations)")
 
 
-def _conditioning_sets(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[tuple[int, ...], ...]:
-    """(Z for the pair, other parents of j, other parents of i).
+def _conditioning_set(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[int, ...]:
+    """The variables partialled out of the pair (i, j), in position order.
 
-    Z holds the common neighbours of i and j that the structural view puts
+    They are the common neighbours of i and j that the structural view puts
     among the parents of both: an observed common cause must be partialled
     out.  A common neighbour that is a parent of only one of them is either
     a common child of the two or a mediator; a child must not be conditioned
     on (that creates dependence) and leaving a mediator in the residual keeps
     it independent of the cause, so neither enters.  This also keeps a
-    mis-estimated order elsewhere in the table from bending this pair.
+    mis-estimated order elsewhere in the table from bending this pair.  The
+    same set enters the additive-noise check's spline regressions linearly.
     """
     common = set(np.flatnonzero(adjacency[i] & adjacency[j]).tolist()) - {i, j}
-    conditioning = tuple(sorted(common & set(parents[i]) & set(parents[j])))
-    others_of_j = conditioning
-    others_of_i = conditioning
-    return conditioning, others_of_j, others_of_i
+    return tuple(sorted(common & set(parents[i]) & set(parents[j])))
+
+
+def _plan(table: Table, structure: Structure, skeleton: Skeleton, noise_pairs: tuple[Pair, ...],
+          progress: Progress) -> PairPlan:
+    """Each pair's conditioning set and adjacency, with the association checks shared by the unconditioned pairs."""
+    conditioning = {(i, j): _conditioning_set(i, j, skeleton.estimated, structure.parents) for i, j in table.pairs}
+    shared = _shared_association(table.values, table.names, [ij for ij in table.pairs if not conditioning[ij]],
+                                 table.policy, progress)
+    tasks = tuple(PairTask(pair=ij, conditioning=conditioning[ij], adjacent=bool(skeleton.estimated[ij]),
+                           association=shared.get(ij)) for ij in table.pairs)
+    return PairPlan(tasks=tasks, noise_pairs=noise_pairs)
 
 
 def _shared_association(X: np.ndarray, names, pairs, policy: Policy,
-                        progress: Progress | None = None) -> dict[tuple[int, int], tuple]:
-    """Association checks of the given pairs (unconditioned) at once: (i, j) -> (pearson, spearman, hsic).
+                        progress: Progress | None = None) -> dict[Pair, SharedAssociation]:
+    """Association checks of the given pairs (unconditioned) at once.
 
     Pearson and Spearman come from two correlation matrices
     (:func:`preflight.checks.association.pairwise_associations`).  HSIC is
@@ -223,23 +361,25 @@ def _shared_association(X: np.ndarray, names, pairs, policy: Policy,
     else:
         kernel = _many_pair_hsic(X, names, pairs, "association", policy,
                                  [derived_seed(policy.seed, names[i], names[j]) for i, j in pairs], progress)
-    return {pair: (pearson, spearman, hsic) for pair, (pearson, spearman), hsic in zip(pairs, linear, kernel)}
+    return {pair: SharedAssociation(pearson=pearson, spearman=spearman, hsic=hsic)
+            for pair, (pearson, spearman), hsic in zip(pairs, linear, kernel)}
 
 
-def _battery_task(args):
-    i, j, conditioning, others_of_j, others_of_i, adjacent, policy, association = args
-    X, names = _WORKER["X"], _WORKER["names"]
-
-    def columns(index):
-        return X[:, list(index)] if index else None
-
-    return run_pair_battery(X[:, i], X[:, j], names[i], names[j], columns(conditioning),
-                            tuple(names[c] for c in conditioning), adjacent, policy,
-                            Z_for_y=columns(others_of_j), Z_for_x=columns(others_of_i),
-                            association=association)
+def _pair_battery(X: np.ndarray, names: Sequence[str], task: PairTask, policy: Policy) -> PairBattery:
+    """The battery of one pair of the table ``X`` (the data are passed, never read from a global)."""
+    i, j = task.pair
+    conditioning = task.conditioning
+    return run_pair_battery(X[:, i], X[:, j], names[i], names[j], X[:, list(conditioning)] if conditioning else None,
+                            tuple(names[c] for c in conditioning), task.adjacent, policy,
+                            association=task.association)
 
 
 _WORKER: dict[str, Any] = {}
+"""The table of a worker process, set once by :func:`_init_worker`; the main process never writes it."""
+
+
+def _pair_battery_in_worker(task: PairTask, policy: Policy) -> PairBattery:
+    return _pair_battery(_WORKER["X"], _WORKER["names"], task, policy)
 
 
 def _init_worker(X, names, parent_pid: int):
@@ -338,16 +478,17 @@ def _join_all(processes, seconds: float) -> list:
     return [process for process in processes if process.is_alive()]
 
 
-def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=None) -> list[PairBattery]:
+def _run_batteries(table: Table, tasks: Sequence[PairTask], progress: Progress, pool=None) -> list[PairBattery]:
     """Every pair's battery, in task order; results do not depend on the number of processes."""
+    X, names, policy = table.values, table.names, table.policy
     jobs = _jobs(policy, len(tasks))
     results: list[PairBattery | None] = [None] * len(tasks)
-    _WORKER["X"], _WORKER["names"] = X, names
     # A non-adjacent pair whose association checks are all ready needs no more
     # computation: sending it to a worker would cost more than it does here.
-    ready = [k for k, t in enumerate(tasks) if not t[5] and t[7] is not None and all(r is not None for r in t[7])]
+    ready = [k for k, task in enumerate(tasks)
+             if not task.adjacent and task.association is not None and task.association.complete]
     for k in ready:
-        results[k] = _battery_task(tasks[k])
+        results[k] = _pair_battery(X, names, tasks[k], policy)
     heavy = [k for k in range(len(tasks)) if results[k] is None]
     # Counted over the pairs that need the whole battery: the others are done
     # already and would make the time left look shorter than it is.
@@ -355,21 +496,54 @@ def _run_batteries(X, names, tasks, policy: Policy, progress: Progress, pool=Non
     progress("pair battery", done, len(heavy))
     if pool is None or len(heavy) < 2:
         for k in heavy:
-            results[k] = _battery_task(tasks[k])
+            results[k] = _pair_battery(X, names, tasks[k], policy)
             done += 1
             progress("pair battery", done, len(heavy))
         return cast("list[PairBattery]", results)  # every slot is filled by now
     chunk = max(1, len(heavy) // (8 * jobs))
-    for k, result in zip(heavy, pool.map(_battery_task, [tasks[k] for k in heavy], chunksize=chunk)):
+    in_worker = functools.partial(_pair_battery_in_worker, policy=policy)
+    for k, result in zip(heavy, pool.map(in_worker, [tasks[k] for k in heavy], chunksize=chunk)):
         results[k] = result
         done += 1
         progress("pair battery", done, len(heavy))
     return cast("list[PairBattery]", results)  # every slot is filled by now
 
 
-def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batteries: list[PairBattery],
-                                              adjusted, groups: list[list[Tagged]], policy: Policy,
-                                              progress: Progress | None = None):
+# ---------------------------------------------------------------- evidence
+
+def _adjust(table: Table, screen: Screen, computed: Computed, batteries: Sequence[PairBattery]) -> Evidence:
+    """Every check with p-values adjusted within families across the whole table.
+
+    The groups are keyed by what they belong to (a pair's battery, a pair's
+    noise dependence, a variable, the table) and adjusted together through
+    :func:`preflight.evidence.adjust_named_groups`.
+    """
+    structure = computed.structure
+    groups: dict[tuple[str, Any], list[Tagged]] = {}
+    for ij, battery in zip(table.pairs, batteries):
+        groups[("pair", ij)] = list(battery.checks)
+    for ij in table.pairs:
+        if ij in computed.noise_dependence:
+            groups[("noise", ij)] = [computed.noise_dependence[ij]]
+    for j, name in enumerate(table.names):
+        groups[("variable", name)] = list(screen.variable_checks[name]) + list(
+            structure.variable_checks[j] if structure is not None else ())
+    # Report order: the screen's, Henze-Zirkler and the FastICA checks, then the view's own (varsortability).
+    groups[("global", "table")] = (list(screen.global_checks)
+                                   + [Tagged(None, "global", c) for c in computed.whole_table.checks]
+                                   + list(structure.global_checks if structure is not None else ()))
+    adjusted = adjust_named_groups(groups, table.policy.correction)
+    return Evidence(
+        batteries=tuple(batteries),
+        pair_checks={ij: adjusted[("pair", ij)] for ij, _ in zip(table.pairs, batteries)},
+        noise_dependence={ij: adjusted[("noise", ij)][0].result for ij in table.pairs
+                          if ("noise", ij) in adjusted},
+        variable_checks={name: adjusted[("variable", name)] for name in table.names},
+        global_checks=tuple(adjusted[("global", "table")]))
+
+
+def _second_pass(table: Table, screen: Screen, computed: Computed, evidence: Evidence,
+                 progress: Progress) -> Evidence:
     """Re-run, without them, the pairs conditioned on variables that sit in a nonlinear relation.
 
     Conditioning sets rest on the structural view's linear causal order.  A
@@ -384,42 +558,233 @@ def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batter
     set; each round re-runs the pairs whose set holds one of them (in this
     process, in pair order, so results do not depend on workers), re-judges
     every pair with p-values adjusted afresh, and adds the variables of
-    nonlinear pairs whose set holds none of them, until nothing is added.
-    ``adjusted(batteries)`` adjusts every family of the table and ``groups``
-    is its value for the batteries given; returns the final batteries and
-    their adjusted groups.
+    every nonlinear pair, until nothing is added.  The evidence returned
+    holds the last round's judgement of every pair.
     """
-    _WORKER["X"], _WORKER["names"] = X, names
-    current = {ij: sets[ij][0] for ij in pair_index}
-    excluded: set[int] = set()
-    batteries = list(batteries)
-    for _ in range(len(names) + 1):
-        findings = [judge_pair(b, g, policy) for b, g in zip(batteries, groups[:len(batteries)])]
-        in_nonlinear = {v for ij, f in zip(pair_index, findings)
-                        if f.adjacent and "nonlinear" in f.flags and not (set(current[ij]) & excluded)
-                        and (excluded or not current[ij]) for v in ij}
+    if computed.structure is None:
+        return evidence
+    policy = table.policy
+    planned = {task.pair: task.conditioning for task in computed.plan.tasks}
+    excluded: frozenset[int] = frozenset()
+    # Ends: a round that does not return adds at least one of the p variables to ``excluded``.
+    while True:
+        judged = tuple(judge_pair(battery, evidence.pair_checks[ij], policy)
+                       for ij, battery in zip(table.pairs, evidence.batteries))
+        in_nonlinear = {v for ij, f in zip(table.pairs, judged)
+                        if f.adjacent and "nonlinear" in f.flags and (excluded or not planned[ij]) for v in ij}
         if in_nonlinear <= excluded:
-            return batteries, groups
-        excluded |= in_nonlinear
-        rerun = [k for k, ij in enumerate(pair_index) if set(current[ij]) & excluded]
-        for done, k in enumerate(rerun):
-            ij = pair_index[k]
-            if progress is not None:
-                progress("second pass", done, len(rerun))
-            dropped = tuple(c for c in current[ij] if c in excluded)
-            kept = tuple(c for c in current[ij] if c not in excluded)
-            current[ij] = kept
-            battery = _battery_task((*ij, kept, kept, kept, batteries[k].adjacent, policy, None))
-            note = (f"not partialled out: {', '.join(names[c] for c in dropped)}, in a relation judged "
-                    "nonlinear, so its place in the linear causal order is not trusted")
-            first = battery.checks[0]
-            checks = (replace(first, result=replace(first.result, note=f"{first.result.note}; {note}"
-                                                    if first.result.note else note)),) + battery.checks[1:]
-            batteries[k] = replace(battery, checks=checks)
-        if progress is not None and rerun:
-            progress("second pass", len(rerun), len(rerun))
-        groups = adjusted(batteries)
-    return batteries, groups
+            return replace(evidence, judged=judged)
+        batteries = _rerun_without(table, computed.plan, evidence.batteries, excluded, excluded | in_nonlinear,
+                                   progress)
+        excluded = excluded | in_nonlinear
+        evidence = _adjust(table, screen, computed, batteries)
+
+
+def _rerun_without(table: Table, plan: PairPlan, batteries: Sequence[PairBattery], before: frozenset[int],
+                   after: frozenset[int], progress: Progress) -> list[PairBattery]:
+    """The batteries with the pairs whose conditioning set loses a variable (``after`` minus ``before``) re-run.
+
+    The first check of a re-run battery notes the variables this round took
+    out of its set.
+    """
+    names = table.names
+    out = list(batteries)
+    rerun = [k for k, task in enumerate(plan.tasks) if set(task.conditioning) & (after - before)]
+    for done, k in enumerate(rerun):
+        task = plan.tasks[k]
+        progress("second pass", done, len(rerun))
+        dropped = tuple(c for c in task.conditioning if c in after and c not in before)
+        kept = tuple(c for c in task.conditioning if c not in after)
+        battery = _pair_battery(table.values, names, replace(task, conditioning=kept, association=None), table.policy)
+        note = (f"not partialled out: {', '.join(names[c] for c in dropped)}, in a relation judged "
+                "nonlinear, so its place in the linear causal order is not trusted")
+        first = battery.checks[0]
+        checks = (replace(first, result=replace(first.result, note=f"{first.result.note}; {note}"
+                                                if first.result.note else note)),) + battery.checks[1:]
+        out[k] = replace(battery, checks=checks)
+    if rerun:
+        progress("second pass", len(rerun), len(rerun))
+    return out
+
+
+# ---------------------------------------------------------------- judging
+
+def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence: Evidence) -> VariableFindings:
+    """Each variable's report entry: its flags, and its checks judged (noise shape, rows needed)."""
+    from preflight.battery import _nongaussian
+
+    policy, structure = table.policy, computed.structure
+    gaussian_noises: list[str] = []
+    entries = []
+    for j, name in enumerate(table.names):
+        tagged = evidence.variable_checks[name]
+        if structure is not None:
+            noise_norm = [t.result for t in tagged if t.family == "noise normality"]
+            if not _nongaussian(noise_norm, policy):
+                gaussian_noises.append(name)
+            tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], name, policy))]
+        flags = list(screen.variable_flags[name])
+        judged = []
+        for t in tagged:
+            r = t.result
+            if t.family == "noise normality":
+                r = replace(r, passed=None if r.p_value is None else significant(r, policy.alpha))
+            elif t.family == "autocorrelation":
+                r = replace(r, passed="autocorrelated" not in flags)
+            judged.append(r)
+        entries.append({"name": name, "flags": flags, "checks": [r.to_dict() for r in judged]})
+    return VariableFindings(entries=tuple(entries), gaussian_noises=tuple(gaussian_noises))
+
+
+def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findings:
+    """Each pair's final findings: edges without association dropped, then the noise dependence applied.
+
+    Every pair was judged once on its adjusted battery (``evidence.judged``);
+    only a pair whose adjacency changes here is judged again.
+    """
+    policy = table.policy
+    # A skeleton edge between two variables that show no association once
+    # their conditioning set is partialled out is a test error of the
+    # skeleton phase (typically the two parents of a collider, which no
+    # conditioning set can separate), so the pair is treated as non-adjacent.
+    dropped = [ij for ij, f in zip(table.pairs, evidence.judged) if f.adjacent and "no-association" in f.flags]
+    skeleton = computed.skeleton.without(dropped)
+    judged = [judge_pair(replace(battery, adjacent=False), evidence.pair_checks[ij], policy)
+              if ij in skeleton.dropped else f
+              for ij, battery, f in zip(table.pairs, evidence.batteries, evidence.judged)]
+    misspecified = {name for f in judged if f.adjacent and "nonlinear" in f.flags for name in (f.x, f.y)}
+    final = []
+    for ij, f in zip(table.pairs, judged):
+        noise = evidence.noise_dependence.get(ij)
+        if noise is None:
+            final.append(f)
+        elif f.x in misspecified or f.y in misspecified:
+            noise = replace(noise, note="not used as a confounding signal: a structural equation at this pair is "
+                                        "nonlinear, so its linear noise estimate is not a noise")
+            final.append(replace(f, checks=f.checks + (noise,)))
+        else:
+            final.append(with_noise_dependence(f, noise, policy))
+    return Findings(pairs=tuple(final), skeleton=skeleton)
+
+
+# ---------------------------------------------------------------- rules, verdicts, gate
+
+def _conclude(table: Table, screen: Screen, computed: Computed, variables: VariableFindings,
+              findings: Findings) -> Conclusion:
+    """The rules applied to every finding, each edge's verdict, and the gate."""
+    from preflight import graph as graphs
+
+    policy, names = table.policy, table.names
+    global_flags = list(screen.global_flags)
+    if computed.structure is not None:
+        global_flags += list(computed.structure.global_flags)
+        if computed.whole_table.dependent_components:
+            global_flags.append("dependent-components")
+    if len(variables.gaussian_noises) >= 2:
+        global_flags.append("multiple-gaussian-components")
+    # The compelled orientations come from the class of the skeleton as
+    # estimated, before edges without association were dropped (see Skeleton).
+    status = graphs.edge_status(findings.skeleton.cpdag) if names else {}
+    pair_facts: dict[tuple[str, str], frozenset[str]] = {}
+    for f, ij in zip(findings.pairs, table.pairs):
+        facts = set(f.facts)
+        compelled = status.get(ij, "undirected")
+        if f.lingam_orientation != "undetermined" and compelled in ("i->j", "j->i"):
+            if ("x->y" if compelled == "i->j" else "y->x") != f.lingam_orientation:
+                facts.add("orientation-conflict")
+        pair_facts[(f.x, f.y)] = frozenset(facts)
+    if screen.void:
+        for (i, j) in table.pairs:
+            pair_facts[(names[i], names[j])] = frozenset({"not-adjacent"})
+    any_nonlinear = ["any-nonlinear"] if any("nonlinear" in f.flags and f.adjacent for f in findings.pairs) else []
+    context = {"rows_used": table.values.shape[0], "min_rows": policy.min_rows,
+               "min_rows_orientation": policy.min_rows_orientation,
+               "gaussian_noises": ", ".join(variables.gaussian_noises)}
+    outcome = evaluate(frozenset(global_flags + any_nonlinear),
+                       {k: frozenset(v) for k, v in screen.variable_flags.items()}, pair_facts, context)
+    entries = _pair_entries(table, screen, findings, outcome, status)
+    total = sum(1 for e in entries if e["adjacent"])
+    oriented = sum(1 for e in entries if e["orientation"] != "undetermined")
+
+    present_flags = set(global_flags)
+    for entry in variables.entries + entries:
+        present_flags.update(entry["flags"])
+    failing_flags = sorted(set(policy.fail_on) & present_flags)
+    reasons = list(outcome.reasons)
+    if not reasons:
+        reasons.append(f"Every one of the {total} adjacent edges is linear, homoscedastic, and leaves a residual "
+                       "independent of its regressor in exactly one direction; no sign of hidden confounding.")
+    for flag in failing_flags:
+        reasons.append(f"Flag {flag} is present and the policy fails the gate on it (--fail-on).")
+    return Conclusion(outcome=outcome, global_flags=tuple(global_flags), pair_entries=entries,
+                      edges_oriented=oriented, edges_total=total, reasons=tuple(reasons),
+                      passed=bool(meets(outcome.level, policy.require) and not failing_flags))
+
+
+def _pair_entries(table: Table, screen: Screen, findings: Findings, outcome: RulesOutcome,
+                  status: dict) -> tuple[dict[str, Any], ...]:
+    """Each pair's report entry: the orientation the strongest level the rules leave it licenses."""
+    entries: list[dict[str, Any]] = []
+    for k, (i, j) in enumerate(table.pairs):
+        x, y = table.names[i], table.names[j]
+        finding: PairFindings | None = findings.pairs[k] if findings.pairs else None
+        adjacent = findings.skeleton.adjacent((i, j)) and not screen.void
+        orientation, basis = "undetermined", None
+        if adjacent and finding is not None:
+            banned = outcome.edge_ruled_out.get((x, y), frozenset())
+            compelled = status.get((i, j), "undirected")
+            if finding.lingam_orientation != "undetermined" and "linear-non-gaussian" not in banned:
+                orientation, basis = finding.lingam_orientation, "linear-non-gaussian"
+            elif finding.anm_orientation != "undetermined" and "additive-noise" not in banned:
+                orientation, basis = finding.anm_orientation, "additive-noise"
+            elif (compelled != "undirected" and "equivalence-class" not in banned
+                  and level_rank(outcome.level) <= level_rank("equivalence-class")):
+                orientation, basis = ("x->y" if compelled == "i->j" else "y->x"), "equivalence-class"
+        entries.append({"x": x, "y": y, "adjacent": adjacent, "orientation": orientation, "basis": basis,
+                        "flags": list(finding.flags) if finding is not None else [],
+                        "checks": [r.to_dict() for r in finding.checks] if finding is not None else [],
+                        "conditioning": list(finding.conditioning) if finding is not None else []})
+    return tuple(entries)
+
+
+# ---------------------------------------------------------------- report
+
+def _report(table: Table, computed: Computed, evidence: Evidence, variables: VariableFindings,
+            conclusion: Conclusion, keep_samples: bool) -> Report:
+    """The report dictionary (columns still in canonical order) and, if asked, the rows the plots draw."""
+    loaded, policy, names, structure = table.data, table.policy, table.names, computed.structure
+    outcome = conclusion.outcome
+    report = {
+        "schema_version": "1",
+        "tool": {"name": "preflight", "version": __version__},
+        "input": {"path": loaded.path, "sha256": loaded.sha256, "rows": loaded.rows, "rows_used": loaded.rows_used,
+                  "columns": list(names), "warnings": list(loaded.warnings)},
+        "settings": table.requested.to_dict(),
+        "conclusion": {"level": outcome.level, "required": policy.require, "passed": conclusion.passed,
+                       "reasons": list(conclusion.reasons), "edges_oriented": conclusion.edges_oriented,
+                       "edges_total": conclusion.edges_total, "rules_fired": [fr.rule.id for fr in outcome.fired]},
+        "variables": list(variables.entries),
+        "pairs": list(conclusion.pair_entries),
+        "global": {"flags": list(conclusion.global_flags),
+                   "checks": [t.result.to_dict() for t in evidence.global_checks]},
+        "structure": {
+            "adjacency": computed.skeleton.source,
+            "order": [names[i] for i in structure.order] if structure else [],
+            "parents": ({names[c]: [names[q] for q in ps] for c, ps in enumerate(structure.parents)}
+                        if structure else {}),
+            "gaussian_noises": list(variables.gaussian_noises),
+        },
+        "cautions": list(CAUTIONS) + list(outcome.cautions) + [f"Input: {w}" for w in loaded.warnings],
+        "generated_at": _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat(),
+    }
+    samples = None
+    if keep_samples:
+        n = table.values.shape[0]
+        rng = np.random.default_rng(derived_seed(policy.seed, "plot sample"))
+        rows = np.sort(rng.choice(n, size=min(n, policy.plot_max_points), replace=False))
+        samples = {"names": list(names), "values": table.values[rows], "rows": rows, "n": n,
+                   "noise": structure.noise[rows] if structure is not None else None}
+    return Report(data=report, samples=samples)
 
 
 def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> CheckResult:
@@ -436,36 +801,6 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
               f"{policy.alpha:g}" if needed is not None
               else "noise shape indistinguishable from Gaussian: no finite number"))
 
-
-# ---------------------------------------------------------------- the run
-
-
-def _analyse_table(X, names, pair_index, policy: Policy, graph, progress: Progress, pool, exponents=None):
-    """Structural view, adjacency, every pair's battery and the whole-table screens."""
-    whole = pool.submit(_whole_table_task, policy) if pool is not None else None
-    view = _structural_view(X, names, policy, progress, exponents)
-    progress("skeleton", 0, 1)
-    adjacency, cpdag, adjacency_source = _adjacency(X, names, policy, graph)
-    progress("skeleton", 1, 1)
-    sets = {(i, j): _conditioning_sets(i, j, adjacency, view.parents) for i, j in pair_index}
-    noise_pairs = [ij for ij in pair_index if adjacency[ij]]
-    # The noise HSICs need nothing the pairs need: with workers they run in
-    # the one the whole-table screens left idle while this process shares
-    # the association checks.
-    noise_future = (pool.submit(_noise_dependence_task, view.noise, noise_pairs, policy)
-                    if pool is not None and noise_pairs else None)
-    ready = _shared_association(X, names, [pair for pair in pair_index if not sets[pair][0]], policy, progress)
-    tasks = [(i, j, *sets[(i, j)], bool(adjacency[i, j]), policy, ready.get((i, j))) for i, j in pair_index]
-    if noise_pairs:
-        progress("noise dependence", 0, len(noise_pairs))
-    noise_results = (noise_future.result() if noise_future is not None
-                     else _noise_dependence_results(view.noise, names, noise_pairs, policy, progress))
-    noise_dep = _tag_noise_dependence(noise_results, names, noise_pairs, progress)
-    batteries = _run_batteries(X, names, tasks, policy, progress, pool)
-    progress("whole-table screens", 0, 1)
-    whole_result = whole.result() if whole is not None else _whole_table_screens(X, policy)
-    progress("whole-table screens", 1, 1)
-    return view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole_result, sets
 
 
 def canonical_columns(names) -> list[int]:
@@ -495,33 +830,10 @@ def unit_exponents(values: np.ndarray) -> np.ndarray:
     return np.where(largest > 0, np.frexp(largest)[1], 0).astype(int)
 
 
-def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
-        keep_samples: bool) -> Report:
-    """One analysis, order- and unit-free: columns sorted by name and scaled by powers of two, then mapped back.
-
-    The report lists variables and pairs in the input's order, each pair with
-    x before y as in the input; a pair computed the other way round has its
-    orientation swapped to match (check names keep the literal names they
-    were computed with).
-    """
-    names = loaded.names
-    order = canonical_columns(names)
-    exponents = unit_exponents(loaded.values)
-    values = np.ldexp(loaded.values[:, order], -exponents[order][None, :])
-    # The same memory layout as the input keeps the round-off of every later
-    # matrix product as it was.
-    values = np.asfortranarray(values) if loaded.values.flags.f_contiguous and not loaded.values.flags.c_contiguous \
-        else np.ascontiguousarray(values)
-    canonical = replace(loaded, values=values, names=tuple(names[k] for k in order))
-    report = _run_canonical(canonical, policy, graph=graph, progress=progress, keep_samples=keep_samples,
-                            exponents=exponents[order])
-    return _in_input_order(report, loaded, order)
-
-
 _SWAPPED = {"x->y": "y->x", "y->x": "x->y"}
 
 
-def _in_input_order(report: Report, loaded: LoadedData, order: list[int]) -> Report:
+def _in_input_order(report: Report, loaded: LoadedData, order: Sequence[int]) -> Report:
     names = list(loaded.names)
     position = {name: k for k, name in enumerate(names)}
     data = report.data
@@ -552,230 +864,3 @@ def _in_input_order(report: Report, loaded: LoadedData, order: list[int]) -> Rep
                    "noise": None if noise is None else noise[:, inverse]}
     return Report(data=data, samples=samples)
 
-
-def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
-                   keep_samples: bool, exponents=None) -> Report:
-    from preflight.policy import working_seed
-
-    requested = policy  # echoed in the report as the user gave it
-    policy = replace(policy, seed=working_seed(policy.seed))
-    X, names = loaded.values, loaded.names
-    n, p = X.shape
-    var_flags, var_checks = _screen(loaded, policy)
-    global_flags: list[str] = []
-    global_checks: list[Tagged] = [Tagged(None, "global", CheckResult(
-        name="usable rows", statistic=float(n), p_value=None, effect=None, effect_name=None, n=n,
-        note=(f"minimum {policy.min_rows} for any conclusion, {policy.min_rows_orientation} "
-              "to orient from noise shape")))]
-    if n < policy.min_rows:
-        global_flags.append("too-few-rows")
-    elif n < policy.min_rows_orientation:
-        global_flags.append("too-few-rows-to-orient")
-    from preflight.screen import collinearity_check, duplicate_rows_check
-
-    global_checks.append(Tagged(None, "global", collinearity_check(X, list(names), policy)))
-    duplicates = duplicate_rows_check(X, list(names), policy)
-    global_checks.append(Tagged(None, "global", duplicates))
-    if duplicates.passed is False:
-        global_flags.append("duplicate-rows")
-
-    void = "too-few-rows" in global_flags or any("constant" in f for f in var_flags.values())
-    view: StructuralView | None = None
-    adjacency = np.zeros((p, p), dtype=bool)
-    cpdag = np.zeros((p, p), dtype=np.int8)
-    adjacency_source = "not estimated: the data void the analysis"
-    batteries: list[PairBattery] = []
-    pair_index = list(itertools.combinations(range(p), 2))
-    if not void:
-        pool = _start_pool(X, names, policy)
-        try:
-            view, adjacency, cpdag, adjacency_source, noise_dep, batteries, whole, sets = _analyse_table(
-                X, names, pair_index, policy, graph, progress, pool, exponents)
-        except BaseException:  # interrupted (Ctrl-C, SIGTERM) or failed: no worker may be left behind
-            if pool is not None:
-                _stop_pool(pool, interrupted=True)
-            raise
-        if pool is not None:
-            _stop_pool(pool, interrupted=False)
-        whole_checks, dependent = whole
-        # Report order: Henze-Zirkler, the FastICA checks, then the view's own (varsortability).
-        global_checks += [Tagged(None, "global", c) for c in whole_checks] + view.global_checks
-        global_flags += list(view.global_flags) + (["dependent-components"] if dependent else [])
-        for j in range(p):
-            var_checks[names[j]] += view.variable_checks[j]
-    elif graph is not None:
-        from preflight import graph as graphs
-
-        graphs.read_graph_file(graph, list(names))  # a bad graph file is still a usage error
-
-    # ---- evidence: adjust within families across the whole table
-    noise_dep = noise_dep if view is not None else {}
-    noise_keys = [ij for ij in pair_index if ij in noise_dep]
-    noise_groups = [[noise_dep[ij]] for ij in noise_keys]
-    var_groups = [var_checks[name] for name in names]
-
-    def adjusted(pair_batteries: list[PairBattery]) -> list[list[Tagged]]:
-        return adjust_families([list(b.checks) for b in pair_batteries] + noise_groups + var_groups
-                               + [global_checks], policy.correction)
-
-    groups = adjusted(batteries)
-    if view is not None:
-        batteries, groups = _drop_conditioning_in_nonlinear_relations(
-            X, names, pair_index, sets, batteries, adjusted, groups, policy, progress)
-    pair_groups = groups[:len(batteries)]
-    noise_groups = groups[len(pair_groups):len(pair_groups) + len(noise_groups)]
-    var_groups = groups[len(pair_groups) + len(noise_groups):-1]
-    global_checks = groups[-1]
-
-    # ---- variables: noise shape and rows needed
-    gaussian_noises: list[str] = []
-    from preflight.battery import _nongaussian
-
-    variables_out = []
-    for j, name in enumerate(names):
-        tagged = var_groups[j]
-        if view is not None:
-            noise_norm = [t.result for t in tagged if t.family == "noise normality"]
-            if not _nongaussian(noise_norm, policy):
-                gaussian_noises.append(name)
-            tagged = tagged + [Tagged(None, "variable", _rows_needed_check(view.noise[:, j], name, policy))]
-        flags = list(var_flags[name])
-        judged = []
-        for t in tagged:
-            r = t.result
-            if t.family == "noise normality":
-                r = replace(r, passed=None if r.p_value is None else significant(r, policy.alpha))
-            elif t.family == "autocorrelation":
-                r = replace(r, passed="autocorrelated" not in flags)
-            judged.append(r)
-        variables_out.append({"name": name, "flags": flags, "checks": [r.to_dict() for r in judged]})
-    if len(gaussian_noises) >= 2:
-        global_flags.append("multiple-gaussian-components")
-
-    # ---- pairs: judge, then apply noise dependence where equations are linear
-    findings: list[PairFindings] = []
-    misspecified: set[str] = set()
-    # A skeleton edge between two variables that show no association once
-    # their conditioning set is partialled out is a test error of the
-    # skeleton phase (typically the two parents of a collider, which no
-    # conditioning set can separate), so the pair is treated as non-adjacent.
-    preliminary = [judge_pair(b, g, policy) for b, g in zip(batteries, pair_groups)]
-    for k, f in enumerate(preliminary):
-        if f.adjacent and "no-association" in f.flags:
-            i, j = pair_index[k]
-            adjacency[i, j] = adjacency[j, i] = False
-            batteries[k] = replace(batteries[k], adjacent=False)
-            preliminary[k] = judge_pair(batteries[k], pair_groups[k], policy)
-    for f in preliminary:
-        if f.adjacent and "nonlinear" in f.flags:
-            misspecified.update((f.x, f.y))
-    noise_of = {ij: group[0].result for ij, group in zip(noise_keys, noise_groups)}
-    for k, (b, g) in enumerate(zip(batteries, pair_groups)):
-        nd = noise_of.get(pair_index[k])
-        if nd is not None and (b.x in misspecified or b.y in misspecified):
-            nd = replace(nd, note="not used as a confounding signal: a structural equation at this pair is "
-                                  "nonlinear, so its linear noise estimate is not a noise")
-            findings.append(replace(judge_pair(b, g, policy), checks=preliminary[k].checks + (nd,)))
-        else:
-            findings.append(judge_pair(b, g, policy, noise_dependence=nd))
-
-    # ---- class: compelled orientations and conflicts with noise-based ones
-    from preflight import graph as graphs
-
-    status = graphs.edge_status(cpdag) if p else {}
-    pair_facts: dict[tuple[str, str], frozenset[str]] = {}
-    for f, (i, j) in zip(findings, pair_index):
-        facts = set(f.facts)
-        compelled = status.get((i, j), "undirected")
-        if f.lingam_orientation != "undetermined" and compelled in ("i->j", "j->i"):
-            wanted = "x->y" if compelled == "i->j" else "y->x"
-            if wanted != f.lingam_orientation:
-                facts.add("orientation-conflict")
-        pair_facts[(f.x, f.y)] = frozenset(facts)
-    if void:
-        for (i, j) in pair_index:
-            pair_facts[(names[i], names[j])] = frozenset({"not-adjacent"})
-    if any("nonlinear" in f.flags and f.adjacent for f in findings):
-        global_flags.append("any-nonlinear")
-    global_fact_set = frozenset(global_flags)
-    context = {"rows_used": n, "min_rows": policy.min_rows, "min_rows_orientation": policy.min_rows_orientation,
-               "gaussian_noises": ", ".join(gaussian_noises)}
-    outcome = evaluate(global_fact_set, {k: frozenset(v) for k, v in var_flags.items()}, pair_facts, context)
-    global_flags = [f for f in global_flags if f != "any-nonlinear"]
-
-    # ---- per-edge verdicts
-    pairs_out: list[dict[str, Any]] = []
-    oriented = 0
-    total = 0
-    finding: PairFindings | None
-    for k, (i, j) in enumerate(pair_index):
-        x, y = names[i], names[j]
-        if findings:
-            finding = findings[k]
-            flags, checks = list(finding.flags), [r.to_dict() for r in finding.checks]
-        else:
-            finding, flags, checks = None, [], []
-        adjacent = bool(adjacency[i, j]) and not void
-        orientation, basis = "undetermined", None
-        if adjacent and finding is not None:
-            total += 1
-            banned = outcome.edge_ruled_out.get((x, y), frozenset())
-            compelled = status.get((i, j), "undirected")
-            if finding.lingam_orientation != "undetermined" and "linear-non-gaussian" not in banned:
-                orientation, basis = finding.lingam_orientation, "linear-non-gaussian"
-            elif finding.anm_orientation != "undetermined" and "additive-noise" not in banned:
-                orientation, basis = finding.anm_orientation, "additive-noise"
-            elif (compelled != "undirected" and "equivalence-class" not in banned
-                  and level_rank(outcome.level) <= level_rank("equivalence-class")):
-                orientation, basis = ("x->y" if compelled == "i->j" else "y->x"), "equivalence-class"
-            if orientation != "undetermined":
-                oriented += 1
-        pairs_out.append({"x": x, "y": y, "adjacent": adjacent, "orientation": orientation, "basis": basis,
-                          "flags": flags, "checks": checks,
-                          "conditioning": list(finding.conditioning) if finding is not None else []})
-
-    # ---- conclusion and gate
-    present_flags = set(global_flags)
-    for v in variables_out:
-        present_flags.update(v["flags"])
-    for pair in pairs_out:
-        present_flags.update(pair["flags"])
-    failing_flags = sorted(set(policy.fail_on) & present_flags)
-    reasons = list(outcome.reasons)
-    if not reasons:
-        reasons.append(f"Every one of the {total} adjacent edges is linear, homoscedastic, and leaves a residual "
-                       "independent of its regressor in exactly one direction; no sign of hidden confounding.")
-    for flag in failing_flags:
-        reasons.append(f"Flag {flag} is present and the policy fails the gate on it (--fail-on).")
-    passed = meets(outcome.level, policy.require) and not failing_flags
-
-    cautions = list(CAUTIONS) + list(outcome.cautions) + [f"Input: {w}" for w in loaded.warnings]
-    settings = requested.to_dict()
-    report = {
-        "schema_version": "1",
-        "tool": {"name": "preflight", "version": __version__},
-        "input": {"path": loaded.path, "sha256": loaded.sha256, "rows": loaded.rows, "rows_used": loaded.rows_used,
-                  "columns": list(names), "warnings": list(loaded.warnings)},
-        "settings": settings,
-        "conclusion": {"level": outcome.level, "required": policy.require, "passed": bool(passed),
-                       "reasons": reasons, "edges_oriented": oriented, "edges_total": total,
-                       "rules_fired": [fr.rule.id for fr in outcome.fired]},
-        "variables": variables_out,
-        "pairs": pairs_out,
-        "global": {"flags": global_flags, "checks": [t.result.to_dict() for t in global_checks]},
-        "structure": {
-            "adjacency": adjacency_source,
-            "order": [names[i] for i in view.order] if view else [],
-            "parents": {names[c]: [names[q] for q in ps] for c, ps in enumerate(view.parents)} if view else {},
-            "gaussian_noises": gaussian_noises,
-        },
-        "cautions": cautions,
-        "generated_at": _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat(),
-    }
-    samples = None
-    if keep_samples:
-        rng = np.random.default_rng(derived_seed(policy.seed, "plot sample"))
-        rows = np.sort(rng.choice(n, size=min(n, policy.plot_max_points), replace=False))
-        samples = {"names": list(names), "values": X[rows], "rows": rows, "n": n,
-                   "noise": view.noise[rows] if view is not None else None}
-    return Report(data=report, samples=samples)

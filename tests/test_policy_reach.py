@@ -180,7 +180,7 @@ def _equivalence_class(key, value):
     from preflight.scenarios import simulate
 
     scenario = simulate("gaussian", "random", p=7, n=600, seed=3)
-    return pipeline._adjacency(scenario.data, scenario.names, _policy(key, value), None)[1].tolist()
+    return pipeline._adjacency(scenario.data, scenario.names, _policy(key, value), None).cpdag.tolist()
 
 
 PROBES = {

@@ -1,0 +1,214 @@
+"""The records that pass from one stage of an analysis to the next (:func:`preflight.pipeline.run`).
+
+Each stage takes records and returns one; none is changed after it is made.
+In order::
+
+    Table -> Screen -> Computed (Structure, Skeleton, PairPlan, batteries) -> Evidence
+          -> VariableFindings -> Findings -> Conclusion -> Report
+
+Variables are column positions of the table as every stage sees it
+(:class:`Table`: sorted by name); pairs are position pairs ``(i, j)`` with
+``i < j``.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from preflight.battery import PairBattery, PairFindings, SharedAssociation
+from preflight.evidence import Tagged
+from preflight.io import LoadedData
+from preflight.policy import Policy
+from preflight.results import CheckResult
+from preflight.rules import RulesOutcome
+
+Pair = tuple[int, int]
+
+
+@dataclass(frozen=True)
+class Table:
+    """The table as every stage sees it: columns sorted by name, each scaled by a power of two."""
+
+    data: LoadedData
+    """The input's values and provenance, columns in canonical order and scale."""
+    input_positions: tuple[int, ...]
+    """Position in the input of each canonical column (to map the report back)."""
+    exponents: np.ndarray
+    """Per canonical column, the power of two its values were divided by."""
+    policy: Policy
+    """The policy in force, its seed resolved (``policy.working_seed``)."""
+    requested: Policy
+    """The policy as the user gave it, echoed in the report's settings."""
+
+    @property
+    def values(self) -> np.ndarray:
+        return self.data.values
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return self.data.names
+
+    @property
+    def pairs(self) -> list[Pair]:
+        """Every pair of columns once, ``i < j``, in the order of the report."""
+        return list(itertools.combinations(range(len(self.names)), 2))
+
+
+@dataclass(frozen=True)
+class Screen:
+    """What the data show before any model: per-variable flags and checks, and the table-wide ones."""
+
+    variable_flags: dict[str, tuple[str, ...]]
+    variable_checks: dict[str, tuple[Tagged, ...]]
+    """Per variable: the screen's checks (autocorrelation, missing values)."""
+    global_checks: tuple[Tagged, ...]
+    """Usable rows, collinearity, duplicated rows."""
+    global_flags: tuple[str, ...]
+
+    @property
+    def void(self) -> bool:
+        """Too few rows or a constant column: no structural analysis is run."""
+        return "too-few-rows" in self.global_flags or any("constant" in f for f in self.variable_flags.values())
+
+
+@dataclass(frozen=True)
+class Structure:
+    """The linear structural view: causal order, pruned parents, noise estimates and their checks."""
+
+    order: tuple[int, ...]
+    parents: tuple[tuple[int, ...], ...]
+    """Per variable, the positions of its parents."""
+    noise: np.ndarray
+    """(rows, p) residual of each variable on its parents."""
+    variable_checks: dict[int, tuple[Tagged, ...]]
+    """Per variable: noise normality and spectral confounding strength."""
+    global_checks: tuple[Tagged, ...]
+    """Varsortability (when there are edges)."""
+    global_flags: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Skeleton:
+    """Which pairs are adjacent, and the Markov equivalence class (CPDAG) of that skeleton.
+
+    ``estimated`` is the skeleton as estimated (or read from the user's
+    graph); ``dropped`` the edges removed afterwards because their pair shows
+    no association once its conditioning set is partialled out.
+
+    ``cpdag`` is the class of the skeleton *as estimated*, and the compelled
+    orientations of the report are read from it even after edges are
+    dropped.  Re-deriving the class without the dropped edges would need
+    new separating sets for the dropped pairs and could change which
+    v-structures exist, so it changes verdicts; that is issue #17.  Until
+    then the reports keep this behaviour, and this record says so.
+    """
+
+    estimated: np.ndarray
+    """(p, p) symmetric boolean adjacency before any edge is dropped."""
+    cpdag: np.ndarray
+    """(p, p) int8: the class of ``estimated`` (see :func:`preflight.graph.edge_status`)."""
+    source: str
+    """Where the adjacency came from, as the report says it."""
+    dropped: frozenset[Pair] = frozenset()
+
+    def adjacent(self, pair: Pair) -> bool:
+        """Adjacent in the estimated skeleton and not dropped since."""
+        return bool(self.estimated[pair]) and pair not in self.dropped
+
+    def without(self, pairs) -> Skeleton:
+        return replace(self, dropped=self.dropped | frozenset(pairs))
+
+
+@dataclass(frozen=True)
+class PairTask:
+    """What the pair battery computes for one pair."""
+
+    pair: Pair
+    conditioning: tuple[int, ...]
+    """Positions partialled out of both variables (see ``pipeline._conditioning_set``)."""
+    adjacent: bool
+    association: SharedAssociation | None = None
+    """Association checks computed with many pairs at once (unconditioned pairs only), or None."""
+
+
+@dataclass(frozen=True)
+class PairPlan:
+    """One task per pair, in pair order, and the adjacent pairs whose noise estimates are compared."""
+
+    tasks: tuple[PairTask, ...]
+    noise_pairs: tuple[Pair, ...]
+
+
+@dataclass(frozen=True)
+class WholeTable:
+    """Henze-Zirkler and the FastICA cross-check."""
+
+    checks: tuple[CheckResult, ...]
+    dependent_components: bool
+
+
+@dataclass(frozen=True)
+class Computed:
+    """Every raw (unadjusted) check of the analysis: the structural view, the skeleton, the batteries."""
+
+    structure: Structure | None
+    """None when the screen voids the analysis."""
+    skeleton: Skeleton
+    plan: PairPlan
+    batteries: tuple[PairBattery, ...]
+    """One per pair, in pair order (empty when void)."""
+    noise_dependence: dict[Pair, Tagged]
+    """HSIC between the noise estimates of each adjacent pair."""
+    whole_table: WholeTable
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """Every check with p-values adjusted within families across the whole table, and each pair's judgement.
+
+    ``batteries`` are the final ones (after the second pass re-ran pairs
+    conditioned on a variable in a nonlinear relation); ``judged`` holds each
+    pair judged on its adjusted battery alone, before noise dependence and
+    before any edge is dropped.
+    """
+
+    batteries: tuple[PairBattery, ...]
+    pair_checks: dict[Pair, list[Tagged]]
+    noise_dependence: dict[Pair, CheckResult]
+    variable_checks: dict[str, list[Tagged]]
+    global_checks: tuple[Tagged, ...]
+    judged: tuple[PairFindings, ...] = ()
+
+
+@dataclass(frozen=True)
+class VariableFindings:
+    """Per variable, its report entry (name, flags, judged checks); and the variables with Gaussian noise."""
+
+    entries: tuple[dict[str, Any], ...]
+    gaussian_noises: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Findings:
+    """Each pair's final findings (pair order) and the skeleton with the edges dropped for no association."""
+
+    pairs: tuple[PairFindings, ...]
+    skeleton: Skeleton
+
+
+@dataclass(frozen=True)
+class Conclusion:
+    """The rules' outcome, each pair's verdict, and the gate."""
+
+    outcome: RulesOutcome
+    global_flags: tuple[str, ...]
+    pair_entries: tuple[dict[str, Any], ...]
+    """Per pair, its report entry (orientation, basis, flags, checks, conditioning)."""
+    edges_oriented: int
+    edges_total: int
+    reasons: tuple[str, ...]
+    passed: bool
