@@ -14,7 +14,6 @@ all pairs.
 
 from __future__ import annotations
 
-import zlib
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -23,15 +22,7 @@ from preflight.evidence import Tagged, rejects, significant
 from preflight.fit import bspline_basis, ols, residualize, simple_slope, spline_df
 from preflight.policy import Policy
 from preflight.results import CheckResult
-
-
-def derived_seed(seed: int, *labels: str) -> int:
-    """A seed that depends on the names involved, not on column positions.
-
-    Reordering columns therefore leaves every subsample and permutation as it was.
-    """
-    text = "\x1f".join(sorted(labels))
-    return int(np.random.SeedSequence([seed & 0xFFFFFFFF, zlib.crc32(text.encode())]).generate_state(1)[0])
+from preflight.seeds import derived_seed
 
 
 @dataclass(frozen=True)

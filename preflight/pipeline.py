@@ -12,13 +12,14 @@ from typing import Any, cast
 import numpy as np
 
 from preflight._version import __version__
-from preflight.battery import PairBattery, PairFindings, derived_seed, judge_pair, run_pair_battery
+from preflight.battery import PairBattery, PairFindings, judge_pair, run_pair_battery
 from preflight.evidence import Tagged, adjust_families, significant
 from preflight.io import LoadedData
 from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
 from preflight.results import CheckResult
 from preflight.rules import evaluate, meets
+from preflight.seeds import derived_seed
 
 Progress = Callable[[str, int, int], None]
 
@@ -555,7 +556,7 @@ def _in_input_order(report: Report, loaded: LoadedData, order: list[int]) -> Rep
 
 def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
                    keep_samples: bool, exponents=None) -> Report:
-    from preflight.policy import working_seed
+    from preflight.seeds import working_seed
 
     requested = policy  # echoed in the report as the user gave it
     policy = replace(policy, seed=working_seed(policy.seed))

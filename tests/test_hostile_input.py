@@ -285,7 +285,7 @@ def test_very_long_names_are_cut_in_plots(tmp_path):
 
 
 def test_seeds_outside_32_bits_are_accepted_and_smaller_seeds_unchanged(tmp_path, data):
-    from preflight.policy import SEED_LIMIT, working_seed
+    from preflight.seeds import SEED_LIMIT, working_seed
 
     for seed in (0, 1, 20261202, SEED_LIMIT - 1):
         assert working_seed(seed) == seed
