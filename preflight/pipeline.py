@@ -14,7 +14,7 @@ import numpy as np
 from preflight._version import __version__
 from preflight.battery import PairBattery, PairFindings, judge_pair, run_pair_battery
 from preflight.evidence import Tagged, adjust_families, significant
-from preflight.io import LoadedData
+from preflight.io import GraphFile, LoadedData
 from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
 from preflight.results import CheckResult
@@ -156,7 +156,7 @@ def _whole_table_task(policy: Policy) -> tuple[list[CheckResult], bool]:
     return _whole_table_screens(_WORKER["X"], policy)
 
 
-def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str | None):
+def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: GraphFile | None):
     """Adjacency matrix and CPDAG; from the user's graph or estimated by PC-stable.
 
     The estimated skeleton rests only on partial correlations, which stay
@@ -168,10 +168,10 @@ def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str
     from preflight import graph as graphs
 
     if graph is not None:
-        dag = graphs.read_graph_file(graph, list(names))
+        dag = graph.matrix(names)
         adjacency = (dag + dag.T) > 0
         cpdag = graphs.dag_to_cpdag(dag)
-        return adjacency, cpdag, "hypothesised graph from " + os.path.basename(graph)
+        return adjacency, cpdag, "hypothesised graph from " + graph.name
     skeleton = graphs.pc_stable_skeleton(X, alpha=policy.alpha)
     adjacency = np.array(skeleton.adjacency, dtype=bool)
     # The first separating set depends on the column order; the columns
@@ -496,7 +496,7 @@ def unit_exponents(values: np.ndarray) -> np.ndarray:
     return np.where(largest > 0, np.frexp(largest)[1], 0).astype(int)
 
 
-def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
+def run(loaded: LoadedData, policy: Policy, *, graph: GraphFile | None, progress: Progress,
         keep_samples: bool) -> Report:
     """One analysis, order- and unit-free: columns sorted by name and scaled by powers of two, then mapped back.
 
@@ -554,7 +554,7 @@ def _in_input_order(report: Report, loaded: LoadedData, order: list[int]) -> Rep
     return Report(data=data, samples=samples)
 
 
-def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
+def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: GraphFile | None, progress: Progress,
                    keep_samples: bool, exponents=None) -> Report:
     from preflight.seeds import working_seed
 
@@ -604,10 +604,6 @@ def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, pro
         global_flags += list(view.global_flags) + (["dependent-components"] if dependent else [])
         for j in range(p):
             var_checks[names[j]] += view.variable_checks[j]
-    elif graph is not None:
-        from preflight import graph as graphs
-
-        graphs.read_graph_file(graph, list(names))  # a bad graph file is still a usage error
 
     # ---- evidence: adjust within families across the whole table
     noise_dep = noise_dep if view is not None else {}

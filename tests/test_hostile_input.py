@@ -322,6 +322,57 @@ def test_a_bad_graph_fails_before_any_computation(tmp_path, data, monkeypatch):
     assert_one_line_error(code, err, "nowhere")
 
 
+def test_a_bad_graph_exits_2_before_screening(tmp_path, data, monkeypatch):
+    """The graph file is read with the table: a bad one stops the run before the first stage, in the CLI and the API."""
+    import preflight
+    from preflight import screen
+    from preflight.errors import InputError
+
+    class Screened(Exception):
+        pass
+
+    def screening(*args, **kwargs):
+        raise Screened
+
+    monkeypatch.setattr(screen, "screen_variables", screening)
+    cyclic = tmp_path / "cyclic.txt"
+    cyclic.write_text("a -> b\nb -> c\nc -> a\n")
+    code, _, err = run_main("check", data, "--graph", cyclic, "--jobs", "1")
+    assert_one_line_error(code, err, "graph file")
+    assert "has a cycle: a -> b -> c -> a" in err
+    with pytest.raises(InputError, match="unknown variable 'd'"):
+        (tmp_path / "unknown.csv").write_text("source,target\na,d\n")
+        preflight.check(data, graph=str(tmp_path / "unknown.csv"), jobs=1)
+    # A good graph gets past the check and into screening, where the stub stops it.
+    good = tmp_path / "good.txt"
+    good.write_text("a -> b\nb -> c\n")
+    with pytest.raises(Screened):
+        preflight.check(data, graph=str(good), jobs=1)
+
+
+def test_a_graph_file_is_read_once(tmp_path, data, monkeypatch):
+    import preflight
+    from preflight import api
+    from preflight import io as preflight_io
+
+    calls = []
+
+    def counting(path, names):
+        calls.append(path)
+        return preflight_io.read_graph(path, names)
+
+    monkeypatch.setattr(api, "read_graph", counting)
+    good = tmp_path / "good.txt"
+    good.write_text("# the chain, columns named out of order\nb -> c\na -> b\n")
+    report = preflight.check(data, graph=str(good), jobs=1, keep_samples=False)
+    assert len(calls) == 1
+    assert report.data["structure"]["adjacency"] == "hypothesised graph from good.txt"
+    given = preflight_io.read_graph(good, ["c", "a", "b"])
+    assert given.edges == (("b", "c"), ("a", "b")) and given.name == "good.txt"
+    assert given.matrix(["c", "a", "b"]).tolist() == [[0, 0, 0], [0, 0, 1], [1, 0, 0]]
+    assert given.matrix(["a", "b", "c"]).tolist() == [[0, 1, 0], [0, 0, 1], [0, 0, 0]]
+
+
 def test_fail_on_accepts_every_documented_flag(data):
     from preflight.policy import FLAGS
     from preflight.report.text import FLAG_MEANING
