@@ -179,3 +179,29 @@ def test_fit_keeps_no_state_between_checks():
     c = 0.5 * b + rng.uniform(-1, 1, 400)
     preflight.check(pd.DataFrame({"a": a, "b": b, "c": c}), seed=1, jobs=1, keep_samples=False)
     assert _mutable_globals(fit) == before == {}
+
+
+def test_pair_batteries_in_threads_equal_the_serial_ones():
+    """Nothing a battery builds is shared: four threads at once give the serial results exactly."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from preflight.battery import run_pair_battery
+    from preflight.policy import Policy
+
+    rng = np.random.default_rng(8)
+    a = rng.uniform(-1, 1, 500)
+    b = np.tanh(2 * a) + 0.3 * rng.uniform(-1, 1, 500)
+    c = a * a + 0.5 * rng.exponential(size=500)
+    d = 0.7 * b + rng.standard_t(4, 500)
+    columns = {"a": a, "b": b, "c": c, "d": d}
+    pairs = [(x, y) for x in columns for y in columns if x < y]
+    policy = Policy()
+
+    def battery(pair):
+        x, y = pair
+        return run_pair_battery(columns[x], columns[y], x, y, None, (), True, policy)
+
+    serial = [battery(pair) for pair in pairs]
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        threaded = list(pool.map(battery, pairs * 2))
+    assert threaded == serial * 2
