@@ -6,11 +6,12 @@ The CLI calls exactly this.
 
 from __future__ import annotations
 
+import os
 from collections.abc import Callable
 from dataclasses import replace
 from typing import Any
 
-from preflight.io import LoadedData, load_table
+from preflight.io import GraphFile, LoadedData, load_table, read_graph
 from preflight.policy import Policy, build_policy
 from preflight.report.model import Report
 
@@ -66,18 +67,20 @@ def check(
                                     for key, value in settings.items()})
     progress = progress or _no_progress
     loaded = load_table(data, sep=sep, columns=columns, exclude=exclude, missing=missing)
-    if graph is not None:
-        from preflight.graph import read_graph_file
-
-        read_graph_file(graph, list(loaded.names))  # a bad graph file fails before any computation
-    return analyse(loaded, policy, graph=graph, progress=progress, keep_samples=keep_samples)
+    # A bad graph file fails here, right after the table it names: before any computation.
+    given = None if graph is None else read_graph(graph, loaded.names)
+    return analyse(loaded, policy, graph=given, progress=progress, keep_samples=keep_samples)
 
 
-def analyse(loaded: LoadedData, policy: Policy, *, graph: str | None = None,
+def analyse(loaded: LoadedData, policy: Policy, *, graph: GraphFile | str | os.PathLike | None = None,
             progress: Progress = _no_progress, keep_samples: bool = True) -> Report:
+    """The analysis of a loaded table; ``graph`` is a :class:`~preflight.io.GraphFile` or the path of one."""
     from threadpoolctl import threadpool_limits
 
     from preflight import pipeline
+
+    if graph is not None and not isinstance(graph, GraphFile):
+        graph = read_graph(graph, loaded.names)
 
     # The work is thousands of small matrix products.  Threaded BLAS gains
     # little on them and, once the pair battery's worker processes share the

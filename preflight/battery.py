@@ -14,24 +14,15 @@ all pairs.
 
 from __future__ import annotations
 
-import zlib
 from dataclasses import dataclass, replace
 
 import numpy as np
 
 from preflight.evidence import Tagged, rejects, significant
-from preflight.fit import bspline_basis, ols, residualize, simple_slope, spline_df
+from preflight.fit import RegressorDesigns, bspline_basis, ols, residualize, simple_slope, spline_df
 from preflight.policy import Policy
 from preflight.results import CheckResult
-
-
-def derived_seed(seed: int, *labels: str) -> int:
-    """A seed that depends on the names involved, not on column positions.
-
-    Reordering columns therefore leaves every subsample and permutation as it was.
-    """
-    text = "\x1f".join(sorted(labels))
-    return int(np.random.SeedSequence([seed & 0xFFFFFFFF, zlib.crc32(text.encode())]).generate_state(1)[0])
+from preflight.seeds import derived_seed
 
 
 @dataclass(frozen=True)
@@ -119,7 +110,7 @@ def _degenerate(name: str, n: int, why: str) -> CheckResult:
 
 
 def _direction_checks(regressor: np.ndarray, response: np.ndarray, label: str, role: str,
-                      policy: Policy, seed: int) -> list[Tagged]:
+                      policy: Policy, seed: int, designs: RegressorDesigns) -> list[Tagged]:
     from preflight.checks.independence import hsic
     from preflight.checks.linearity import linearity_checks
     from preflight.checks.normality import normality_checks
@@ -137,9 +128,9 @@ def _direction_checks(regressor: np.ndarray, response: np.ndarray, label: str, r
     out: list[Tagged] = []
     for result in normality_checks(residual, max_n=policy.shapiro_max_n, seed=seed):
         out.append(Tagged("noise normality", role, result.with_name(f"{result.name} ({label})")))
-    for result in linearity_checks(regressor, response, max_df=policy.spline_max_df):
+    for result in linearity_checks(regressor, response, max_df=policy.spline_max_df, designs=designs):
         out.append(Tagged("linearity", role, result.with_name(f"{result.name} ({label})")))
-    for result in variance_checks(residual, regressor):
+    for result in variance_checks(residual, regressor, designs):
         out.append(Tagged("variance", role, result.with_name(f"{result.name} ({label})")))
     independence = hsic(regressor, residual, **_hsic_kwargs(policy, seed))
     out.append(Tagged("residual independence", role, independence.with_name(f"hsic ({label})")))
@@ -159,7 +150,7 @@ SPLINE_RESIDUAL = "of spline residual"
 
 
 def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, label: str, role: str,
-                            policy: Policy) -> list[Tagged]:
+                            policy: Policy, designs: RegressorDesigns | None = None) -> list[Tagged]:
     """Koenker's Breusch-Pagan and White on the residual of the spline of the spline F-test.
 
     The residual of a straight line through a curve has a spread that
@@ -169,22 +160,23 @@ def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, label: 
     Null hypothesis of both: the spline residual's variance does not depend
     on the regressor.  References: Breusch & Pagan (1979), Koenker (1981),
     White (1980).  No checks when x is too tied for quantile knots.
+    ``designs`` are the regressor's, as handed to the spline F-test.
     """
-    from preflight.checks.linearity import full_rank_columns
     from preflight.checks.variance import variance_checks
 
+    designs = RegressorDesigns.of(regressor, designs)
     n = regressor.shape[0]
     df = spline_df(n, policy.spline_max_df)
     if n < df + 2:
         return []
-    basis = bspline_basis(regressor, df)
+    basis = designs.spline_basis(df)
     if not np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8):
         return []
-    residual = ols(full_rank_columns(basis[:, 1:]), response).residuals
+    residual = ols(designs.spline_design(df), response).residuals
     return [Tagged("variance", role, replace(
         result, name=f"{result.name} {SPLINE_RESIDUAL} ({label})",
         note=f"{result.note}; residual of a cubic regression spline (df={df})"))
-        for result in variance_checks(residual, regressor)]
+        for result in variance_checks(residual, regressor, designs)]
 
 
 def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str,
@@ -229,8 +221,10 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
                                 ready=association if not conditioning else None)
     lr_value = None
     if adjacent:
-        checks += _direction_checks(xr, yr, f"{y_name} on {x_name}", "forward", policy, seed)
-        checks += _direction_checks(yr, xr, f"{x_name} on {y_name}", "reverse", policy, seed)
+        # Each direction's regressor gets its designs built once, for every check that fits on it.
+        designs = {"forward": RegressorDesigns(xr), "reverse": RegressorDesigns(yr)}
+        checks += _direction_checks(xr, yr, f"{y_name} on {x_name}", "forward", policy, seed, designs["forward"])
+        checks += _direction_checks(yr, xr, f"{x_name} on {y_name}", "reverse", policy, seed, designs["reverse"])
         lr = pairwise_likelihood_ratio(xr, yr).with_name(f"pairwise likelihood ratio ({x_name} -> {y_name} if > 0)")
         lr_value = float(lr.statistic)
         checks.append(Tagged(None, "pair", lr))
@@ -244,7 +238,7 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
             role_p = [t.result.p_value for t in checks
                       if t.family == "linearity" and t.role == role and t.result.p_value is not None]
             if role_p and rejects(min(role_p), policy.alpha):
-                checks += _spline_variance_checks(regressor, response, label, role, policy)
+                checks += _spline_variance_checks(regressor, response, label, role, policy, designs[role])
     return PairBattery(x=x_name, y=y_name, adjacent=adjacent, n=int(x.shape[0]),
                        conditioning=conditioning, checks=tuple(checks), likelihood_ratio=lr_value)
 

@@ -7,8 +7,6 @@ checks compare it with statsmodels OLS and the NIST StRD certified values.
 from __future__ import annotations
 
 import math
-import zlib
-from collections import OrderedDict
 from dataclasses import dataclass
 
 import numpy as np
@@ -143,115 +141,109 @@ def spline_df(n: int, max_df: int = 10) -> int:
     return int(min(max(round(n**0.2) + 2, 4), max_df))
 
 
-_MEMO: OrderedDict = OrderedDict()
-"""(shape, CRC of the values) -> _Remembered, least recently used first."""
-_MEMO_ENTRIES = 16
-_MEMO_BYTES = 64 * 2**20
-
-
-class _Remembered:
-    """Read-only arrays computed from one vector's values alone, by name."""
-
-    __slots__ = ("raw", "arrays", "nbytes")
-
-    def __init__(self, raw: bytes):
-        self.raw = raw
-        self.arrays: dict = {}
-        self.nbytes = len(raw)
-
-
-def remembered(x: np.ndarray, name, build) -> np.ndarray:
-    """``build(x)`` for a vector x, remembered read-only for the last few vectors seen.
-
-    ``name`` identifies the computation; ``build`` must return a new array
-    that depends on the values of x only (not on its memory layout).  A check computes the same
-    function of the same regressor many times: every pair a variable
-    belongs to, and the spline F-test and the spread of the spline residual
-    within a pair.  The entry is found by a CRC of the values and confirmed
-    by the bytes themselves, so a collision costs a recomputation, never a
-    wrong result.  At most ``_MEMO_ENTRIES`` vectors and ``_MEMO_BYTES``
-    bytes are kept.
-    """
-    x = np.asarray(x, dtype=np.float64)
-    raw = x.tobytes()
-    key = (x.shape, zlib.crc32(raw))
-    entry = _MEMO.get(key)
-    if entry is None or entry.raw != raw:
-        entry = _MEMO[key] = _Remembered(raw)
-    _MEMO.move_to_end(key)
-    value = entry.arrays.get(name)
-    if value is None:
-        value = _read_only(build(x))
-        _keep(entry, name, value)
-    return value
-
-
-def _keep(entry: _Remembered, name, value: np.ndarray) -> None:
-    entry.arrays[name] = value
-    entry.nbytes += value.nbytes
-    while len(_MEMO) > _MEMO_ENTRIES or sum(e.nbytes for e in _MEMO.values()) > _MEMO_BYTES:
-        _MEMO.popitem(last=False)
-
-
 def bspline_basis(x: np.ndarray, df: int, degree: int = 3) -> np.ndarray:
     """Cubic B-spline basis with ``df`` columns and interior knots at quantiles of x.
 
     The columns sum to one, so the basis spans the constant; callers fitting
-    with an intercept drop the first column.
-
-    The result is read-only: it is :func:`remembered`, because one pair's
-    battery builds the same basis for the spline F-test and for the spread
-    of the spline residual, and a variable is the regressor of every pair
-    it belongs to.  Copy it before writing to it.
+    with an intercept drop the first column.  A check that fits several
+    splines on one regressor takes them from a :class:`RegressorDesigns`
+    instead of calling this again.
     """
-    return remembered(x, ("bspline basis", int(df), int(degree)), lambda v: _bspline_basis(v, df, degree))
+    return _bspline_basis(np.asarray(x, dtype=np.float64), df, degree)
 
 
-def _holding(array: np.ndarray):
-    """The (entry, name) under which ``array`` itself is remembered, or (None, None)."""
-    for entry in reversed(_MEMO.values()):
-        for name, value in entry.arrays.items():
-            if value is array:
-                return entry, name
-    return None, None
+def full_rank_columns(X: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
+    """The columns of X that are linearly independent of the intercept and of each other.
 
-
-def derived_from_basis(basis: np.ndarray, name: str, build) -> np.ndarray:
-    """``build()``, an array computed from ``basis`` alone, remembered with the basis while it is remembered.
-
-    ``basis`` is an array returned by :func:`bspline_basis` and ``build``
-    returns a new array.  The basis is looked
-    up by identity, which is sound: the memo holds the object, so no other
-    array can be it, and it is read-only, so its values cannot have changed.
-    A basis no longer (or never) remembered gets ``build()`` computed afresh.
+    A pivoted QR of the centred, unit-norm columns keeps a column while its
+    pivot exceeds ``tolerance`` times the largest.  :func:`ols`'s least-squares
+    driver does not detect exact collinearity (a binary regressor and its
+    square, a spline basis on tied x) and then returns a wrong RSS and rank,
+    so designs that can repeat a direction are screened here first.
     """
-    entry, basis_name = _holding(basis)
-    if entry is None:
-        return build()
-    derived_name = (basis_name, name)
-    value = entry.arrays.get(derived_name)
-    if value is None:
-        value = _read_only(build())
-        _keep(entry, derived_name, value)
-    return value
+    from scipy.linalg import qr
+
+    X = np.asarray(X, dtype=np.float64)
+    if X.ndim == 1:
+        X = X[:, None]
+    centred = X - X.mean(axis=0)
+    norms = np.sqrt((centred**2).sum(axis=0))
+    scale = norms.max() if norms.size else 0.0
+    candidates = np.flatnonzero(norms > tolerance * max(scale, np.finfo(float).tiny))
+    if candidates.size == 0:
+        return X[:, :0]
+    # mode="raw" runs the same pivoted factorisation as "economic" and
+    # returns the same R and pivots, without forming the unused Q.
+    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="raw", pivoting=True)
+    diagonal = np.abs(np.diag(r))
+    kept = pivots[: int(np.sum(diagonal > tolerance * diagonal[0]))]
+    return X[:, np.sort(candidates[kept])]
 
 
-def basis_of_tail(view: np.ndarray) -> np.ndarray | None:
-    """The remembered basis of which ``view`` is exactly ``basis[:, 1:]``, or None.
+def white_design(regressors: np.ndarray) -> np.ndarray:
+    """Levels, squares and pairwise cross-products of the columns (no constant)."""
+    Z = np.asarray(regressors, dtype=np.float64)
+    if Z.ndim == 1:
+        Z = Z[:, None]
+    k = Z.shape[1]
+    first, second = np.triu_indices(k)
+    return np.column_stack([Z, Z[:, first] * Z[:, second]])
 
-    ``basis[:, 1:]`` is the design of a fit with intercept.
+
+class RegressorDesigns:
+    """The designs that checks fit on one regressor, each built on first use and then kept by this object.
+
+    One direction of a pair fits several models on the same regressor: the
+    spline F-test and the spread of the spline residual fit the same spline,
+    and White's test runs on the straight-line residual and on the spline
+    residual with the same design [1, x, x^2].  The caller that owns the
+    regressor builds one ``RegressorDesigns`` and hands it to each of those
+    checks, as a fitted model is handed to its diagnostics; nothing is
+    remembered anywhere else, so two checks running at once share nothing.
+
+    Every array returned is read-only (a writeable copy is one ``.copy()``
+    away) and has the memory layout the direct computation gives, so least
+    squares on it rounds exactly as on a freshly built design.
     """
-    owner = view.base
-    if owner is None or owner.flags.writeable or view.ndim != 2:
-        return None
-    start = view.__array_interface__["data"][0]
-    for entry in reversed(_MEMO.values()):
-        for name, basis in entry.arrays.items():
-            if (name[0] == "bspline basis" and basis.base is owner
-                    and view.shape == (basis.shape[0], basis.shape[1] - 1) and view.strides == basis.strides
-                    and start == basis.__array_interface__["data"][0] + basis.itemsize):
-                return basis
-    return None
+
+    __slots__ = ("values", "_built")
+
+    def __init__(self, x: np.ndarray):
+        x = np.asarray(x, dtype=np.float64)
+        if x.ndim != 1:
+            raise ValueError(f"a regressor is one-dimensional, got shape {x.shape}")
+        self.values = x
+        """The regressor the designs are built from (not copied: the owner must not write to it)."""
+        self._built: dict[tuple, np.ndarray] = {}
+
+    @classmethod
+    def of(cls, x: np.ndarray, designs: RegressorDesigns | None = None) -> RegressorDesigns:
+        """``designs`` when given, after checking they were built from the values of x; else new ones for x."""
+        if designs is None:
+            return cls(x)
+        if not (x is designs.values or (x.shape == designs.values.shape and np.array_equal(x, designs.values))):
+            raise ValueError("the designs handed to a check were built from another regressor")
+        return designs
+
+    def _kept(self, key: tuple, build) -> np.ndarray:
+        value = self._built.get(key)
+        if value is None:
+            value = self._built[key] = _read_only(build())
+        return value
+
+    def spline_basis(self, df: int, degree: int = 3) -> np.ndarray:
+        """:func:`bspline_basis` of the regressor."""
+        return self._kept(("spline basis", int(df), int(degree)),
+                          lambda: _bspline_basis(self.values, int(df), int(degree)))
+
+    def spline_design(self, df: int, tolerance: float = 1e-10) -> np.ndarray:
+        """:func:`full_rank_columns` of the cubic spline basis without its first column (the intercept's stand-in)."""
+        return self._kept(("spline design", int(df), float(tolerance)),
+                          lambda: full_rank_columns(self.spline_basis(df)[:, 1:], tolerance))
+
+    def white_design(self) -> np.ndarray:
+        """:func:`full_rank_columns` of White's design [x, x^2] of the regressor."""
+        return self._kept(("white design",), lambda: full_rank_columns(white_design(self.values)))
 
 
 def _read_only(array: np.ndarray) -> np.ndarray:

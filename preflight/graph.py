@@ -1,5 +1,5 @@
 """Graphs for the equivalence-class rung: PC-stable skeleton, v-structures,
-Meek rules, CPDAGs and user-supplied graphs.
+Meek rules and CPDAGs (a user-supplied graph file is read by :mod:`preflight.io`).
 
 Encoding (used by every function here): a graph on p nodes is an int8
 ``(p, p)`` matrix ``G``.
@@ -21,13 +21,10 @@ that settles it is stated in the function's docstring.
 
 from __future__ import annotations
 
-import csv
-import io
 import itertools
 import math
-from collections.abc import Iterable, Iterator, Mapping, Sequence
+from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass
-from pathlib import Path
 from typing import NamedTuple
 
 import numpy as np
@@ -680,42 +677,14 @@ def cpdag_from_all_separating_sets(X, adjacency, alpha: float = 0.05, max_condit
         middles = np.flatnonzero(A[a] & A[b]).tolist()
         if not middles:
             continue
-        separating = []
-        sides = ({k for k in np.flatnonzero(A[a]).tolist() if k != b},
-                 {k for k in np.flatnonzero(A[b]).tolist() if k != a})
-        largest = min(max(len(side) for side in sides), cap)
-        # Bound the work by set size only (never by position), so the bound
-        # does not depend on the column order either.
-        while largest > 0 and sum(math.comb(len(side), size) for side in sides
-                                  for size in range(largest + 1)) > MAX_SEPARATING_SUBSETS:
-            largest -= 1
-        for side in sides:
-            for size in range(0, min(len(side), largest) + 1):
-                for subset in itertools.combinations(sorted(side), size):
-                    separating.append(subset)
-        subsets = sorted(set(separating))
-        if subsets:
-            n_tests += len(subsets)
-            by_size: dict[int, list[tuple[int, ...]]] = {}
-            for subset in subsets:
-                by_size.setdefault(len(subset), []).append(subset)
-            found = []
-            for size, group in by_size.items():
-                r = _partial_correlations(corr, a, b, np.array(group, dtype=np.intp).reshape(len(group), size))
-                _, pv = _fisher_z(r, n, size)
-                found += [subset for subset, pvalue in zip(group, pv) if pvalue >= alpha]
-        else:
-            found = []
+        subsets = _candidate_separating_sets(A, a, b, cap)
+        n_tests += len(subsets)
+        found = _separating(corr, n, a, b, subsets, alpha)
         for k in middles:
-            inside = sum(k in subset for subset in found)
-            if rule == "conservative":
-                if not found or 0 < inside < len(found):
-                    ambiguous.append((a, k, b))
-                elif inside == 0:
-                    colliders.append((a, k, b))
-            elif not found or 2 * inside == len(found):
+            verdict = _collider_verdict(rule, sum(k in subset for subset in found), len(found))
+            if verdict == "ambiguous":
                 ambiguous.append((a, k, b))
-            elif 2 * inside < len(found):
+            elif verdict == "collider":
                 colliders.append((a, k, b))
     heads = {(a, k) for a, k, _ in colliders} | {(b, k) for _, k, b in colliders}
     conflicted = {(min(x, y), max(x, y)) for x, y in heads if (y, x) in heads}
@@ -724,6 +693,53 @@ def cpdag_from_all_separating_sets(X, adjacency, alpha: float = 0.05, max_condit
     for a, k, b in ambiguous:
         marks[a, k, b] = marks[b, k, a] = True
     return OrderFreeClass(_meek_closure(G, frozenset(_MEEK_RULES), marks), tuple(ambiguous), n_tests)
+
+
+def _candidate_separating_sets(A: np.ndarray, a: int, b: int, cap: int) -> list[tuple[int, ...]]:
+    """Every subset of the neighbours of a, and of those of b (each without the other), sorted, each once.
+
+    Set sizes run up to ``cap``, lowered until at most
+    ``MAX_SEPARATING_SUBSETS`` remain.
+    """
+    separating = []
+    sides = ({k for k in np.flatnonzero(A[a]).tolist() if k != b},
+             {k for k in np.flatnonzero(A[b]).tolist() if k != a})
+    largest = min(max(len(side) for side in sides), cap)
+    # Bound the work by set size only (never by position), so the bound
+    # does not depend on the column order either.
+    while largest > 0 and sum(math.comb(len(side), size) for side in sides
+                              for size in range(largest + 1)) > MAX_SEPARATING_SUBSETS:
+        largest -= 1
+    for side in sides:
+        for size in range(0, min(len(side), largest) + 1):
+            for subset in itertools.combinations(sorted(side), size):
+                separating.append(subset)
+    return sorted(set(separating))
+
+
+def _separating(corr: np.ndarray, n: int, a: int, b: int, subsets: list[tuple[int, ...]],
+                alpha: float) -> list[tuple[int, ...]]:
+    """The subsets given which a and b are not dependent (Fisher z, p >= alpha), tested size by size."""
+    by_size: dict[int, list[tuple[int, ...]]] = {}
+    for subset in subsets:
+        by_size.setdefault(len(subset), []).append(subset)
+    found: list[tuple[int, ...]] = []
+    for size, group in by_size.items():
+        r = _partial_correlations(corr, a, b, np.array(group, dtype=np.intp).reshape(len(group), size))
+        _, pv = _fisher_z(r, n, size)
+        found += [subset for subset, pvalue in zip(group, pv) if pvalue >= alpha]
+    return found
+
+
+def _collider_verdict(rule: str, inside: int, found: int) -> str | None:
+    """"collider", "ambiguous" or None (not a collider) for a middle node in ``inside`` of ``found`` separating sets."""
+    if rule == "conservative":
+        if not found or 0 < inside < found:
+            return "ambiguous"
+        return "collider" if inside == 0 else None
+    if not found or 2 * inside == found:
+        return "ambiguous"
+    return "collider" if 2 * inside < found else None
 
 
 def dag_to_cpdag(dag) -> np.ndarray:
@@ -823,129 +839,3 @@ def topological_order(dag) -> list[int]:
         assert cycle is not None  # the sort stopped early, so there is a cycle
         raise InputError(f"the graph has a cycle: {' -> '.join(str(k) for k in cycle + [cycle[0]])}")
     return order
-
-
-def _brief(names: Sequence[str], limit: int = 8) -> str:
-    shown = ", ".join(names[:limit])
-    return shown if len(names) <= limit else f"{shown}, ... ({len(names)} in all)"
-
-
-def _clip_line(text: str, limit: int = 60) -> str:
-    text = text.strip()
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
-def _unquote(name: str) -> str:
-    name = name.strip()
-    if len(name) >= 2 and name[0] == name[-1] and name[0] in "\"'":
-        return name[1:-1].strip()
-    return name
-
-
-def _first_content_line(lines: list[str]) -> str | None:
-    for raw in lines:
-        s = raw.strip()
-        if s and not s.startswith("#"):
-            return s
-    return None
-
-
-def _csv_edges(text: str, label: str) -> list[tuple[int, str, str]]:
-    reader = csv.reader(io.StringIO(text))
-    edges: list[tuple[int, str, str]] = []
-    header: list[str] | None = None
-    source_col = target_col = -1
-    try:
-        for row in reader:
-            line = reader.line_num
-            if not any(field.strip() for field in row):
-                continue
-            if header is None:
-                header = [field.strip().lower() for field in row]
-                if "source" not in header or "target" not in header:
-                    raise InputError(f"graph file {label} line {line}: the CSV header must name the columns "
-                                     f"source and target, found: {_clip_line(', '.join(header))}")
-                source_col, target_col = header.index("source"), header.index("target")
-                continue
-            if len(row) <= max(source_col, target_col):
-                raise InputError(f"graph file {label} line {line}: malformed row {_clip_line(','.join(row))!r}, "
-                                 f"expected {len(header)} fields")
-            source, target = row[source_col].strip(), row[target_col].strip()
-            if not source or not target:
-                raise InputError(f"graph file {label} line {line}: malformed row {_clip_line(','.join(row))!r}, "
-                                 "source and target must both be given")
-            edges.append((line, source, target))
-    except csv.Error as exc:
-        raise InputError(f"graph file {label} line {reader.line_num}: malformed CSV ({exc})") from None
-    return edges
-
-
-def _arrow_edges(lines: list[str], label: str) -> list[tuple[int, str, str]]:
-    edges = []
-    for line, raw in enumerate(lines, start=1):
-        s = raw.strip()
-        if not s or s.startswith("#"):
-            continue
-        parts = s.split("->")
-        if len(parts) != 2 or not _unquote(parts[0]) or not _unquote(parts[1]):
-            raise InputError(f"graph file {label} line {line}: malformed line {_clip_line(s)!r}, "
-                             "expected 'source -> target'")
-        edges.append((line, _unquote(parts[0]), _unquote(parts[1])))
-    return edges
-
-
-def read_graph_file(path, names: Sequence[str]) -> np.ndarray:
-    """Read a user's DAG over the variables ``names`` and return its int8 adjacency matrix.
-
-    Two formats: a CSV edge list whose header has the columns ``source`` and
-    ``target`` (any case, other columns ignored), or a text file with one
-    ``a -> b`` per line (blank lines and lines starting with ``#`` ignored;
-    names may be quoted).  A ``.csv`` suffix, or a first line that names
-    source and target, selects CSV.  Every problem raises
-    :class:`~preflight.errors.InputError` with a one-line message: a missing
-    file, an unknown variable, a self-loop, a malformed line (with its
-    number) or a cycle (with its nodes in order).
-    """
-    names = [str(name) for name in names]
-    index = {name: k for k, name in enumerate(names)}
-    if len(index) != len(names):
-        repeated = sorted({name for name in names if names.count(name) > 1})
-        raise InputError(f"variable names must be unique, repeated: {_brief(repeated)}")
-    path = Path(path)
-    label = str(path)
-    if not path.exists():
-        raise InputError(f"graph file not found: {label}")
-    if not path.is_file():
-        raise InputError(f"graph file {label} is not a regular file")
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except UnicodeDecodeError:
-        raise InputError(f"graph file {label} is not UTF-8 text") from None
-    except OSError as exc:
-        raise InputError(f"cannot read graph file {label}: {exc.strerror or exc}") from None
-    lines = text.splitlines()
-    first = _first_content_line(lines)
-    looks_csv = first is not None and "->" not in first and {"source", "target"} <= {
-        field.strip().lower() for field in first.split(",")}
-    if path.suffix.lower() == ".csv" or looks_csv:
-        edges = _csv_edges(text, label)
-    else:
-        edges = _arrow_edges(lines, label)
-    if not edges:
-        raise InputError(f"graph file {label} names no edge; a hypothesised graph needs at least one "
-                         "(lines 'a -> b' or a CSV with columns source,target)")
-
-    dag = np.zeros((len(names), len(names)), dtype=np.int8)
-    for line, source, target in edges:
-        for name in (source, target):
-            if name not in index:
-                raise InputError(f"graph file {label} line {line}: unknown variable {name!r}; "
-                                 f"known variables: {_brief(names)}")
-        if source == target:
-            raise InputError(f"graph file {label} line {line}: self-loop {source} -> {target}")
-        dag[index[source], index[target]] = 1
-    cycle = find_cycle(dag)
-    if cycle is not None:
-        chain = " -> ".join(names[k] for k in cycle + [cycle[0]])
-        raise InputError(f"graph file {label} has a cycle: {chain}")
-    return dag

@@ -1,4 +1,4 @@
-"""Reading and validating the input table.
+"""Reading and validating the input: the table, and the hypothesised graph of ``--graph``.
 
 Every problem a user can fix becomes an :class:`InputError` with one clear
 line; the input file is only ever opened for reading.
@@ -13,7 +13,9 @@ import numbers
 import os
 import re
 import sys
+from collections.abc import Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -284,30 +286,63 @@ def load_table(
 
     if missing not in ("drop", "error"):
         raise InputError(f"--missing must be 'drop' or 'error', got {missing!r}")
-    if isinstance(source, pd.DataFrame):
-        frame = source
-        label = "the DataFrame"
-        path = "<DataFrame>"
-        digest = None
-        _refuse_duplicates([str(c) for c in frame.columns], label)
-        frame = frame.copy(deep=False)
-        frame.columns = [str(c) for c in frame.columns]
-    else:
-        path = str(source)
-        label = "standard input" if path == "-" else path
-        raw = _read_source_bytes(path)
-        digest = sha256_of(raw)
-        if not raw.strip():
-            raise InputError(f"{label} is empty")
-        if path.lower().endswith(PARQUET_EXTENSIONS) or raw[:4] == PARQUET_MAGIC:
-            frame = _frame_from_parquet(raw, label)
-        else:
-            frame = _frame_from_text(_decode_text(raw, label), _choose_separator(path, sep), label)
+    frame, label, path, digest = _read_frame(source, sep)
     rows = int(frame.shape[0])
     if rows == 0:
         raise InputError(f"{label} has a header but no data rows")
-
     names = list(frame.columns)
+    chosen, asked = _chosen_columns(names, columns, exclude, label)
+    warnings: list[str] = []
+    numeric, converted, stray_by_column = _numeric_columns(frame, chosen, asked is not None, warnings)
+    if len(numeric) < 2:
+        found = f"found {len(numeric)}" + (f" ({numeric[0]})" if numeric else "")
+        hint = _separator_hint(names, _choose_separator(path, sep)) if not isinstance(source, pd.DataFrame) else ""
+        raise InputError(f"{label} needs at least 2 numeric columns to analyse, {found}{hint}")
+    values, missing_by_column = _complete_rows(np.column_stack([converted[name] for name in numeric]), numeric,
+                                               missing, stray_by_column, warnings)
+    if values.shape[0] == 0:
+        raise InputError(f"{label}: no row is complete in the analysed columns")
+    if values.shape[0] < MIN_ROWS:
+        raise InputError(f"{label} has only {values.shape[0]} usable row(s); at least {MIN_ROWS} are needed")
+    return LoadedData(
+        values=np.ascontiguousarray(values),
+        names=tuple(numeric),
+        path=path,
+        sha256=digest,
+        rows=rows,
+        rows_used=int(values.shape[0]),
+        missing_by_column=missing_by_column,
+        warnings=tuple(warnings),
+        stray_by_column=stray_by_column,
+    )
+
+
+def _read_frame(source, sep: str | None):
+    """(frame with string column names, label for messages, path for the report, SHA-256 of the bytes or None)."""
+    import pandas as pd
+
+    if isinstance(source, pd.DataFrame):
+        label = "the DataFrame"
+        _refuse_duplicates([str(c) for c in source.columns], label)
+        frame = source.copy(deep=False)
+        frame.columns = [str(c) for c in frame.columns]
+        return frame, label, "<DataFrame>", None
+    path = str(source)
+    label = "standard input" if path == "-" else path
+    raw = _read_source_bytes(path)
+    digest = sha256_of(raw)
+    if not raw.strip():
+        raise InputError(f"{label} is empty")
+    if path.lower().endswith(PARQUET_EXTENSIONS) or raw[:4] == PARQUET_MAGIC:
+        frame = _frame_from_parquet(raw, label)
+    else:
+        frame = _frame_from_text(_decode_text(raw, label), _choose_separator(path, sep), label)
+    return frame, label, path, digest
+
+
+def _chosen_columns(names: list[str], columns: list[str] | None, exclude: list[str] | None,
+                    label: str) -> tuple[list[str], list[str] | None]:
+    """(the columns to analyse, in order; the columns asked for by name, or None)."""
     asked = [c.strip() for c in columns] if columns else None
     for option, listed in (("--columns", asked), ("--exclude", exclude)):
         for name in listed or []:
@@ -318,16 +353,22 @@ def load_table(
     if asked is not None:
         _refuse_duplicates(asked, "--columns")
     chosen = asked if asked is not None else names
-    chosen = [c for c in chosen if c not in set(exclude or [])]
+    return [c for c in chosen if c not in set(exclude or [])], asked
 
-    warnings: list[str] = []
+
+def _numeric_columns(frame, chosen: list[str], asked: bool,
+                     warnings: list[str]) -> tuple[list[str], dict[str, np.ndarray], dict[str, int]]:
+    """(numeric column names, their float64 values, stray cells per column); text columns skipped with a warning.
+
+    A text column asked for by name (``asked``) is an error instead.
+    """
     numeric: list[str] = []
     converted: dict[str, np.ndarray] = {}
     stray_by_column: dict[str, int] = {}
     for name in chosen:
         parsed, stray, example = _as_numbers(frame[name], name)
         if parsed is None:
-            if asked is not None:
+            if asked:
                 raise InputError(f"column {name!r} is not numeric{example}")
             warnings.append(f"skipped non-numeric column {name!r}{example}")
             continue
@@ -337,12 +378,16 @@ def load_table(
             stray_by_column[name] = stray
             warnings.append(f"column {name!r}: {stray} cell(s) that are not numbers{example} "
                             "treated as missing values")
-    if len(numeric) < 2:
-        found = f"found {len(numeric)}" + (f" ({numeric[0]})" if numeric else "")
-        hint = _separator_hint(names, _choose_separator(path, sep)) if not isinstance(source, pd.DataFrame) else ""
-        raise InputError(f"{label} needs at least 2 numeric columns to analyse, {found}{hint}")
+    return numeric, converted, stray_by_column
 
-    values = np.column_stack([converted[name] for name in numeric])
+
+def _complete_rows(values: np.ndarray, numeric: list[str], missing: str, stray_by_column: dict[str, int],
+                   warnings: list[str]) -> tuple[np.ndarray, dict[str, int]]:
+    """(the rows without a missing value, missing values per column); infinite values are refused.
+
+    With ``missing="error"`` a missing value is refused too.
+    """
+    rows = values.shape[0]
     infinite = np.isinf(values)
     if infinite.any():
         j = int(np.flatnonzero(infinite.any(axis=0))[0])
@@ -362,18 +407,163 @@ def load_table(
         keep = ~is_missing.any(axis=1)
         values = values[keep]
         warnings.append(f"dropped {rows - int(keep.sum())} of {rows} rows with missing values")
-    if values.shape[0] == 0:
-        raise InputError(f"{label}: no row is complete in the analysed columns")
-    if values.shape[0] < MIN_ROWS:
-        raise InputError(f"{label} has only {values.shape[0]} usable row(s); at least {MIN_ROWS} are needed")
-    return LoadedData(
-        values=np.ascontiguousarray(values),
-        names=tuple(numeric),
-        path=path,
-        sha256=digest,
-        rows=rows,
-        rows_used=int(values.shape[0]),
-        missing_by_column=missing_by_column,
-        warnings=tuple(warnings),
-        stray_by_column=stray_by_column,
-    )
+    return values, missing_by_column
+
+
+# ---------------------------------------------------------------------------- graph files
+
+
+@dataclass(frozen=True)
+class GraphFile:
+    """A hypothesised DAG read from a file: its edges by variable name, checked against the table's columns."""
+
+    path: str
+    edges: tuple[tuple[str, str], ...]
+    """(source, target) pairs, in the file's order."""
+
+    @property
+    def name(self) -> str:
+        """The file's name without its folder, as the report shows it."""
+        return os.path.basename(self.path)
+
+    def matrix(self, names: Sequence[str]) -> np.ndarray:
+        """The int8 adjacency matrix of the DAG over ``names`` (the table's columns in any order)."""
+        index = {str(name): k for k, name in enumerate(names)}
+        dag = np.zeros((len(index), len(index)), dtype=np.int8)
+        for source, target in self.edges:
+            dag[index[source], index[target]] = 1
+        return dag
+
+
+def _brief(names: Sequence[str], limit: int = 8) -> str:
+    shown = ", ".join(names[:limit])
+    return shown if len(names) <= limit else f"{shown}, ... ({len(names)} in all)"
+
+
+def _clip_line(text: str, limit: int = 60) -> str:
+    text = text.strip()
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _unquote(name: str) -> str:
+    name = name.strip()
+    if len(name) >= 2 and name[0] == name[-1] and name[0] in "\"'":
+        return name[1:-1].strip()
+    return name
+
+
+def _first_content_line(lines: list[str]) -> str | None:
+    for raw in lines:
+        s = raw.strip()
+        if s and not s.startswith("#"):
+            return s
+    return None
+
+
+def _csv_edges(text: str, label: str) -> list[tuple[int, str, str]]:
+    reader = csv.reader(io.StringIO(text))
+    edges: list[tuple[int, str, str]] = []
+    header: list[str] | None = None
+    source_col = target_col = -1
+    try:
+        for row in reader:
+            line = reader.line_num
+            if not any(field.strip() for field in row):
+                continue
+            if header is None:
+                header = [field.strip().lower() for field in row]
+                if "source" not in header or "target" not in header:
+                    raise InputError(f"graph file {label} line {line}: the CSV header must name the columns "
+                                     f"source and target, found: {_clip_line(', '.join(header))}")
+                source_col, target_col = header.index("source"), header.index("target")
+                continue
+            if len(row) <= max(source_col, target_col):
+                raise InputError(f"graph file {label} line {line}: malformed row {_clip_line(','.join(row))!r}, "
+                                 f"expected {len(header)} fields")
+            source, target = row[source_col].strip(), row[target_col].strip()
+            if not source or not target:
+                raise InputError(f"graph file {label} line {line}: malformed row {_clip_line(','.join(row))!r}, "
+                                 "source and target must both be given")
+            edges.append((line, source, target))
+    except csv.Error as exc:
+        raise InputError(f"graph file {label} line {reader.line_num}: malformed CSV ({exc})") from None
+    return edges
+
+
+def _arrow_edges(lines: list[str], label: str) -> list[tuple[int, str, str]]:
+    edges = []
+    for line, raw in enumerate(lines, start=1):
+        s = raw.strip()
+        if not s or s.startswith("#"):
+            continue
+        parts = s.split("->")
+        if len(parts) != 2 or not _unquote(parts[0]) or not _unquote(parts[1]):
+            raise InputError(f"graph file {label} line {line}: malformed line {_clip_line(s)!r}, "
+                             "expected 'source -> target'")
+        edges.append((line, _unquote(parts[0]), _unquote(parts[1])))
+    return edges
+
+
+def read_graph(path, names: Sequence[str]) -> GraphFile:
+    """Read a user's DAG over the variables ``names``, checked against them.
+
+    Two formats: a CSV edge list whose header has the columns ``source`` and
+    ``target`` (any case, other columns ignored), or a text file with one
+    ``a -> b`` per line (blank lines and lines starting with ``#`` ignored;
+    names may be quoted).  A ``.csv`` suffix, or a first line that names
+    source and target, selects CSV.  Every problem raises
+    :class:`~preflight.errors.InputError` with a one-line message: a missing
+    file, an unknown variable, a self-loop, a malformed line (with its
+    number) or a cycle (with its nodes in order).  ``preflight.check`` and
+    the CLI call it right after loading the table, before any computation.
+    """
+    from preflight.graph import find_cycle
+
+    names = [str(name) for name in names]
+    index = {name: k for k, name in enumerate(names)}
+    if len(index) != len(names):
+        repeated = sorted({name for name in names if names.count(name) > 1})
+        raise InputError(f"variable names must be unique, repeated: {_brief(repeated)}")
+    path = Path(path)
+    label = str(path)
+    if not path.exists():
+        raise InputError(f"graph file not found: {label}")
+    if not path.is_file():
+        raise InputError(f"graph file {label} is not a regular file")
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError:
+        raise InputError(f"graph file {label} is not UTF-8 text") from None
+    except OSError as exc:
+        raise InputError(f"cannot read graph file {label}: {exc.strerror or exc}") from None
+    lines = text.splitlines()
+    first = _first_content_line(lines)
+    looks_csv = first is not None and "->" not in first and {"source", "target"} <= {
+        field.strip().lower() for field in first.split(",")}
+    if path.suffix.lower() == ".csv" or looks_csv:
+        edges = _csv_edges(text, label)
+    else:
+        edges = _arrow_edges(lines, label)
+    if not edges:
+        raise InputError(f"graph file {label} names no edge; a hypothesised graph needs at least one "
+                         "(lines 'a -> b' or a CSV with columns source,target)")
+
+    for line, source, target in edges:
+        for name in (source, target):
+            if name not in index:
+                raise InputError(f"graph file {label} line {line}: unknown variable {name!r}; "
+                                 f"known variables: {_brief(names)}")
+        if source == target:
+            raise InputError(f"graph file {label} line {line}: self-loop {source} -> {target}")
+    given = GraphFile(path=label, edges=tuple((source, target) for _, source, target in edges))
+    dag = given.matrix(names)
+    cycle = find_cycle(dag)
+    if cycle is not None:
+        chain = " -> ".join(names[k] for k in cycle + [cycle[0]])
+        raise InputError(f"graph file {label} has a cycle: {chain}")
+    return given
+
+
+def read_graph_file(path, names: Sequence[str]) -> np.ndarray:
+    """The int8 adjacency matrix over ``names`` of the DAG in a graph file (see :func:`read_graph`)."""
+    return read_graph(path, names).matrix(names)

@@ -20,17 +20,17 @@ from preflight.battery import (
     PairBattery,
     PairFindings,
     SharedAssociation,
-    derived_seed,
     judge_pair,
     run_pair_battery,
     with_noise_dependence,
 )
 from preflight.evidence import Tagged, adjust_named_groups, significant
-from preflight.io import LoadedData
+from preflight.io import GraphFile, LoadedData
 from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
 from preflight.results import CheckResult
 from preflight.rules import RulesOutcome, evaluate, meets
+from preflight.seeds import derived_seed
 from preflight.stages import (
     Computed,
     Conclusion,
@@ -50,7 +50,7 @@ from preflight.stages import (
 Progress = Callable[[str, int, int], None]
 
 
-def run(loaded: LoadedData, policy: Policy, *, graph: str | None, progress: Progress,
+def run(loaded: LoadedData, policy: Policy, *, graph: GraphFile | None, progress: Progress,
         keep_samples: bool) -> Report:
     """One analysis, order- and unit-free: columns sorted by name and scaled by powers of two, then mapped back.
 
@@ -120,7 +120,7 @@ def _tag_noise_dependence(results: list[CheckResult], names, pairs, progress: Pr
 
 def _canonical_table(loaded: LoadedData, policy: Policy) -> Table:
     """The columns sorted by name (:func:`canonical_columns`) and scaled by powers of two (:func:`unit_exponents`)."""
-    from preflight.policy import working_seed
+    from preflight.seeds import working_seed
 
     names = loaded.names
     order = canonical_columns(names)
@@ -171,13 +171,9 @@ def _screen(table: Table) -> Screen:
 
 # ---------------------------------------------------------------- structure, skeleton, pair plan, batteries
 
-def _compute(table: Table, screen: Screen, graph: str | None, progress: Progress) -> Computed:
+def _compute(table: Table, screen: Screen, graph: GraphFile | None, progress: Progress) -> Computed:
     """Every raw check of the analysis, in worker processes when the table is large enough."""
     if screen.void:
-        if graph is not None:
-            from preflight import graph as graphs
-
-            graphs.read_graph_file(graph, list(table.names))  # a bad graph file is still a usage error
         p = len(table.names)
         return Computed(structure=None, skeleton=Skeleton(
             estimated=np.zeros((p, p), dtype=bool), cpdag=np.zeros((p, p), dtype=np.int8),
@@ -195,7 +191,7 @@ def _compute(table: Table, screen: Screen, graph: str | None, progress: Progress
     return computed
 
 
-def _analyse_table(table: Table, graph: str | None, progress: Progress, pool) -> Computed:
+def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, pool) -> Computed:
     """Structural view, skeleton, every pair's battery, the noise dependence and the whole-table screens."""
     X, names, policy = table.values, table.names, table.policy
     whole = pool.submit(_whole_table_task, policy) if pool is not None else None
@@ -285,7 +281,7 @@ def _whole_table_task(policy: Policy) -> WholeTable:
     return _whole_table_screens(_WORKER["X"], policy)
 
 
-def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str | None) -> Skeleton:
+def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: GraphFile | None) -> Skeleton:
     """Adjacency matrix and CPDAG; from the user's graph or estimated by PC-stable.
 
     The estimated skeleton rests only on partial correlations, which stay
@@ -297,9 +293,9 @@ def _adjacency(X: np.ndarray, names: tuple[str, ...], policy: Policy, graph: str
     from preflight import graph as graphs
 
     if graph is not None:
-        dag = graphs.read_graph_file(graph, list(names))
+        dag = graph.matrix(names)
         return Skeleton(estimated=(dag + dag.T) > 0, cpdag=graphs.dag_to_cpdag(dag),
-                        source="hypothesised graph from " + os.path.basename(graph))
+                        source="hypothesised graph from " + graph.name)
     skeleton = graphs.pc_stable_skeleton(X, alpha=policy.alpha)
     adjacency = np.array(skeleton.adjacency, dtype=bool)
     # The first separating set depends on the column order; the columns

@@ -40,24 +40,6 @@ ALPHA_MAX = 0.5
 """Largest significance level accepted: above it a test rejects more often than not under its null."""
 
 
-SEED_LIMIT = 2**32
-"""Random generators (FastICA's among them) take seeds below this."""
-
-
-def working_seed(seed: int) -> int:
-    """The seed the random generators get for a policy seed.
-
-    Seeds below ``SEED_LIMIT`` are used as they are, so their reports never
-    change; a larger one is mapped through numpy's SeedSequence to a 32-bit
-    seed, so any whole number of 0 or more can be given.
-    """
-    if seed < SEED_LIMIT:
-        return seed
-    import numpy as np
-
-    return int(np.random.SeedSequence(seed).generate_state(1)[0])
-
-
 def level_rank(level: str) -> int:
     """0 for the strongest rung; larger is weaker."""
     return LEVELS.index(level)

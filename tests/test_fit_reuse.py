@@ -1,8 +1,10 @@
-"""Remembered and shortened computations in preflight.fit give exactly the values of the direct ones.
+"""Designs built once per regressor (preflight.fit.RegressorDesigns) give exactly the values of the direct ones.
 
-Reports must not change by a bit when a spline basis comes from the cache
-or when SciPy's design matrix is asked for without its Python-level bounds
-scan, so everything here compares bit patterns, not tolerances.
+Reports must not change by a bit when a spline basis or a full-rank design is
+handed to a check instead of rebuilt inside it, or when SciPy's design
+matrix is asked for without its Python-level bounds scan, so everything here
+compares bit patterns, not tolerances.  No design is remembered anywhere but
+in the object the caller holds.
 """
 
 from __future__ import annotations
@@ -12,10 +14,11 @@ import pytest
 from scipy.interpolate import BSpline
 
 from preflight import fit
+from preflight.checks import linearity, variance
 
 
 def _checked_basis(x, df, degree=3):
-    """The basis as built before the cache: quantile knots, design_matrix with extrapolate=False."""
+    """The basis as SciPy's checked path builds it: quantile knots, design_matrix with extrapolate=False."""
     x = np.asarray(x, dtype=np.float64)
     lo, hi = float(x.min()), float(x.max())
     n_interior = df - degree - 1
@@ -45,146 +48,160 @@ def _regressors():
     }
 
 
+def _same_bits(a: np.ndarray, b: np.ndarray) -> bool:
+    return a.shape == b.shape and a.dtype == b.dtype and np.array_equal(a.view(np.int64), b.view(np.int64))
+
+
 @pytest.mark.parametrize("name", list(_regressors()))
 @pytest.mark.parametrize("df", [4, 5, 7, 10])
 def test_basis_equals_the_checked_design_matrix_bit_for_bit(name, df):
     x = _regressors()[name]
     expected = _checked_basis(x, df)
-    fit._MEMO.clear()
-    first = fit.bspline_basis(x, df)
-    again = fit.bspline_basis(x.copy(), df)  # equal content, another array: served from the cache
-    assert again is first or np.shares_memory(again, first)
-    for got in (first, again):
-        assert got.shape == expected.shape and got.dtype == expected.dtype
-        assert np.array_equal(got.view(np.int64), expected.view(np.int64))
+    designs = fit.RegressorDesigns(x)
+    first = designs.spline_basis(df)
+    assert designs.spline_basis(df) is first  # built once, then handed out again
+    for got in (fit.bspline_basis(x, df), first):
+        assert _same_bits(got, expected)
 
 
-def test_cached_basis_cannot_be_written_or_made_writeable():
+def test_designs_cannot_be_written_or_made_writeable():
     x = _regressors()["normal"]
-    basis = fit.bspline_basis(x, 7)
-    reference = basis.copy()
-    with pytest.raises(ValueError):
-        basis[0, 0] = 5.0
-    with pytest.raises(ValueError):
-        basis.flags.writeable = True
-    with pytest.raises(ValueError):
-        basis[:, 1:] *= 2.0
-    assert np.array_equal(fit.bspline_basis(x, 7), reference)
+    designs = fit.RegressorDesigns(x)
+    for array in (designs.spline_basis(7), designs.spline_design(7), designs.white_design()):
+        reference = array.copy()
+        with pytest.raises(ValueError):
+            array[0, 0] = 5.0
+        with pytest.raises(ValueError):
+            array.flags.writeable = True
+        with pytest.raises(ValueError):
+            array[:, 1:] *= 2.0
+        assert np.array_equal(array, reference)
+    # The plain function returns a fresh array the caller owns.
+    assert fit.bspline_basis(x, 7).flags.writeable
 
 
-def test_cache_tells_apart_regressors_df_and_degree():
+def test_designs_tell_apart_df_degree_and_regressors():
     rng = np.random.default_rng(3)
     x = rng.normal(size=500)
     y = x.copy()
     y[17] = np.nextafter(y[17], np.inf)  # one ulp apart in one value
-    fit._MEMO.clear()
-    bases = {(name, df, degree): fit.bspline_basis(v, df, degree)
-             for name, v in (("x", x), ("y", y)) for df in (5, 6) for degree in (2, 3)}
-    for (name, df, degree), basis in bases.items():
-        assert np.array_equal(basis, _checked_basis(x if name == "x" else y, df, degree))
-    assert not np.array_equal(bases[("x", 6, 3)], bases[("y", 6, 3)])
-    assert len(fit._MEMO) == 2 and all(len(entry.arrays) == 4 for entry in fit._MEMO.values())
-
-
-def test_cache_stays_bounded(monkeypatch):
-    rng = np.random.default_rng(4)
-    fit._MEMO.clear()
-    for _ in range(3 * fit._MEMO_ENTRIES):
-        fit.bspline_basis(rng.normal(size=300), 6)
-    assert len(fit._MEMO) == fit._MEMO_ENTRIES
-    # Old entries go when the bytes run out; a basis larger than the whole
-    # budget is computed but not kept.
-    monkeypatch.setattr(fit, "_MEMO_BYTES", 2**20)
-    fit.bspline_basis(rng.normal(size=20_000), 4)
-    assert sum(entry.nbytes for entry in fit._MEMO.values()) <= fit._MEMO_BYTES
-    x = rng.normal(size=40_000)
-    large = fit.bspline_basis(x, 4)
-    assert large.nbytes > fit._MEMO_BYTES and len(fit._MEMO) == 0
-    assert np.array_equal(large, _checked_basis(x, 4))
+    designs = {"x": fit.RegressorDesigns(x), "y": fit.RegressorDesigns(y)}
+    for name, values in (("x", x), ("y", y)):
+        for df in (5, 6):
+            for degree in (2, 3):
+                assert _same_bits(designs[name].spline_basis(df, degree), _checked_basis(values, df, degree))
+    assert not np.array_equal(designs["x"].spline_basis(6), designs["y"].spline_basis(6))
+    with pytest.raises(ValueError, match="another regressor"):
+        fit.RegressorDesigns.of(y, designs["x"])
+    with pytest.raises(ValueError, match="another regressor"):
+        linearity.linearity_checks(y, np.sin(y) + rng.normal(size=500), designs=designs["x"])
+    assert fit.RegressorDesigns.of(x.copy(), designs["x"]) is designs["x"]
 
 
 def test_too_small_df_still_raises():
     with pytest.raises(ValueError, match="df must be at least"):
         fit.bspline_basis(np.arange(10.0), 3)
+    with pytest.raises(ValueError, match="df must be at least"):
+        fit.RegressorDesigns(np.arange(10.0)).spline_basis(3)
 
 
-def test_design_derived_from_a_cached_basis_is_the_fresh_one_bit_for_bit():
-    from preflight.checks.linearity import full_rank_columns
-
+def test_spline_design_is_the_fresh_full_rank_selection_bit_for_bit():
     rng = np.random.default_rng(5)
-    fit._MEMO.clear()
     for x in (rng.normal(size=3000), np.round(rng.normal(size=3000), 1), rng.integers(0, 5, 800).astype(float)):
         y = np.sin(x) + rng.normal(size=x.shape[0])
-        basis = fit.bspline_basis(x, 8)
-        fresh = full_rank_columns(basis[:, 1:])
-        calls = []
-
-        def build():
-            calls.append(1)
-            return full_rank_columns(basis[:, 1:])
-
-        derived = fit.derived_from_basis(basis, "design", build)
-        assert fit.derived_from_basis(fit.bspline_basis(x.copy(), 8), "design", build) is derived
-        assert len(calls) == 1
+        designs = fit.RegressorDesigns(x)
+        fresh = fit.full_rank_columns(fit.bspline_basis(x, 8)[:, 1:])
+        handed = designs.spline_design(8)
+        assert designs.spline_design(8) is handed
         # Same values and the same memory layout, so least squares on it rounds the same way.
-        assert derived.strides == fresh.strides and np.array_equal(derived, fresh)
-        assert not derived.flags.writeable
-        with pytest.raises(ValueError):
-            derived.flags.writeable = True
-        expected, got = fit.ols(fresh, y), fit.ols(derived, y)
+        assert handed.strides == fresh.strides and _same_bits(handed, fresh)
+        expected, got = fit.ols(fresh, y), fit.ols(handed, y)
         assert got.rss == expected.rss and got.rank == expected.rank
         assert np.array_equal(got.residuals, expected.residuals) and np.array_equal(got.coef, expected.coef)
 
 
-def test_design_of_an_uncached_basis_is_built_each_time():
-    x = np.random.default_rng(6).normal(size=400)
-    basis = fit.bspline_basis(x, 6)
-    fit._MEMO.clear()
-    calls = []
-
-    def build():
-        calls.append(1)
-        return basis[:, 1:] * 1.0
-
-    first = fit.derived_from_basis(basis, "design", build)
-    second = fit.derived_from_basis(basis, "design", build)
-    assert len(calls) == 2 and first is not second and first.flags.writeable
-    assert len(fit._MEMO) == 0
-
-
-def test_full_rank_columns_of_a_cached_basis_tail_is_remembered_and_exact():
-    from preflight.checks.linearity import _full_rank_columns, full_rank_columns
-
-    rng = np.random.default_rng(7)
-    fit._MEMO.clear()
-    x = np.round(rng.normal(size=2500), 1)
-    basis = fit.bspline_basis(x, 9)
-    first = full_rank_columns(basis[:, 1:])
-    again = full_rank_columns(fit.bspline_basis(x.copy(), 9)[:, 1:])
-    fresh = _full_rank_columns(basis[:, 1:].copy(), 1e-10)
-    assert again is first and not first.flags.writeable
-    assert first.strides == fresh.strides and np.array_equal(first, fresh)
-    # Anything that is not exactly basis[:, 1:] of a cached basis is computed afresh.
-    assert fit.basis_of_tail(basis[:, 1:]) is basis
-    for other in (basis[:, 1:].copy(), basis[:, 2:], basis[1:, 1:], basis[:, :-1], basis[:, 1::2]):
-        assert fit.basis_of_tail(other) is None
-        assert full_rank_columns(other).flags.writeable
-    fit._MEMO.clear()
-    assert fit.basis_of_tail(basis[:, 1:]) is None
-
-
-def test_white_test_with_a_remembered_design_equals_the_direct_one():
-    from preflight.checks import variance
-
+def test_checks_given_designs_equal_the_checks_building_their_own():
     rng = np.random.default_rng(9)
-    fit._MEMO.clear()
     for x in (rng.normal(size=3000), rng.integers(0, 2, 3000).astype(float), rng.exponential(size=3000)):
-        for _ in range(2):  # the second time from the memo
+        designs = fit.RegressorDesigns(x)
+        y = np.tanh(x) + rng.normal(size=x.shape[0]) * (1.0 + 0.3 * np.abs(x))
+        assert linearity.linearity_checks(x, y, designs=designs) == linearity.linearity_checks(x, y)
+        for _ in range(2):  # the second time the design is the one already built
             e = rng.normal(size=x.shape[0]) * (1.0 + 0.3 * np.abs(x))
-            remembered = variance.variance_checks(e, x)[1]
-            direct = variance.white_test(e, x)
-            assert remembered == direct
-    # A strided view of the same values gets the same remembered design.
+            assert variance.variance_checks(e, x, designs) == variance.variance_checks(e, x)
+            assert variance.variance_checks(e, x, designs)[1] == variance.white_test(e, x)
+    # A strided view of the same values is the same regressor.
     table = np.column_stack([x, x])
     e = rng.normal(size=x.shape[0])
-    assert variance.variance_checks(e, table[:, 1])[1] == variance.white_test(e, x)
+    assert variance.variance_checks(e, table[:, 1], designs)[1] == variance.white_test(e, x)
+
+
+def test_one_direction_builds_each_design_once(monkeypatch):
+    """The pair battery hands one RegressorDesigns per direction to the spline F-test and the spline spread."""
+    from preflight.battery import _direction_checks, _spline_variance_checks
+    from preflight.policy import Policy
+
+    built = []
+    original = fit._bspline_basis
+
+    def counting(x, df, degree):
+        built.append((df, degree))
+        return original(x, df, degree)
+
+    monkeypatch.setattr(fit, "_bspline_basis", counting)
+    rng = np.random.default_rng(12)
+    x = rng.uniform(-2, 2, size=600)
+    y = x**3 + rng.uniform(-1, 1, size=600)
+    designs = fit.RegressorDesigns(x)
+    policy = Policy()
+    direction = _direction_checks(x, y, "y on x", "forward", policy, 1, designs)
+    spread = _spline_variance_checks(x, y, "y on x", "forward", policy, designs)
+    assert len(built) == 1 and len(spread) == 2 and direction
+    # Without designs handed over, the spline spread builds its own basis, with the same results.
+    assert _spline_variance_checks(x, y, "y on x", "forward", policy) == spread
+    assert len(built) == 2
+
+
+def _mutable_globals(module) -> dict[str, int]:
+    return {name: len(value) for name, value in vars(module).items()
+            if isinstance(value, (dict, list, set)) and not name.startswith("__")}
+
+
+def test_fit_keeps_no_state_between_checks():
+    import pandas as pd
+
+    import preflight
+
+    before = _mutable_globals(fit)
+    rng = np.random.default_rng(2)
+    a = rng.uniform(-1, 1, 400)
+    b = a**3 + 0.3 * rng.uniform(-1, 1, 400)
+    c = 0.5 * b + rng.uniform(-1, 1, 400)
+    preflight.check(pd.DataFrame({"a": a, "b": b, "c": c}), seed=1, jobs=1, keep_samples=False)
+    assert _mutable_globals(fit) == before == {}
+
+
+def test_pair_batteries_in_threads_equal_the_serial_ones():
+    """Nothing a battery builds is shared: four threads at once give the serial results exactly."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    from preflight.battery import run_pair_battery
+    from preflight.policy import Policy
+
+    rng = np.random.default_rng(8)
+    a = rng.uniform(-1, 1, 500)
+    b = np.tanh(2 * a) + 0.3 * rng.uniform(-1, 1, 500)
+    c = a * a + 0.5 * rng.exponential(size=500)
+    d = 0.7 * b + rng.standard_t(4, 500)
+    columns = {"a": a, "b": b, "c": c, "d": d}
+    pairs = [(x, y) for x in columns for y in columns if x < y]
+    policy = Policy()
+
+    def battery(pair):
+        x, y = pair
+        return run_pair_battery(columns[x], columns[y], x, y, None, (), True, policy)
+
+    serial = [battery(pair) for pair in pairs]
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        threaded = list(pool.map(battery, pairs * 2))
+    assert threaded == serial * 2

@@ -26,11 +26,11 @@ from preflight.graph import (
     partial_correlation_test,
     pc_stable_skeleton,
     pc_stable_skeleton_from_correlation,
-    read_graph_file,
     topological_order,
     v_structure_conflicts,
     v_structures,
 )
+from preflight.io import read_graph_file
 
 # ---------------------------------------------------------------------------
 # helpers

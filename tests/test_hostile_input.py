@@ -285,7 +285,7 @@ def test_very_long_names_are_cut_in_plots(tmp_path):
 
 
 def test_seeds_outside_32_bits_are_accepted_and_smaller_seeds_unchanged(tmp_path, data):
-    from preflight.policy import SEED_LIMIT, working_seed
+    from preflight.seeds import SEED_LIMIT, working_seed
 
     for seed in (0, 1, 20261202, SEED_LIMIT - 1):
         assert working_seed(seed) == seed
@@ -320,6 +320,57 @@ def test_a_bad_graph_fails_before_any_computation(tmp_path, data, monkeypatch):
     (tmp_path / "g.txt").write_text("a -> nowhere\n")
     code, _, err = run_main("check", data, "--graph", tmp_path / "g.txt")
     assert_one_line_error(code, err, "nowhere")
+
+
+def test_a_bad_graph_exits_2_before_screening(tmp_path, data, monkeypatch):
+    """The graph file is read with the table: a bad one stops the run before the first stage, in the CLI and the API."""
+    import preflight
+    from preflight import screen
+    from preflight.errors import InputError
+
+    class Screened(Exception):
+        pass
+
+    def screening(*args, **kwargs):
+        raise Screened
+
+    monkeypatch.setattr(screen, "screen_variables", screening)
+    cyclic = tmp_path / "cyclic.txt"
+    cyclic.write_text("a -> b\nb -> c\nc -> a\n")
+    code, _, err = run_main("check", data, "--graph", cyclic, "--jobs", "1")
+    assert_one_line_error(code, err, "graph file")
+    assert "has a cycle: a -> b -> c -> a" in err
+    with pytest.raises(InputError, match="unknown variable 'd'"):
+        (tmp_path / "unknown.csv").write_text("source,target\na,d\n")
+        preflight.check(data, graph=str(tmp_path / "unknown.csv"), jobs=1)
+    # A good graph gets past the check and into screening, where the stub stops it.
+    good = tmp_path / "good.txt"
+    good.write_text("a -> b\nb -> c\n")
+    with pytest.raises(Screened):
+        preflight.check(data, graph=str(good), jobs=1)
+
+
+def test_a_graph_file_is_read_once(tmp_path, data, monkeypatch):
+    import preflight
+    from preflight import api
+    from preflight import io as preflight_io
+
+    calls = []
+
+    def counting(path, names):
+        calls.append(path)
+        return preflight_io.read_graph(path, names)
+
+    monkeypatch.setattr(api, "read_graph", counting)
+    good = tmp_path / "good.txt"
+    good.write_text("# the chain, columns named out of order\nb -> c\na -> b\n")
+    report = preflight.check(data, graph=str(good), jobs=1, keep_samples=False)
+    assert len(calls) == 1
+    assert report.data["structure"]["adjacency"] == "hypothesised graph from good.txt"
+    given = preflight_io.read_graph(good, ["c", "a", "b"])
+    assert given.edges == (("b", "c"), ("a", "b")) and given.name == "good.txt"
+    assert given.matrix(["c", "a", "b"]).tolist() == [[0, 0, 0], [0, 0, 1], [1, 0, 0]]
+    assert given.matrix(["a", "b", "c"]).tolist() == [[0, 1, 0], [0, 0, 1], [0, 0, 0]]
 
 
 def test_fail_on_accepts_every_documented_flag(data):

@@ -19,6 +19,7 @@ from preflight.checks.independence import hsic
 from preflight.checks.normality import is_nongaussian, normality_checks
 from preflight.errors import InputError
 from preflight.policy import Policy
+from preflight.structure import ica_screen, parents
 
 # --------------------------------------------------------------------------- helpers
 
@@ -177,8 +178,8 @@ def test_prune_parents_p_values_match_statsmodels():
     X = four_node(rng, 300)
     X[:, 1] *= 1e4  # badly scaled column
     order = [0, 2, 1, 3]
-    nested = structure._nested_t_tests(X, order)
-    per_equation = structure._per_equation_t_tests(X, order)
+    nested = parents._nested_t_tests(X, order)
+    per_equation = parents._per_equation_t_tests(X, order)
     assert nested[0] == per_equation[0]
     np.testing.assert_allclose(nested[1], per_equation[1], rtol=1e-8, atol=1e-300)
     expected = []
@@ -296,10 +297,10 @@ def test_fastica_does_not_interpret_unidentified_components():
 def test_component_matching_up_to_sign_scale_and_order():
     rng = np.random.default_rng(42)
     S = rng.uniform(-1, 1, (500, 3))
-    assert structure._same_components(S, [-3.0 * S[:, [2, 0, 1]]])
+    assert ica_screen._same_components(S, [-3.0 * S[:, [2, 0, 1]]])
     angle = np.pi / 6  # a 30-degree rotation of two components is a different unmixing
     rotation = np.array([[np.cos(angle), -np.sin(angle), 0], [np.sin(angle), np.cos(angle), 0], [0, 0, 1]])
-    assert not structure._same_components(S, [S @ rotation])
+    assert not ica_screen._same_components(S, [S @ rotation])
 
 
 def test_fastica_verdict_ignores_shift_and_scale():

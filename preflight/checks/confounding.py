@@ -103,34 +103,17 @@ def spectral_confounding(X, target: int, predictors) -> CheckResult:
     noisy for d near 5.  NaN with a note when the regression vector is
     within its sampling noise.
     """
-    X = as_matrix(X, name="X", min_n=3)
-    n, p = X.shape
-    target = int(target)
-    predictors = [int(j) for j in predictors]
-    if not 0 <= target < p or any(not 0 <= j < p for j in predictors):
-        raise InputError(f"target and predictors must be column indices below {p}")
-    if target in predictors or len(set(predictors)) != len(predictors):
-        raise InputError("predictors must be distinct and must not include the target")
-    d = len(predictors)
-    name = "spectral confounding strength"
-    effect_name = "confounding strength beta"
-    if d < SPECTRAL_MIN_PREDICTORS:
-        raise InputError(f"spectral confounding needs at least {SPECTRAL_MIN_PREDICTORS} predictors, got {d}")
-    if n <= d + 1:
-        raise InputError(f"spectral confounding needs more rows than predictors + 1 ({d + 1}), got {n}")
-    P = X[:, predictors]
-    y = X[:, target]
+    P, y = _spectral_inputs(X, target, predictors)
+    n, d = P.shape
     centred = P - P.mean(axis=0)
     sd = np.sqrt((centred * centred).mean(axis=0))
     if np.any(sd == 0) or np.ptp(y) == 0:
-        return CheckResult(name=name, statistic=math.nan, p_value=None, effect=None, effect_name=effect_name, n=n,
-                           note="a constant predictor or target: no spectrum to read")
+        return _no_spectral_estimate(n, "a constant predictor or target: no spectrum to read")
     Z = centred / sd
     yc = y - y.mean()
     lam, vectors = np.linalg.eigh(Z.T @ Z / n)
     if lam[0] <= 1e-10 * lam[-1]:
-        return CheckResult(name=name, statistic=math.nan, p_value=None, effect=None, effect_name=effect_name, n=n,
-                           note="predictors exactly collinear: the spectrum has a zero eigenvalue")
+        return _no_spectral_estimate(n, "predictors exactly collinear: the spectrum has a zero eigenvalue")
     coef = vectors @ ((vectors.T @ (Z.T @ yc / n)) / lam)
     residual = yc - Z @ coef
     sigma2 = float(residual @ residual) / (n - d - 1)
@@ -140,8 +123,8 @@ def spectral_confounding(X, target: int, predictors) -> CheckResult:
                    "generic orientation to the predictors' eigenvectors, the confounder a small part of their "
                    "covariance; standardised predictors; OLS sampling noise modelled, not counted as confounding")
     if float(u2.sum()) <= float(noise_var.sum()):
-        return CheckResult(name=name, statistic=math.nan, p_value=None, effect=None, effect_name=effect_name, n=n,
-                           note="the regression vector is within its sampling noise: no estimate; " + assumptions)
+        return _no_spectral_estimate(n, "the regression vector is within its sampling noise: no estimate; "
+                                     + assumptions)
     causal_var = np.full(d, 1.0 / d)
     template = lam**-2.0
     confounding_var = template / template.sum()
@@ -149,7 +132,34 @@ def spectral_confounding(X, target: int, predictors) -> CheckResult:
                         for b in _BETA_GRID])
     beta = float(_BETA_GRID[int(np.argmin(profile))])
     return CheckResult(
-        name=name, statistic=beta, p_value=None, effect=beta, effect_name=effect_name, n=n,
+        name=_SPECTRAL, statistic=beta, p_value=None, effect=beta, effect_name=_BETA, n=n,
         note=(f"{d} predictors; maximum-likelihood fit of the squared projections on the correlation "
               f"eigenvectors (after Janzing & Schölkopf 2018); {assumptions}"),
     )
+
+
+_SPECTRAL = "spectral confounding strength"
+_BETA = "confounding strength beta"
+
+
+def _no_spectral_estimate(n: int, why: str) -> CheckResult:
+    return CheckResult(name=_SPECTRAL, statistic=math.nan, p_value=None, effect=None, effect_name=_BETA, n=n,
+                       note=why)
+
+
+def _spectral_inputs(X, target, predictors) -> tuple[np.ndarray, np.ndarray]:
+    """(predictor columns, target column), after checking the indices and that there are enough of each."""
+    X = as_matrix(X, name="X", min_n=3)
+    n, p = X.shape
+    target = int(target)
+    predictors = [int(j) for j in predictors]
+    if not 0 <= target < p or any(not 0 <= j < p for j in predictors):
+        raise InputError(f"target and predictors must be column indices below {p}")
+    if target in predictors or len(set(predictors)) != len(predictors):
+        raise InputError("predictors must be distinct and must not include the target")
+    d = len(predictors)
+    if d < SPECTRAL_MIN_PREDICTORS:
+        raise InputError(f"spectral confounding needs at least {SPECTRAL_MIN_PREDICTORS} predictors, got {d}")
+    if n <= d + 1:
+        raise InputError(f"spectral confounding needs more rows than predictors + 1 ({d + 1}), got {n}")
+    return X[:, predictors], X[:, target]

@@ -16,6 +16,8 @@ from preflight.results import CheckResult
 
 DENSITIES = ("entropy", "auto", "super-gaussian", "sub-gaussian")
 
+_NAME = "pairwise likelihood ratio"
+
 
 def pairwise_likelihood_ratio(x, y, density: str = "entropy") -> CheckResult:
     """Hyvärinen-Smith pairwise likelihood ratio of x -> y against y -> x.
@@ -62,34 +64,44 @@ def pairwise_likelihood_ratio(x, y, density: str = "entropy") -> CheckResult:
     xv = as_vector(x, "x", min_n=3)
     yv = as_vector(y, "y", min_n=3)
     n = same_length(xv, yv, names=("x", "y"))
-    name = "pairwise likelihood ratio"
     xs = _standardise(xv)
     ys = _standardise(yv)
     if xs is None or ys is None:
         return CheckResult(
-            name=name, statistic=math.nan, p_value=None, effect=None,
-            effect_name="likelihood ratio (R > 0: x -> y)", n=n,
+            name=_NAME, statistic=math.nan, p_value=None, effect=None, effect_name=_R_EFFECT, n=n,
             note=f"{'x' if xs is None else 'y'} is constant: direction undefined",
         )
     rho = float(xs @ ys) / n
     if density == "entropy":
-        from preflight.structure import pairwise_likelihood_ratios
+        return _entropy_ratio(xs, ys, rho)
+    return _first_order_ratio(xs, ys, rho, density)
 
-        # Averaging both orders makes R(x, y) = -R(y, x) hold to the last bit.
-        # The order (y, x) is read from the same matrix: with the columns
-        # swapped every entropy term is the same number (column-wise means,
-        # elementwise residuals, a symmetric correlation), so its R[0, 1] is
-        # this R[1, 0], summed in the same order
-        # (tests/test_checks_direction_association.py compares both).
-        ratios = pairwise_likelihood_ratios(np.column_stack([xs, ys]), measure="logcosh")
-        forward, backward = float(ratios[0, 1]), float(ratios[1, 0])
-        ratio = (forward - backward) / 2.0
-        return CheckResult(
-            name=name, statistic=ratio, p_value=None, effect=ratio,
-            effect_name="likelihood ratio (R > 0: x -> y)", n=n,
-            note=(f"R = H(y) + H(r_x|y) - H(x) - H(r_y|x), entropies by the log-cosh approximation; "
-                  f"R > 0 favours x -> y; rho = {rho:.3f}"),
-        )
+
+_R_EFFECT = "likelihood ratio (R > 0: x -> y)"
+
+
+def _entropy_ratio(xs: np.ndarray, ys: np.ndarray, rho: float) -> CheckResult:
+    """The general likelihood ratio of standardised x and y, entropies by the log-cosh approximation."""
+    from preflight.structure import pairwise_likelihood_ratios
+
+    # Averaging both orders makes R(x, y) = -R(y, x) hold to the last bit.
+    # The order (y, x) is read from the same matrix: with the columns
+    # swapped every entropy term is the same number (column-wise means,
+    # elementwise residuals, a symmetric correlation), so its R[0, 1] is
+    # this R[1, 0], summed in the same order
+    # (tests/test_checks_direction_association.py compares both).
+    ratios = pairwise_likelihood_ratios(np.column_stack([xs, ys]), measure="logcosh")
+    forward, backward = float(ratios[0, 1]), float(ratios[1, 0])
+    ratio = (forward - backward) / 2.0
+    return CheckResult(
+        name=_NAME, statistic=ratio, p_value=None, effect=ratio, effect_name=_R_EFFECT, n=xs.shape[0],
+        note=(f"R = H(y) + H(r_x|y) - H(x) - H(r_y|x), entropies by the log-cosh approximation; "
+              f"R > 0 favours x -> y; rho = {rho:.3f}"),
+    )
+
+
+def _first_order_ratio(xs: np.ndarray, ys: np.ndarray, rho: float, density: str) -> CheckResult:
+    """The first-order form rho * mean(x g(y) - g(x) y) with the score g of ``density``."""
     tanh_measure = rho * float(np.mean(xs * np.tanh(ys) - np.tanh(xs) * ys))
     kurtosis_x = float(np.mean(xs**4)) - 3.0
     kurtosis_y = float(np.mean(ys**4)) - 3.0
@@ -104,10 +116,8 @@ def pairwise_likelihood_ratio(x, y, density: str = "entropy") -> CheckResult:
             f"R > 0 favours x -> y; rho = {rho:.3f}, excess kurtosis x {kurtosis_x:.2f}, y {kurtosis_y:.2f}")
     if density == "auto" and kurtosis_x * kurtosis_y < 0:
         note += "; x and y have kurtosis of opposite sign, so the density model may not fit both"
-    return CheckResult(
-        name=name, statistic=ratio, p_value=None, effect=ratio,
-        effect_name="likelihood ratio (R > 0: x -> y)", n=n, note=note,
-    )
+    return CheckResult(name=_NAME, statistic=ratio, p_value=None, effect=ratio, effect_name=_R_EFFECT,
+                       n=xs.shape[0], note=note)
 
 
 def _standardise(v: np.ndarray) -> np.ndarray | None:

@@ -782,8 +782,27 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
         subsample_note = f"seeded subsample of {int(max_n)} of {n} rows, shared by every pair; "
     ignored_note = (f"; {int(permutations)} permutations requested but not run above {int(exact_max_n)} rows"
                     if permutations > 0 else "")
+    features = _shared_column_features(X, sorted({c for pair in pairs for c in pair}), n_features, seed,
+                                       column_seeds)
+    out = []
+    for a, b in pairs:
+        features_a, features_b = features[a], features[b]
+        if features_a is None or features_b is None:
+            result = _constant_result("hsic", m, "x" if features_a is None else "y", _NORMALISED_HSIC)
+            out.append(replace(result, note=subsample_note + result.note))
+        else:
+            out.append(_shared_feature_hsic(features_a, features_b, m, n_features,
+                                            subsample_note, ignored_note))
+        finished(out)
+    return out
+
+
+def _shared_column_features(X: np.ndarray, columns: list[int], n_features: int, seed: int,
+                            column_seeds) -> dict[int, tuple | None]:
+    """Column -> (features, trace and squared norm of their covariance, bandwidth fallback), None if constant."""
+    m = X.shape[0]
     features: dict[int, tuple | None] = {}
-    for c in sorted({c for pair in pairs for c in pair}):
+    for c in columns:
         column = _standardise(X[:, c])
         if column is None:
             features[c] = None
@@ -793,30 +812,26 @@ def hsic_pairs(X, pairs, pair_seeds, exact_max_n: int = 2000, max_n: int = 20000
         phi = _fourier_features(column, sigma, n_features, rng)
         c_self = (phi.T @ phi).astype(np.float64) / m
         features[c] = (phi, float(np.trace(c_self)), float(np.einsum("ij,ij->", c_self, c_self)), fallback)
-    out = []
-    for a, b in pairs:
-        features_a, features_b = features[a], features[b]
-        if features_a is None or features_b is None:
-            result = _constant_result("hsic", m, "x" if features_a is None else "y", _NORMALISED_HSIC)
-            out.append(replace(result, note=subsample_note + result.note))
-            finished(out)
-            continue
-        phi, trace_x, norm_xx, fallback_x = features_a
-        psi, trace_y, norm_yy, fallback_y = features_b
-        c_xy = (phi.T @ psi).astype(np.float64) / m
-        cross = float(np.einsum("ij,ij->", c_xy, c_xy))
-        p_value, null_note = _rff_gamma_p_value(m * cross, m, trace_x, trace_y, norm_xx, norm_yy)
-        out.append(CheckResult(
-            name="hsic", statistic=m * cross, p_value=p_value, effect=_normalised(cross, norm_xx, norm_yy),
-            effect_name=_NORMALISED_HSIC, n=m,
-            note=(f"{subsample_note}random-Fourier-feature HSIC on {m} rows with {n_features} seeded frequencies "
-                  "per column, drawn once and shared by every pair of this table, statistic n*||C_xy||_F^2, "
-                  "gamma matched to the mean and variance of its asymptotic chi-square mixture null "
-                  f"(Zhang et al. 2018); {_bandwidth_rows_note(m)}{_bandwidth_note(fallback_x, fallback_y)}"
-                  f"{null_note}{ignored_note}"),
-        ))
-        finished(out)
-    return out
+    return features
+
+
+def _shared_feature_hsic(features_a: tuple, features_b: tuple, m: int, n_features: int, subsample_note: str,
+                         ignored_note: str) -> CheckResult:
+    """Random-feature HSIC of one pair from the two columns' shared features (see :func:`hsic_pairs`)."""
+    phi, trace_x, norm_xx, fallback_x = features_a
+    psi, trace_y, norm_yy, fallback_y = features_b
+    c_xy = (phi.T @ psi).astype(np.float64) / m
+    cross = float(np.einsum("ij,ij->", c_xy, c_xy))
+    p_value, null_note = _rff_gamma_p_value(m * cross, m, trace_x, trace_y, norm_xx, norm_yy)
+    return CheckResult(
+        name="hsic", statistic=m * cross, p_value=p_value, effect=_normalised(cross, norm_xx, norm_yy),
+        effect_name=_NORMALISED_HSIC, n=m,
+        note=(f"{subsample_note}random-Fourier-feature HSIC on {m} rows with {n_features} seeded frequencies "
+              "per column, drawn once and shared by every pair of this table, statistic n*||C_xy||_F^2, "
+              "gamma matched to the mean and variance of its asymptotic chi-square mixture null "
+              f"(Zhang et al. 2018); {_bandwidth_rows_note(m)}{_bandwidth_note(fallback_x, fallback_y)}"
+              f"{null_note}{ignored_note}"),
+    )
 
 
 # --------------------------------------------------------------------------- distance correlation

@@ -15,7 +15,7 @@ import numpy as np
 from preflight.checks._distributions import f_sf
 from preflight.checks._validate import as_vector, same_length
 from preflight.errors import InputError
-from preflight.fit import LinearFit, basis_of_tail, bspline_basis, derived_from_basis, ols, spline_df
+from preflight.fit import LinearFit, RegressorDesigns, full_rank_columns, ols, spline_df
 from preflight.results import CheckResult
 
 RAMSEY_RESET = "ramsey reset"
@@ -33,47 +33,6 @@ def _pair(x, y, min_n: int) -> tuple[np.ndarray, np.ndarray]:
     if np.ptp(yv) == 0:
         raise InputError("y is constant; there is nothing to explain")
     return xv, yv
-
-
-def full_rank_columns(X: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
-    """The columns of X that are linearly independent of the intercept and of each other.
-
-    A pivoted QR of the centred, unit-norm columns keeps a column while its
-    pivot exceeds ``tolerance`` times the largest.  fit.ols's least-squares
-    driver does not detect exact collinearity (a binary regressor and its
-    square, a spline basis on tied x) and then returns a wrong RSS and rank,
-    so designs that can repeat a direction are screened here first.
-
-    For ``basis[:, 1:]`` of a basis from :func:`preflight.fit.bspline_basis`
-    the selection is remembered with the basis (read-only): the spline
-    F-test and the spread of the spline residual fit the same spline, and
-    several pairs share a regressor.
-    """
-    X = np.asarray(X, dtype=np.float64)
-    basis = basis_of_tail(X)
-    if basis is not None:
-        return derived_from_basis(basis, f"full-rank columns after the first ({tolerance!r})",
-                                  lambda: _full_rank_columns(X, tolerance))
-    return _full_rank_columns(X, tolerance)
-
-
-def _full_rank_columns(X: np.ndarray, tolerance: float) -> np.ndarray:
-    from scipy.linalg import qr
-
-    if X.ndim == 1:
-        X = X[:, None]
-    centred = X - X.mean(axis=0)
-    norms = np.sqrt((centred**2).sum(axis=0))
-    scale = norms.max() if norms.size else 0.0
-    candidates = np.flatnonzero(norms > tolerance * max(scale, np.finfo(float).tiny))
-    if candidates.size == 0:
-        return X[:, :0]
-    # mode="raw" runs the same pivoted factorisation as "economic" and
-    # returns the same R and pivots, without forming the unused Q.
-    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="raw", pivoting=True)
-    diagonal = np.abs(np.diag(r))
-    kept = pivots[: int(np.sum(diagonal > tolerance * diagonal[0]))]
-    return X[:, np.sort(candidates[kept])]
 
 
 def _nested_f(
@@ -183,12 +142,15 @@ def spline_comparison(x, y, df: int | None = None, max_df: int = 10) -> SplineCo
     so the straight line is nested in it.
     """
     xv, yv = _pair(x, y, min_n=6)
-    return _spline_comparison(xv, yv, df, max_df, None)
+    return _spline_comparison(xv, yv, df, max_df, None, RegressorDesigns(xv))
 
 
 def _spline_comparison(xv: np.ndarray, yv: np.ndarray, df: int | None, max_df: int,
-                       linear: LinearFit | None) -> SplineComparison:
-    """:func:`spline_comparison` on validated input; ``linear`` is ``ols(xv, yv)`` when already at hand."""
+                       linear: LinearFit | None, designs: RegressorDesigns) -> SplineComparison:
+    """:func:`spline_comparison` on validated input; ``linear`` is ``ols(xv, yv)`` when already at hand.
+
+    ``designs`` are those of ``xv``.
+    """
     n = xv.shape[0]
     chosen = spline_df(n, max_df) if df is None else int(df)
     if chosen < 4:
@@ -197,13 +159,13 @@ def _spline_comparison(xv: np.ndarray, yv: np.ndarray, df: int | None, max_df: i
         raise InputError(f"the spline F-test with df={chosen} needs at least {chosen + 2} observations, got {n}")
     if linear is None:
         linear = ols(xv, yv)
-    basis = bspline_basis(xv, chosen)
+    basis = designs.spline_basis(chosen)
     usable = bool(np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8))
     if not usable:
         return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=linear.rss, rank_linear=linear.rank,
                                 rank_spline=linear.rank, tss=linear.tss, f_statistic=math.nan, p_value=None,
                                 df_num=0, df_den=n - linear.rank, usable=False)
-    spline = ols(full_rank_columns(basis[:, 1:]), yv)
+    spline = ols(designs.spline_design(chosen), yv)
     f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, spline.rss, spline.rank, n)
     return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=min(spline.rss, linear.rss),
                             rank_linear=linear.rank, rank_spline=spline.rank, tss=linear.tss, f_statistic=f_stat,
@@ -239,11 +201,12 @@ def _spline_f_result(comparison: SplineComparison) -> CheckResult:
                              f"delta BIC (spline - linear) = {comparison.delta_bic:.6g}"))
 
 
-def linearity_checks(x, y, max_df: int = 10) -> tuple[CheckResult, ...]:
+def linearity_checks(x, y, max_df: int = 10, designs: RegressorDesigns | None = None) -> tuple[CheckResult, ...]:
     """Ramsey RESET and the spline F-test, in that order.
 
     Null hypothesis of both: E[y | x] is linear in x.  References: see the
-    individual functions.
+    individual functions.  ``designs``, the :class:`preflight.fit.RegressorDesigns`
+    of x, lets later checks on the same regressor reuse the spline it fits.
     """
     # Both tests start from the same straight-line fit of y on x; it is
     # computed once.  Validation runs as in the two functions, in their order,
@@ -253,4 +216,6 @@ def linearity_checks(x, y, max_df: int = 10) -> tuple[CheckResult, ...]:
     linear = ols(xv, yv)
     reset = _ramsey_reset(xv, yv, powers, linear)
     xv, yv = _pair(xv, yv, min_n=6)
-    return (reset, _spline_f_result(_spline_comparison(xv, yv, None, max_df, linear)))
+    designs = RegressorDesigns.of(xv, designs)
+    return (reset, _spline_f_result(_spline_comparison(xv, yv, None, max_df, linear, designs)))
+

@@ -10,9 +10,8 @@ import numpy as np
 
 from preflight.checks._distributions import chi2_sf
 from preflight.checks._validate import as_matrix, as_vector, same_length
-from preflight.checks.linearity import full_rank_columns
 from preflight.errors import InputError
-from preflight.fit import ols, remembered
+from preflight.fit import RegressorDesigns, full_rank_columns, ols, white_design
 from preflight.results import CheckResult
 
 BREUSCH_PAGAN = "breusch-pagan"
@@ -69,16 +68,6 @@ def breusch_pagan(residuals, regressors) -> CheckResult:
                        note=f"Koenker's studentized n R^2 on {Z.shape[1]} regressor(s); chi-squared({df})")
 
 
-def white_design(regressors: np.ndarray) -> np.ndarray:
-    """Levels, squares and pairwise cross-products of the columns (no constant)."""
-    Z = np.asarray(regressors, dtype=np.float64)
-    if Z.ndim == 1:
-        Z = Z[:, None]
-    k = Z.shape[1]
-    first, second = np.triu_indices(k)
-    return np.column_stack([Z, Z[:, first] * Z[:, second]])
-
-
 def white_test(residuals, regressors) -> CheckResult:
     """White's general test for heteroscedasticity.
 
@@ -88,20 +77,16 @@ def white_test(residuals, regressors) -> CheckResult:
     minus one df (a binary regressor's square repeats its level and adds
     nothing).  Reference: White (1980).  Effect: auxiliary R-squared.
     """
-    return _white_test(residuals, regressors, remember_design=False)
+    return _white_test(residuals, regressors, None)
 
 
-def _white_test(residuals, regressors, remember_design: bool) -> CheckResult:
+def _white_test(residuals, regressors, designs: RegressorDesigns | None) -> CheckResult:
+    """:func:`white_test`; with one regressor, ``designs`` (its :class:`RegressorDesigns`) supply the design."""
     e, Z = _inputs(residuals, regressors)
     k = Z.shape[1]
     _require_rows(e.shape[0], k + k * (k + 1) // 2)  # the columns of white_design(Z)
-    if remember_design and k == 1:
-        # The design [x, x^2] and its full-rank columns depend on the
-        # regressor's values alone (white_design copies them into a fresh
-        # array), and the same regressor comes back in every pair it belongs
-        # to and for the spline residual's spread.
-        columns = remembered(Z[:, 0], ("white design, full-rank columns",),
-                             lambda x: full_rank_columns(white_design(x)))
+    if designs is not None and k == 1:
+        columns = RegressorDesigns.of(Z[:, 0], designs).white_design()
     else:
         columns = full_rank_columns(white_design(Z))
     lm, p_value, r2, df = _lagrange_multiplier_on(e * e, columns)
@@ -111,13 +96,15 @@ def _white_test(residuals, regressors, remember_design: bool) -> CheckResult:
                              f"chi-squared({df})"))
 
 
-def variance_checks(residuals, regressor) -> tuple[CheckResult, ...]:
+def variance_checks(residuals, regressor, designs: RegressorDesigns | None = None) -> tuple[CheckResult, ...]:
     """Breusch-Pagan (Koenker) and White for one regressor, in that order.
 
     With a single regressor White's auxiliary design is [1, x, x^2], so it
     also sees variance that grows with |x| symmetrically, which the linear
     Breusch-Pagan design [1, x] cannot.  Null hypothesis of both: constant
-    error variance.  References: see the individual functions.
+    error variance.  References: see the individual functions.  ``designs``,
+    the :class:`preflight.fit.RegressorDesigns` of the regressor, let several
+    residuals of one regressor share White's design.
     """
     x = as_vector(regressor, name="regressor", min_n=3)
-    return (breusch_pagan(residuals, x), _white_test(residuals, x, remember_design=True))
+    return (breusch_pagan(residuals, x), _white_test(residuals, x, designs))
