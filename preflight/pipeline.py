@@ -17,7 +17,7 @@ from preflight.evidence import Tagged, adjust_families, significant
 from preflight.io import LoadedData
 from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
-from preflight.results import CheckResult
+from preflight.results import NOISE_ESTIMATE, NOISE_ESTIMATES, CheckResult
 from preflight.rules import evaluate, meets
 
 Progress = Callable[[str, int, int], None]
@@ -71,8 +71,9 @@ def _noise_dependence_task(noise: np.ndarray, pairs, policy: Policy) -> list[Che
 def _tag_noise_dependence(results: list[CheckResult], names, pairs, progress: Progress) -> dict:
     if pairs:
         progress("noise dependence", len(pairs), len(pairs))
-    return {(i, j): Tagged("noise dependence", "pair",
-                           result.with_name(f"noise dependence (hsic) ({names[i]}, {names[j]})"))
+    return {(i, j): Tagged("noise dependence", "pair", result.identified(
+                scope="pair", family="noise dependence", variables=tuple(sorted((names[i], names[j]))), test="hsic",
+                variant=NOISE_ESTIMATES, name=f"noise dependence (hsic) ({names[i]}, {names[j]})"))
             for (i, j), result in zip(pairs, results)}
 
 
@@ -85,12 +86,13 @@ def _screen(loaded: LoadedData, policy: Policy):
     flags = {s.name: list(s.flags) for s in screens}
     for name in loaded.missing_by_column:
         flags[name].append("missing-values")
-    checks = {s.name: [Tagged("autocorrelation" if c.name.startswith("ljung-box") else None, "variable", c)
+    checks = {s.name: [Tagged(c.identity.family if c.identity is not None else None, "variable", c)
                        for c in s.checks] for s in screens}
     for name, count in loaded.missing_by_column.items():
         checks[name].append(Tagged(None, "variable", CheckResult(
             name="missing values", statistic=float(count), p_value=None, effect=count / loaded.rows,
-            effect_name="share of rows", n=loaded.rows, note="rows with a missing value were dropped")))
+            effect_name="share of rows", n=loaded.rows, note="rows with a missing value were dropped",
+        ).identified(scope="variable", variables=(name,))))
     return flags, checks
 
 
@@ -112,16 +114,18 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
     for j, name in enumerate(names):
         seed = derived_seed(policy.seed, "noise", name)
         for result in normality_checks(noise[:, j], max_n=policy.shapiro_max_n, seed=seed):
-            variable_checks[j].append(Tagged("noise normality", "variable",
-                                             result.with_name(f"{result.name} (noise of {name})")))
+            variable_checks[j].append(Tagged("noise normality", "variable", result.identified(
+                scope="variable", family="noise normality", variables=(name,), variant=NOISE_ESTIMATE,
+                name=f"{result.name} (noise of {name})")))
         progress("noise shape", j + 1, p)
     from preflight.checks.confounding import SPECTRAL_MIN_PREDICTORS, spectral_confounding
 
     for j, name in enumerate(names):
         if len(parents[j]) >= SPECTRAL_MIN_PREDICTORS:
             strength = spectral_confounding(X, j, parents[j])
-            variable_checks[j].append(Tagged(None, "variable", strength.with_name(
-                f"spectral confounding strength ({name} on its {len(parents[j])} parents)")))
+            variable_checks[j].append(Tagged(None, "variable", strength.identified(
+                scope="variable", variables=(name,), test="spectral-confounding-strength",
+                name=f"spectral confounding strength ({name} on its {len(parents[j])} parents)")))
     global_checks: list[Tagged] = []
     edges = [(parent, child) for child, ps in enumerate(parents) for parent in ps]
     flags: list[str] = []
@@ -422,6 +426,11 @@ def _drop_conditioning_in_nonlinear_relations(X, names, pair_index, sets, batter
     return batteries, groups
 
 
+def _identified_global(result: CheckResult) -> CheckResult:
+    """A whole-table check with its identity: the test its function named, no family, no variables."""
+    return result if result.identity is not None else result.identified(scope="global")
+
+
 def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> CheckResult:
     from preflight import structure
     from preflight.checks.normality import shape
@@ -434,7 +443,8 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
         note=("rows for the Jarque-Bera test to detect this noise's skewness "
               f"({s.skewness:.3f}) and excess kurtosis ({s.excess_kurtosis:.3f}) with 80% power at alpha "
               f"{policy.alpha:g}" if needed is not None
-              else "noise shape indistinguishable from Gaussian: no finite number"))
+              else "noise shape indistinguishable from Gaussian: no finite number"),
+    ).identified(scope="variable", variables=(name,), test="rows-needed", variant=NOISE_ESTIMATE)
 
 
 # ---------------------------------------------------------------- the run
@@ -762,7 +772,7 @@ def _run_canonical(loaded: LoadedData, policy: Policy, *, graph: str | None, pro
                        "rules_fired": [fr.rule.id for fr in outcome.fired]},
         "variables": variables_out,
         "pairs": pairs_out,
-        "global": {"flags": global_flags, "checks": [t.result.to_dict() for t in global_checks]},
+        "global": {"flags": global_flags, "checks": [_identified_global(t.result).to_dict() for t in global_checks]},
         "structure": {
             "adjacency": adjacency_source,
             "order": [names[i] for i in view.order] if view else [],

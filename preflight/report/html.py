@@ -19,6 +19,7 @@ import warnings
 from collections.abc import Sequence
 from typing import Any
 
+from preflight.report.identity import variable_check
 from preflight.report.markdown import (
     CHECK_HEADER,
     REFERENCES,
@@ -38,10 +39,10 @@ from preflight.report.markdown import (
     pairs_in_reading_order,
     policy_descriptions,
     rows_needed_text,
-    variable_check,
 )
 from preflight.report.model import Report
 from preflight.report.text import headline
+from preflight.results import NOISE_ESTIMATE
 
 ARROW, UNDIRECTED = "\u2192", "\u2014"
 
@@ -285,7 +286,7 @@ def _variables(data: dict[str, Any]) -> str:
     parents = structure.get("parents") or {}
     rows = []
     for v in data["variables"]:
-        sw = variable_check(v, "shapiro-wilk (noise")
+        sw = variable_check(v, "shapiro-wilk", NOISE_ESTIMATE)
         sw_p = fmt_p(sw["p_adjusted"] if sw and sw["p_adjusted"] is not None else (sw["p_value"] if sw else None))
         rows.append(f"<tr><td><strong>{_e(v['name'])}</strong></td><td>{_flags(v['flags'])}</td>"
                     f"<td>{_e(noise_finding(data, v['name']))}</td><td class=\"num\">{_e(sw_p)}</td>"
@@ -302,7 +303,7 @@ def _variables(data: dict[str, Any]) -> str:
 
 def _qq_subtitle(data: dict[str, Any], variable: dict[str, Any]) -> str:
     finding = noise_finding(data, variable["name"])
-    sw = variable_check(variable, "shapiro-wilk (noise")
+    sw = variable_check(variable, "shapiro-wilk", NOISE_ESTIMATE)
     if sw is None:
         return finding
     p = sw["p_adjusted"] if sw["p_adjusted"] is not None else sw["p_value"]

@@ -17,8 +17,10 @@ from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from preflight.report.identity import checks_with_identity, variable_check
 from preflight.report.model import Report
 from preflight.report.text import FLAG_MEANING, LEVEL_WORDS, WHAT_STILL_FITS, headline
+from preflight.results import SPLINE_RESIDUAL, CheckIdentity
 
 # ---------------------------------------------------------------- shared wording
 
@@ -143,15 +145,8 @@ def noise_finding(report: dict[str, Any], name: str) -> str:
     return "non-Gaussian"
 
 
-def variable_check(variable: dict[str, Any], prefix: str) -> dict[str, Any] | None:
-    for check in variable["checks"]:
-        if check["name"].startswith(prefix):
-            return check
-    return None
-
-
 def rows_needed_text(variable: dict[str, Any]) -> str:
-    check = variable_check(variable, "rows needed")
+    check = variable_check(variable, "rows-needed")
     if check is None:
         return "-"
     if check["statistic"] is None:
@@ -251,23 +246,23 @@ REFERENCES = {
 
 @dataclass(frozen=True)
 class Method:
-    """One published method, how to recognise it in a report, and how the methods text names it."""
+    """One published method, which checks used it, and how the methods text names it."""
 
     key: str
     group: str
     text: str
     """The phrase the methods paragraph uses, with author-year citations in it."""
     references: tuple[str, ...]
-    matches: Callable[[str, str], bool]
-    """(lower-cased check name, lower-cased note) -> whether this check used the method."""
+    used_by: Callable[[CheckIdentity], bool]
+    """Whether a check with this identity used the method."""
 
 
-def _has(*words: str) -> Callable[[str, str], bool]:
-    return lambda name, note: any(w in name for w in words)
+def _tests(*tests: str) -> Callable[[CheckIdentity], bool]:
+    return lambda identity: identity.test in tests
 
 
-def _starts(*words: str) -> Callable[[str, str], bool]:
-    return lambda name, note: any(name.startswith(w) for w in words)
+def _spline_hsic(identity: CheckIdentity) -> bool:
+    return identity.test == "hsic" and identity.variant == SPLINE_RESIDUAL
 
 
 GROUPS = {
@@ -283,67 +278,61 @@ GROUPS = {
 
 METHODS: tuple[Method, ...] = (
     Method("ljung-box", "screen", "the Ljung-Box test of autocorrelation in file order (Ljung and Box 1978)",
-           ("ljung1978",), _has("ljung")),
+           ("ljung1978",), _tests("ljung-box")),
     Method("collinearity", "screen", "variance inflation factors and the condition number of the standardised "
            "design (Belsley et al. 1980)", ("belsley1980",),
-           _has("collinear", "variance inflation", "condition number")),
+           _tests("variance-inflation-factor", "condition-number")),
     Method("shapiro-wilk", "normality", "the Shapiro-Wilk test (Shapiro and Wilk 1965), with p-values from "
-           "Royston's approximation (Royston 1995)", ("shapiro1965", "royston1995"), _has("shapiro")),
+           "Royston's approximation (Royston 1995)", ("shapiro1965", "royston1995"), _tests("shapiro-wilk")),
     Method("anderson-darling", "normality", "the Anderson-Darling test (Anderson and Darling 1952), with the "
            "modified statistic and p-value formulas of Stephens (1974)", ("anderson1952", "stephens1974"),
-           _has("anderson")),
+           _tests("anderson-darling")),
     Method("jarque-bera", "normality", "the Jarque-Bera test (Jarque and Bera 1980)", ("jarque1980",),
-           _has("jarque")),
+           _tests("jarque-bera")),
     Method("dagostino-pearson", "normality", "the D'Agostino-Pearson omnibus test (D'Agostino and Pearson 1973)",
-           ("dagostino1973",), _has("d'agostino", "dagostino")),
+           ("dagostino1973",), _tests("dagostino-pearson")),
     Method("negentropy", "normality", "Hyv\u00e4rinen's negentropy approximation as a measure of non-Gaussianity "
-           "(Hyv\u00e4rinen 1998)", ("hyvarinen1998",), _has("negentropy")),
+           "(Hyv\u00e4rinen 1998)", ("hyvarinen1998",), _tests("negentropy")),
     Method("ramsey-reset", "linearity", "Ramsey's RESET test with squared and cubed fitted values (Ramsey 1969)",
-           ("ramsey1969",), _has("ramsey", "reset")),
+           ("ramsey1969",), _tests("ramsey-reset")),
     Method("spline-f", "linearity", "a nested-model F-test of a cubic regression spline (B-spline basis with "
-           "knots at quantiles; de Boor 1978) against the straight line", ("deboor1978",), _has("spline f")),
+           "knots at quantiles; de Boor 1978) against the straight line", ("deboor1978",), _tests("spline-f-test")),
     Method("breusch-pagan", "variance", "the Breusch-Pagan test (Breusch and Pagan 1979) in Koenker's "
-           "studentized form (Koenker 1981)", ("breusch1979", "koenker1981"), _has("breusch")),
-    Method("white", "variance", "White's test (White 1980)", ("white1980",), _starts("white")),
+           "studentized form (Koenker 1981)", ("breusch1979", "koenker1981"), _tests("breusch-pagan")),
+    Method("white", "variance", "White's test (White 1980)", ("white1980",), _tests("white")),
     Method("hsic", "independence", "the Hilbert-Schmidt independence criterion, HSIC, with Gaussian kernels, "
            "median-heuristic bandwidths and the gamma approximation to its null distribution "
-           "(Gretton et al. 2005, 2008)", ("gretton2005", "gretton2008"), _has("hsic")),
+           "(Gretton et al. 2005, 2008)", ("gretton2005", "gretton2008"), _tests("hsic", "ica-component-dependence")),
     Method("hsic-rff", "independence", "random Fourier features for HSIC on large samples (Rahimi and Recht 2007; "
            "Zhang et al. 2018)", ("rahimi2007", "zhang2018"),
-           lambda name, note: "hsic" in name and ("fourier" in name or "fourier" in note)),
+           lambda identity: identity.test == "hsic" and identity.null == "random features"),
     Method("distance-correlation", "independence", "distance correlation (Sz\u00e9kely et al. 2007)",
-           ("szekely2007",), _has("distance correlation", "dcor")),
+           ("szekely2007",), _tests("distance-correlation")),
     Method("pearson", "independence", "Pearson's correlation with Fisher's z transform, adjusted for the size "
-           "of the conditioning set (Fisher 1921)", ("fisher1921",), _starts("pearson")),
+           "of the conditioning set (Fisher 1921)", ("fisher1921",), _tests("pearson")),
     Method("spearman", "independence", "Spearman's rank correlation (Spearman 1904)", ("spearman1904",),
-           _starts("spearman")),
+           _tests("spearman")),
     Method("likelihood-ratio", "direction", "the pairwise likelihood ratio of Hyv\u00e4rinen and Smith (2013)",
-           ("hyvarinen2013",), _has("likelihood ratio")),
+           ("hyvarinen2013",), _tests("pairwise-likelihood-ratio")),
     Method("additive-noise", "direction", "an additive-noise check: HSIC between each regressor and the residual "
            "of a regression spline, in both directions (Hoyer et al. 2009; Peters et al. 2014)",
-           ("hoyer2009", "peters2014"), _has("spline residual")),
+           ("hoyer2009", "peters2014"), _spline_hsic),
     Method("henze-zirkler", "whole", "the Henze-Zirkler test of multivariate normality (Henze and Zirkler 1990)",
-           ("henze1990",), _has("henze")),
+           ("henze1990",), _tests("henze-zirkler")),
     Method("fastica", "whole", "FastICA unmixing with a count of Gaussian-looking components "
-           "(Hyv\u00e4rinen 1999)", ("hyvarinen1999",), _has("fastica", "ica ", "independent component")),
+           "(Hyv\u00e4rinen 1999)", ("hyvarinen1999",),
+           _tests("gaussian-like-ica-components", "ica-component-dependence")),
     Method("spectral-confounding", "whole", "the spectral confounding strength of each variable's regression "
            "on five or more estimated parents, an indicator read from the eigenvectors of the parents' "
-           "correlation matrix (after Janzing and Schoelkopf 2018)", ("janzing2018",), _has("spectral confounding")),
+           "correlation matrix (after Janzing and Schoelkopf 2018)", ("janzing2018",),
+           _tests("spectral-confounding-strength")),
     Method("varsortability", "whole", "varsortability, the share of estimated edges along which marginal "
-           "variance increases (Reisach et al. 2021)", ("reisach2021",), _has("varsortab")),
+           "variance increases (Reisach et al. 2021)", ("reisach2021",), _tests("varsortability")),
 )
 
 # Checks that are descriptive counts (no published test to cite).
-_DESCRIPTIVE = ("distinct values", "usable rows", "missing values", "rows needed", "excess kurtosis", "outlier",
-                "duplicate")
-
-
-def _all_checks(report: dict[str, Any]) -> Iterable[dict[str, Any]]:
-    for variable in report["variables"]:
-        yield from variable["checks"]
-    for pair in report["pairs"]:
-        yield from pair["checks"]
-    yield from report["global"]["checks"]
+_DESCRIPTIVE = frozenset(("distinct-values", "usable-rows", "missing-values", "rows-needed", "excess-kurtosis",
+                          "robust-z-outliers", "duplicated-rows"))
 
 
 def base_name(name: str) -> str:
@@ -374,16 +363,15 @@ def methods_used(report: dict[str, Any]) -> MethodsUsed:
     present: dict[str, Method] = {}
     descriptive: list[str] = []
     unrecognised: list[str] = []
-    for check in _all_checks(report):
-        name, note = check["name"].lower(), (check.get("note") or "").lower()
+    for check, identity in checks_with_identity(report):
         hit = False
         for method in METHODS:
-            if method.matches(name, note):
+            if method.used_by(identity):
                 present.setdefault(method.key, method)
                 hit = True
         if not hit:
             label = base_name(check["name"])
-            if any(word in name for word in _DESCRIPTIVE):
+            if identity.test in _DESCRIPTIVE:
                 descriptive.append(label)
             else:
                 unrecognised.append(label)
@@ -431,9 +419,9 @@ def methods_paragraphs(report: dict[str, Any]) -> list[str]:
         "normality, linearity, constant variance and independence of its regressor. Under a linear model with "
         "non-Gaussian noise only the causal direction leaves an independent residual; with Gaussian noise both "
         "directions do and only the equivalence class is identifiable.")
-    hsic_notes = [(c.get("note") or "").lower() for c in _all_checks(report) if "hsic" in c["name"].lower()]
-    permuted = any("permutation null" in note for note in hsic_notes)
-    gamma = any("gamma approximation" in note for note in hsic_notes)
+    nulls = {identity.null for _, identity in checks_with_identity(report) if identity.test == "hsic"}
+    permuted = "permutation" in nulls
+    gamma = "gamma" in nulls
     for group, intro in GROUPS.items():
         members = [m.text for m in used.methods if m.group == group]
         if permuted:

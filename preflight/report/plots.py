@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from preflight.evidence import rejects
+from preflight.report.identity import pair_check
 
 # Colours are never the only carrier of meaning: every styled element also
 # has a line style, a marker or a text label.
@@ -116,16 +117,9 @@ def _best_p(check: dict[str, Any] | None) -> tuple[float | None, str]:
     return check.get("p_value"), "raw"
 
 
-def find_check(checks: Sequence[dict[str, Any]], name: str) -> dict[str, Any] | None:
-    for check in checks:
-        if check["name"] == name:
-            return check
-    return None
-
-
 def direction_hsic(pair: dict[str, Any], regressor: str, response: str) -> dict[str, Any] | None:
-    """The pair's HSIC check of the residual of ``response`` regressed on ``regressor``."""
-    return find_check(pair["checks"], f"hsic ({response} on {regressor})")
+    """The pair's HSIC check of the (straight-line) residual of ``response`` regressed on ``regressor``."""
+    return pair_check(pair, "hsic", (response, regressor), family="residual independence")
 
 
 def _partialled(samples: dict[str, Any], pair: dict[str, Any]) -> tuple[np.ndarray, np.ndarray]:
@@ -340,7 +334,7 @@ def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, max_d
     grid = regressor[order]
     spline_fitted = fits.spline_fitted[order]
     straight_fitted = fits.linear_fitted[order]
-    gain = find_check(pair["checks"], f"spline f-test ({resp_name} on {reg_name})")
+    gain = pair_check(pair, "spline-f-test", (resp_name, reg_name))
     gain_text = ""
     if gain is not None and gain.get("effect") is not None:
         gain_text = f"; spline adds R\u00b2 {gain['effect']:.3f}"
