@@ -124,7 +124,9 @@ class CheckResult:
         thresholds; ``None`` when the check is evidence rather than a guard.
     identity : CheckIdentity or None
         What the check is, as fields (set where the result is identified:
-        the battery, the screen, the pipeline); never written to the JSON.
+        the battery, the screen, the pipeline); never written to the JSON,
+        and not part of equality (two results with the same numbers and
+        text compare equal however they were identified).
     """
 
     name: str

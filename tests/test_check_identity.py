@@ -25,7 +25,7 @@ import pandas as pd
 import pytest
 
 import preflight
-from preflight.report.identity import checks_with_identity, decode
+from preflight.report.identity import checks_with_identity
 from preflight.report.markdown import methods_paragraphs, methods_used, render_markdown
 from preflight.report.model import Report
 from preflight.report.plots import direction_hsic
@@ -64,7 +64,8 @@ def _text_access(node: ast.AST) -> str | None:
     """``"note"`` or ``"name"`` when ``node`` reads that field of what may be a check, else None."""
     if isinstance(node, ast.Attribute) and node.attr in ("name", "note"):
         field, receiver = node.attr, node.value
-    elif isinstance(node, ast.Subscript) and isinstance(node.slice, ast.Constant) and node.slice.value in ("name", "note"):
+    elif (isinstance(node, ast.Subscript) and isinstance(node.slice, ast.Constant)
+          and node.slice.value in ("name", "note")):
         field, receiver = str(node.slice.value), node.value
     elif (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.func.attr == "get"
           and node.args and isinstance(node.args[0], ast.Constant) and node.args[0].value in ("name", "note")):
