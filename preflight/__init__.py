@@ -9,7 +9,8 @@ Heavy modules are imported on first use so that ``preflight --help`` starts fast
 
 from preflight._version import __version__
 
-__all__ = ["__version__", "check", "compare_reports", "Report", "CheckResult", "Policy", "InputError", "LEVELS"]
+__all__ = ["__version__", "check", "compare_reports", "Report", "CheckResult", "CheckIdentity", "Policy", "InputError",
+           "LEVELS"]
 
 
 def __getattr__(name):
@@ -25,10 +26,10 @@ def __getattr__(name):
         from preflight.report.model import Report
 
         return Report
-    if name == "CheckResult":
-        from preflight.results import CheckResult
+    if name in ("CheckResult", "CheckIdentity"):
+        from preflight import results
 
-        return CheckResult
+        return getattr(results, name)
     if name in ("Policy", "LEVELS"):
         from preflight import policy
 

@@ -21,7 +21,7 @@ import numpy as np
 from preflight.evidence import Tagged, rejects, significant
 from preflight.fit import RegressorDesigns, bspline_basis, ols, residualize, simple_slope, spline_df
 from preflight.policy import Policy
-from preflight.results import CheckResult
+from preflight.results import SPLINE_RESIDUAL, CheckResult
 from preflight.seeds import derived_seed
 
 
@@ -50,6 +50,14 @@ class PairFindings:
     facts: frozenset[str]
     checks: tuple[CheckResult, ...]
     conditioning: tuple[str, ...] = ()
+
+
+def _tag(family: str | None, role: str, result: CheckResult, name: str, direction: tuple[str, str] | None = None,
+         variables: tuple[str, ...] = (), variant: str | None = None, test: str | None = None) -> Tagged:
+    """One pair check with its display name and its identity (:class:`preflight.results.CheckIdentity`)."""
+    involved = tuple(sorted(variables or direction or ()))
+    return Tagged(family, role, result.identified(scope="pair", family=family, variables=involved,
+                                                  direction=direction, variant=variant, test=test, name=name))
 
 
 def _hsic_kwargs(policy: Policy, seed: int) -> dict:
@@ -98,10 +106,11 @@ def association_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, n
         spearman_result = spearman(x, y)
     if hsic_result is None:
         hsic_result = hsic(x, y, **_hsic_kwargs(policy, seed))
+    pair = (x_name, y_name)
     return [
-        Tagged("association", "pair", pearson_result.with_name(f"pearson {label}")),
-        Tagged("association", "pair", spearman_result.with_name(f"spearman {label}")),
-        Tagged("association", "pair", hsic_result.with_name(f"hsic {label}")),
+        _tag("association", "pair", pearson_result, f"pearson {label}", variables=pair, test="pearson"),
+        _tag("association", "pair", spearman_result, f"spearman {label}", variables=pair, test="spearman"),
+        _tag("association", "pair", hsic_result, f"hsic {label}", variables=pair, test="hsic"),
     ]
 
 
@@ -109,13 +118,15 @@ def _degenerate(name: str, n: int, why: str) -> CheckResult:
     return CheckResult(name=name, statistic=float("nan"), p_value=None, n=n, note=f"not computed: {why}")
 
 
-def _direction_checks(regressor: np.ndarray, response: np.ndarray, label: str, role: str,
+def _direction_checks(regressor: np.ndarray, response: np.ndarray, direction: tuple[str, str], role: str,
                       policy: Policy, seed: int, designs: RegressorDesigns) -> list[Tagged]:
+    """Normality, linearity, spread and independence of the residual of ``direction`` = (response, regressor)."""
     from preflight.checks.independence import hsic
     from preflight.checks.linearity import linearity_checks
     from preflight.checks.normality import normality_checks
     from preflight.checks.variance import variance_checks
 
+    label = f"{direction[0]} on {direction[1]}"
     _, residual = simple_slope(regressor, response)
     n = regressor.shape[0]
     spread = float(np.std(response))
@@ -124,16 +135,16 @@ def _direction_checks(regressor: np.ndarray, response: np.ndarray, label: str, r
         # noise to test; the collinearity screen reports the cause.
         why = ("the regressor is constant" if not np.std(regressor) > 0
                else "the residual is zero (exact linear relation)")
-        return [Tagged(None, role, _degenerate(f"battery ({label})", n, why))]
+        return [_tag(None, role, _degenerate("battery", n, why), f"battery ({label})", direction)]
     out: list[Tagged] = []
     for result in normality_checks(residual, max_n=policy.shapiro_max_n, seed=seed):
-        out.append(Tagged("noise normality", role, result.with_name(f"{result.name} ({label})")))
+        out.append(_tag("noise normality", role, result, f"{result.name} ({label})", direction))
     for result in linearity_checks(regressor, response, max_df=policy.spline_max_df, designs=designs):
-        out.append(Tagged("linearity", role, result.with_name(f"{result.name} ({label})")))
+        out.append(_tag("linearity", role, result, f"{result.name} ({label})", direction))
     for result in variance_checks(residual, regressor, designs):
-        out.append(Tagged("variance", role, result.with_name(f"{result.name} ({label})")))
+        out.append(_tag("variance", role, result, f"{result.name} ({label})", direction))
     independence = hsic(regressor, residual, **_hsic_kwargs(policy, seed))
-    out.append(Tagged("residual independence", role, independence.with_name(f"hsic ({label})")))
+    out.append(_tag("residual independence", role, independence, f"hsic ({label})", direction, test="hsic"))
     return out
 
 
@@ -145,11 +156,7 @@ def _spline_residual(regressor: np.ndarray, response: np.ndarray, max_df: int,
     return ols(basis, response).residuals
 
 
-SPLINE_RESIDUAL = "of spline residual"
-"""Marks the variance checks judged on the residual of the regression spline."""
-
-
-def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, label: str, role: str,
+def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, direction: tuple[str, str], role: str,
                             policy: Policy, designs: RegressorDesigns | None = None) -> list[Tagged]:
     """Koenker's Breusch-Pagan and White on the residual of the spline of the spline F-test.
 
@@ -173,10 +180,11 @@ def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, label: 
     if not np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8):
         return []
     residual = ols(designs.spline_design(df), response).residuals
-    return [Tagged("variance", role, replace(
-        result, name=f"{result.name} {SPLINE_RESIDUAL} ({label})",
-        note=f"{result.note}; residual of a cubic regression spline (df={df})"))
-        for result in variance_checks(residual, regressor, designs)]
+    label = f"{direction[0]} on {direction[1]}"
+    spline_note = f"; residual of a cubic regression spline (df={df})"
+    return [_tag("variance", role, replace(result, note=result.note + spline_note),
+                 f"{result.name} of spline residual ({label})", direction, variant=SPLINE_RESIDUAL)
+            for result in variance_checks(residual, regressor, designs)]
 
 
 def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str,
@@ -191,14 +199,14 @@ def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str
     from preflight.checks.independence import hsic
 
     out = []
-    for regressor, response, label, role in ((x, y, f"{y_name} on {x_name}", "forward"),
-                                              (y, x, f"{x_name} on {y_name}", "reverse")):
+    for regressor, response, direction, role in ((x, y, (y_name, x_name), "forward"),
+                                                 (y, x, (x_name, y_name), "reverse")):
         residual = _spline_residual(regressor, response, policy.spline_max_df, Z)
         result = hsic(regressor, residual, **_hsic_kwargs(policy, seed))
-        out.append(Tagged("additive-noise independence", role,
-                          replace(result, name=f"hsic of spline residual ({label})",
-                                  note=(result.note + "; " if result.note else "")
-                                  + "residual of a regression spline")))
+        note = (result.note + "; " if result.note else "") + "residual of a regression spline"
+        out.append(_tag("additive-noise independence", role, replace(result, note=note),
+                        f"hsic of spline residual ({direction[0]} on {direction[1]})", direction,
+                        variant=SPLINE_RESIDUAL, test="hsic"))
     return out
 
 
@@ -223,22 +231,24 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
     if adjacent:
         # Each direction's regressor gets its designs built once, for every check that fits on it.
         designs = {"forward": RegressorDesigns(xr), "reverse": RegressorDesigns(yr)}
-        checks += _direction_checks(xr, yr, f"{y_name} on {x_name}", "forward", policy, seed, designs["forward"])
-        checks += _direction_checks(yr, xr, f"{x_name} on {y_name}", "reverse", policy, seed, designs["reverse"])
-        lr = pairwise_likelihood_ratio(xr, yr).with_name(f"pairwise likelihood ratio ({x_name} -> {y_name} if > 0)")
-        lr_value = float(lr.statistic)
-        checks.append(Tagged(None, "pair", lr))
+        checks += _direction_checks(xr, yr, (y_name, x_name), "forward", policy, seed, designs["forward"])
+        checks += _direction_checks(yr, xr, (x_name, y_name), "reverse", policy, seed, designs["reverse"])
+        lr = _tag(None, "pair", pairwise_likelihood_ratio(xr, yr),
+                  f"pairwise likelihood ratio ({x_name} -> {y_name} if > 0)", variables=(x_name, y_name),
+                  test="pairwise-likelihood-ratio")
+        lr_value = float(lr.result.statistic)
+        checks.append(lr)
         linear_p = [t.result.p_value for t in checks if t.family == "linearity" and t.result.p_value is not None]
         if linear_p and rejects(min(linear_p), policy.alpha):
             checks += additive_noise_checks(x, y, x_name, y_name, policy, seed, Z)
         # Only a direction whose raw linearity tests reject can be judged
         # nonlinear, so only there is the spread of the spline residual needed.
-        for regressor, response, label, role in ((xr, yr, f"{y_name} on {x_name}", "forward"),
-                                                 (yr, xr, f"{x_name} on {y_name}", "reverse")):
+        for regressor, response, direction, role in ((xr, yr, (y_name, x_name), "forward"),
+                                                     (yr, xr, (x_name, y_name), "reverse")):
             role_p = [t.result.p_value for t in checks
                       if t.family == "linearity" and t.role == role and t.result.p_value is not None]
             if role_p and rejects(min(role_p), policy.alpha):
-                checks += _spline_variance_checks(regressor, response, label, role, policy, designs[role])
+                checks += _spline_variance_checks(regressor, response, direction, role, policy, designs[role])
     return PairBattery(x=x_name, y=y_name, adjacent=adjacent, n=int(x.shape[0]),
                        conditioning=conditioning, checks=tuple(checks), likelihood_ratio=lr_value)
 
@@ -272,7 +282,11 @@ def _less_dependent(checks: list[Tagged], family: str, battery: PairBattery) -> 
 
 def _spread(checks: list[Tagged], role: str, spline: bool) -> list[CheckResult]:
     """Variance checks of one direction on the straight-line residual, or on the spline residual."""
-    return [r for r in _of(checks, "variance", role) if (SPLINE_RESIDUAL in r.name) == spline]
+    return [r for r in _of(checks, "variance", role) if _on_spline_residual(r) == spline]
+
+
+def _on_spline_residual(result: CheckResult) -> bool:
+    return result.identity is not None and result.identity.variant == SPLINE_RESIDUAL
 
 
 def _material_departure(results: list[CheckResult], alpha: float, floor: float) -> bool:
@@ -423,7 +437,7 @@ def _judged_checks(checks: list[Tagged], policy: Policy, favoured: str, spread_r
         if t.family == "noise normality":
             passed = None if r.p_value is None else significant(r, alpha)
         elif t.family in guard_families and t.role in ("forward", "reverse"):
-            guard_role = spread_role if t.family == "variance" and SPLINE_RESIDUAL in r.name else favoured
+            guard_role = spread_role if t.family == "variance" and _on_spline_residual(r) else favoured
             if t.role != guard_role:
                 passed = None
                 r = replace(r, note=(r.note + "; " if r.note else "") +
@@ -432,7 +446,7 @@ def _judged_checks(checks: list[Tagged], policy: Policy, favoured: str, spread_r
             elif t.family in ("linearity",):
                 passed = not _material_departure([r], alpha, policy.nonlinear_min_r2_gain)
             elif t.family == "variance":
-                if (SPLINE_RESIDUAL in r.name) != nonlinear:
+                if _on_spline_residual(r) != nonlinear:
                     passed = None
                     r = replace(r, note=(r.note + "; " if r.note else "") + (
                         "not the guard: the mechanism is judged nonlinear, so the spline residual's spread decides"

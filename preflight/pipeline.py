@@ -28,7 +28,7 @@ from preflight.evidence import Tagged, adjust_named_groups, significant
 from preflight.io import GraphFile, LoadedData
 from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
-from preflight.results import CheckResult
+from preflight.results import NOISE_ESTIMATE, NOISE_ESTIMATES, CheckResult
 from preflight.rules import RulesOutcome, evaluate, meets
 from preflight.seeds import derived_seed
 from preflight.stages import (
@@ -111,8 +111,9 @@ def _noise_dependence_task(noise: np.ndarray, pairs, policy: Policy) -> list[Che
 def _tag_noise_dependence(results: list[CheckResult], names, pairs, progress: Progress) -> dict:
     if pairs:
         progress("noise dependence", len(pairs), len(pairs))
-    return {(i, j): Tagged("noise dependence", "pair",
-                           result.with_name(f"noise dependence (hsic) ({names[i]}, {names[j]})"))
+    return {(i, j): Tagged("noise dependence", "pair", result.identified(
+                scope="pair", family="noise dependence", variables=tuple(sorted((names[i], names[j]))), test="hsic",
+                variant=NOISE_ESTIMATES, name=f"noise dependence (hsic) ({names[i]}, {names[j]})"))
             for (i, j), result in zip(pairs, results)}
 
 
@@ -144,12 +145,13 @@ def _screen(table: Table) -> Screen:
     flags = {s.name: list(s.flags) for s in screens}
     for name in loaded.missing_by_column:
         flags[name].append("missing-values")
-    checks = {s.name: [Tagged("autocorrelation" if c.name.startswith("ljung-box") else None, "variable", c)
+    checks = {s.name: [Tagged(c.identity.family if c.identity is not None else None, "variable", c)
                        for c in s.checks] for s in screens}
     for name, count in loaded.missing_by_column.items():
         checks[name].append(Tagged(None, "variable", CheckResult(
             name="missing values", statistic=float(count), p_value=None, effect=count / loaded.rows,
-            effect_name="share of rows", n=loaded.rows, note="rows with a missing value were dropped")))
+            effect_name="share of rows", n=loaded.rows, note="rows with a missing value were dropped",
+        ).identified(scope="variable", variables=(name,))))
     global_flags: list[str] = []
     global_checks: list[Tagged] = [Tagged(None, "global", CheckResult(
         name="usable rows", statistic=float(n), p_value=None, effect=None, effect_name=None, n=n,
@@ -237,16 +239,18 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
     for j, name in enumerate(names):
         seed = derived_seed(policy.seed, "noise", name)
         for result in normality_checks(noise[:, j], max_n=policy.shapiro_max_n, seed=seed):
-            variable_checks[j].append(Tagged("noise normality", "variable",
-                                             result.with_name(f"{result.name} (noise of {name})")))
+            variable_checks[j].append(Tagged("noise normality", "variable", result.identified(
+                scope="variable", family="noise normality", variables=(name,), variant=NOISE_ESTIMATE,
+                name=f"{result.name} (noise of {name})")))
         progress("noise shape", j + 1, p)
     from preflight.checks.confounding import SPECTRAL_MIN_PREDICTORS, spectral_confounding
 
     for j, name in enumerate(names):
         if len(parents[j]) >= SPECTRAL_MIN_PREDICTORS:
             strength = spectral_confounding(X, j, parents[j])
-            variable_checks[j].append(Tagged(None, "variable", strength.with_name(
-                f"spectral confounding strength ({name} on its {len(parents[j])} parents)")))
+            variable_checks[j].append(Tagged(None, "variable", strength.identified(
+                scope="variable", variables=(name,), test="spectral-confounding-strength",
+                name=f"spectral confounding strength ({name} on its {len(parents[j])} parents)")))
     global_checks: list[Tagged] = []
     edges = [(parent, child) for child, ps in enumerate(parents) for parent in ps]
     flags: list[str] = []
@@ -763,7 +767,7 @@ def _report(table: Table, computed: Computed, evidence: Evidence, variables: Var
         "variables": list(variables.entries),
         "pairs": list(conclusion.pair_entries),
         "global": {"flags": list(conclusion.global_flags),
-                   "checks": [t.result.to_dict() for t in evidence.global_checks]},
+                   "checks": [_identified_global(t.result).to_dict() for t in evidence.global_checks]},
         "structure": {
             "adjacency": computed.skeleton.source,
             "order": [names[i] for i in structure.order] if structure else [],
@@ -796,7 +800,13 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
         note=("rows for the Jarque-Bera test to detect this noise's skewness "
               f"({s.skewness:.3f}) and excess kurtosis ({s.excess_kurtosis:.3f}) with 80% power at alpha "
               f"{policy.alpha:g}" if needed is not None
-              else "noise shape indistinguishable from Gaussian: no finite number"))
+              else "noise shape indistinguishable from Gaussian: no finite number"),
+    ).identified(scope="variable", variables=(name,), test="rows-needed", variant=NOISE_ESTIMATE)
+
+
+def _identified_global(result: CheckResult) -> CheckResult:
+    """A whole-table check with its identity: the test its function named, no family, no variables."""
+    return result if result.identity is not None else result.identified(scope="global")
 
 
 

@@ -393,7 +393,7 @@ def screen_variables(X: np.ndarray, names: list[str], policy: Policy) -> list[Va
     flags: list[list[str]] = []
     checks: list[list[CheckResult]] = []
     constant = []
-    for j, _name in enumerate(names):
+    for j, name in enumerate(names):
         x = columns[:, j]
         column_flags: list[str] = []
         distinct = distinct_values_check(x, policy)
@@ -417,13 +417,13 @@ def screen_variables(X: np.ndarray, names: list[str], policy: Policy) -> list[Va
             if not policy.rows_unordered:
                 lb = ljung_box_check(x, policy.autocorrelation_lags)
                 if lb is not None:
-                    column_checks.append(lb)
+                    column_checks.append(lb.identified(scope="variable", family="autocorrelation", variables=(name,)))
         flags.append(column_flags)
         checks.append(column_checks)
 
     # --- autocorrelation: adjust across variables, then the rule
     where = [(j, k) for j, cs in enumerate(checks) for k, c in enumerate(cs)
-             if c.name.startswith("ljung-box") and c.p_value is not None]
+             if c.identity is not None and c.identity.family == "autocorrelation" and c.p_value is not None]
     for (j, k), lb in zip(where, with_adjusted([checks[j][k] for j, k in where], policy.correction)):
         checks[j][k] = lb
         if (rejects(lb.p_adjusted, policy.alpha) and lb.effect is not None
@@ -439,5 +439,6 @@ def screen_variables(X: np.ndarray, names: list[str], policy: Policy) -> list[Va
             if vif[j] > policy.vif_max:
                 flags[j].append("collinear")
 
-    return [VariableScreen(name=name, flags=tuple(flags[j]), checks=tuple(checks[j]))
-            for j, name in enumerate(names)]
+    return [VariableScreen(name=name, flags=tuple(flags[j]), checks=tuple(
+        c if c.identity is not None else c.identified(scope="variable", variables=(name,)) for c in checks[j]))
+        for j, name in enumerate(names)]

@@ -9,10 +9,11 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from preflight.battery import SPLINE_RESIDUAL, _spline_variance_checks
+from preflight.battery import _spline_variance_checks
 from preflight.checks.linearity import full_rank_columns
 from preflight.fit import bspline_basis, ols, spline_df
 from preflight.policy import Policy
+from preflight.results import SPLINE_RESIDUAL
 
 from conftest import judged_pair, pool_map
 
@@ -41,7 +42,7 @@ def test_spline_residual_checks_match_statsmodels():
 
     x, y = _tanh_pair(5, "changing")
     policy = Policy()
-    bp, white = _spline_variance_checks(x, y, "y on x", "forward", policy)
+    bp, white = _spline_variance_checks(x, y, ("y", "x"), "forward", policy)
     basis = bspline_basis(x, spline_df(x.shape[0], policy.spline_max_df))
     residual = ols(full_rank_columns(basis[:, 1:]), y).residuals
     design = np.column_stack([np.ones_like(x), x])
@@ -51,7 +52,12 @@ def test_spline_residual_checks_match_statsmodels():
     lm_w, p_w, _, _ = het_white(residual, design)
     assert white.result.statistic == pytest.approx(lm_w, rel=1e-9)
     assert white.result.p_value == pytest.approx(p_w, rel=1e-7, abs=1e-300)
-    assert all(SPLINE_RESIDUAL in t.result.name and t.family == "variance" for t in (bp, white))
+    for t, test in ((bp, "breusch-pagan"), (white, "white")):
+        identity = t.result.identity
+        assert identity is not None and t.family == identity.family == "variance"
+        assert (identity.test, identity.variant, identity.direction, identity.variables) == (
+            test, SPLINE_RESIDUAL, ("y", "x"), ("x", "y"))
+        assert t.result.name == f"{test} of spline residual (y on x)"
 
 
 def test_homoscedastic_tanh_pair_rarely_raises_heteroscedastic():

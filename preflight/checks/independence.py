@@ -40,7 +40,7 @@ import numpy as np
 
 from preflight.checks._validate import as_vector, same_length, unit_scaled
 from preflight.errors import InputError
-from preflight.results import CheckResult
+from preflight.results import CheckIdentity, CheckResult
 
 BANDWIDTH_MAX_POINTS = 1000
 """Points used for the median heuristic; the median of ~5e5 differences is stable enough."""
@@ -420,7 +420,7 @@ def _hsic_gamma(xs: np.ndarray, ys: np.ndarray, rng: np.random.Generator,
         null_note = ""
     return CheckResult(
         name="hsic gamma", statistic=statistic, p_value=p_value,
-        effect=effect, effect_name=_NORMALISED_HSIC, n=n,
+        effect=effect, effect_name=_NORMALISED_HSIC, n=n, identity=CheckIdentity("hsic", null="gamma"),
         note=(f"exact HSIC on {n} rows, statistic n*HSIC_b, gamma approximation to the null "
               f"(Gretton et al. 2008){_fit_note(fit)}; {_bandwidth_rows_note(n)}{tie_note}{null_note}"),
     )
@@ -477,7 +477,7 @@ def _hsic_permutation(xs: np.ndarray, ys: np.ndarray, n_permutations: int,
     p_value = (1 + exceed) / (1 + n_permutations)
     return CheckResult(
         name="hsic permutation", statistic=cross / n, p_value=p_value,
-        effect=effect, effect_name=_NORMALISED_HSIC, n=n,
+        effect=effect, effect_name=_NORMALISED_HSIC, n=n, identity=CheckIdentity("hsic", null="permutation"),
         note=(f"exact HSIC on {n} rows, statistic n*HSIC_b, seeded permutation null with "
               f"{n_permutations} permutations, p = (1 + #exceed) / (1 + B); "
               f"{_bandwidth_rows_note(n)}{tie_note}"),
@@ -625,7 +625,7 @@ def _hsic_rff(xs: np.ndarray, ys: np.ndarray, n_features: int, rng: np.random.Ge
                                             norm_xx, norm_yy, shift)
     return CheckResult(
         name="hsic random fourier features", statistic=statistic, p_value=p_value,
-        effect=effect, effect_name=_NORMALISED_HSIC, n=n,
+        effect=effect, effect_name=_NORMALISED_HSIC, n=n, identity=CheckIdentity("hsic", null="random features"),
         note=(f"random-Fourier-feature HSIC on {n} rows with {n_features} seeded frequencies "
               f"(cosine and sine, {2 * n_features} features) per variable, statistic n*||C_xy||_F^2, "
               "gamma matched to the mean and variance of its asymptotic chi-square mixture null "
@@ -729,7 +729,7 @@ def hsic(x, y, exact_max_n: int = 2000, max_n: int = 20000, n_features: int = 40
             ignored_note = f"; {int(permutations)} permutations requested but not run above {int(exact_max_n)} rows"
     return CheckResult(
         name="hsic", statistic=result.statistic, p_value=result.p_value, effect=result.effect,
-        effect_name=result.effect_name, n=result.n,
+        effect_name=result.effect_name, n=result.n, identity=result.identity,
         note=subsample_note + result.note + ignored_note,
     )
 
@@ -825,7 +825,7 @@ def _shared_feature_hsic(features_a: tuple, features_b: tuple, m: int, n_feature
     p_value, null_note = _rff_gamma_p_value(m * cross, m, trace_x, trace_y, norm_xx, norm_yy)
     return CheckResult(
         name="hsic", statistic=m * cross, p_value=p_value, effect=_normalised(cross, norm_xx, norm_yy),
-        effect_name=_NORMALISED_HSIC, n=m,
+        effect_name=_NORMALISED_HSIC, n=m, identity=CheckIdentity("hsic", null="random features"),
         note=(f"{subsample_note}random-Fourier-feature HSIC on {m} rows with {n_features} seeded frequencies "
               "per column, drawn once and shared by every pair of this table, statistic n*||C_xy||_F^2, "
               "gamma matched to the mean and variance of its asymptotic chi-square mixture null "

@@ -277,7 +277,7 @@ def _flag_delta(added: tuple[str, ...], removed: tuple[str, ...]) -> str:
 
 
 def _setting(value: Any) -> str:
-    from preflight.report.markdown import fmt_setting
+    from preflight.report.prose import fmt_setting
 
     return "(absent)" if value is None else fmt_setting(value)
 

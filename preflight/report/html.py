@@ -19,10 +19,18 @@ import warnings
 from collections.abc import Sequence
 from typing import Any
 
-from preflight.report.markdown import (
+from preflight.report.identity import variable_check
+from preflight.report.model import Report
+from preflight.report.prose import (
     CHECK_HEADER,
+    FINDINGS_LEAD,
+    INPUT_WARNING,
+    NO_CHECKS,
+    NO_REASON,
     REFERENCES,
+    ROWS_NEEDED_HEADER,
     SECTION_TITLES,
+    WHOLE_TABLE_FLAGS,
     conclusion_words,
     edge_text,
     findings_explained,
@@ -37,11 +45,11 @@ from preflight.report.markdown import (
     outcome,
     pairs_in_reading_order,
     policy_descriptions,
+    report_title,
     rows_needed_text,
-    variable_check,
 )
-from preflight.report.model import Report
 from preflight.report.text import headline
+from preflight.results import NOISE_ESTIMATE
 
 ARROW, UNDIRECTED = "\u2192", "\u2014"
 
@@ -219,14 +227,14 @@ def _verdict(data: dict[str, Any]) -> str:
 
 def _why(data: dict[str, Any]) -> str:
     parts = [f'<section id="why"><h2>{_e(SECTION_TITLES["why"])}</h2>']
-    reasons = data["conclusion"]["reasons"] or ["No reason was recorded."]
+    reasons = data["conclusion"]["reasons"] or [NO_REASON]
     parts.append('<ul class="reasons">' + "".join(f"<li>{_e(r)}</li>" for r in reasons) + "</ul>")
     findings = findings_explained(data)
     if findings:
         rows = [f"<tr><td>{_flags([flag])}</td><td>{_e(meaning)}</td>"
                 f"<td>{_e(fits) if fits else '<span class=none>-</span>'}</td></tr>"
                 for flag, meaning, fits in findings]
-        parts.append("<h3>What each finding means, and what analysis still fits</h3>")
+        parts.append(f"<h3>{_e(FINDINGS_LEAD)}</h3>")
         parts.append(_table(("finding", "what it means", "what still fits"), rows))
     parts.append("</section>")
     return "".join(parts)
@@ -285,24 +293,24 @@ def _variables(data: dict[str, Any]) -> str:
     parents = structure.get("parents") or {}
     rows = []
     for v in data["variables"]:
-        sw = variable_check(v, "shapiro-wilk (noise")
+        sw = variable_check(v, "shapiro-wilk", NOISE_ESTIMATE)
         sw_p = fmt_p(sw["p_adjusted"] if sw and sw["p_adjusted"] is not None else (sw["p_value"] if sw else None))
         rows.append(f"<tr><td><strong>{_e(v['name'])}</strong></td><td>{_flags(v['flags'])}</td>"
                     f"<td>{_e(noise_finding(data, v['name']))}</td><td class=\"num\">{_e(sw_p)}</td>"
                     f"<td>{_e(', '.join(parents.get(v['name'], []))) or '<span class=none>-</span>'}</td>"
                     f"<td class=\"num\">{_e(rows_needed_text(v))}</td></tr>")
     header = ("variable", "flags", "noise", "Shapiro-Wilk p of noise (adjusted)", "estimated parents",
-              "rows needed to tell noise from Gaussian")
+              ROWS_NEEDED_HEADER)
     parts = [f'<section id="variables"><h2>{_e(SECTION_TITLES["variables"])}</h2>', _table(header, rows)]
     if data["global"]["flags"]:
-        parts.append(f"<p>Whole-table flags: {_flags(data['global']['flags'])}</p>")
+        parts.append(f"<p>{WHOLE_TABLE_FLAGS}: {_flags(data['global']['flags'])}</p>")
     parts.append("</section>")
     return "".join(parts)
 
 
 def _qq_subtitle(data: dict[str, Any], variable: dict[str, Any]) -> str:
     finding = noise_finding(data, variable["name"])
-    sw = variable_check(variable, "shapiro-wilk (noise")
+    sw = variable_check(variable, "shapiro-wilk", NOISE_ESTIMATE)
     if sw is None:
         return finding
     p = sw["p_adjusted"] if sw["p_adjusted"] is not None else sw["p_value"]
@@ -411,7 +419,7 @@ def _input(data: dict[str, Any]) -> str:
         ("Generated at", _e(data["generated_at"])),
     ]
     for warning in inp.get("warnings") or []:
-        rows.append(("Input warning", _e(warning)))
+        rows.append((INPUT_WARNING, _e(warning)))
     return f'<section id="input"><h2>{_e(SECTION_TITLES["input"])}</h2>{_kv(rows)}</section>'
 
 
@@ -423,7 +431,7 @@ def _all_checks(data: dict[str, Any]) -> str:
              "on their own. Each summary counts its FAILs.</p>"]
 
     def block(title: str, checks: Sequence[dict[str, Any]]) -> str:
-        body = _check_table(checks) if checks else "<p>No checks.</p>"
+        body = _check_table(checks) if checks else f"<p>{NO_CHECKS}</p>"
         return f"<details><summary>{_e(title)} {_counts(checks)}</summary>{body}</details>"
 
     parts.append("<h3>Variables</h3>")
@@ -444,7 +452,7 @@ def _all_checks(data: dict[str, Any]) -> str:
 def render_html(report: Report, *, max_edge_plots: int = MAX_EDGE_PLOTS, max_qq_plots: int = MAX_QQ_PLOTS) -> str:
     data = report.data if isinstance(report, Report) else report
     samples = report.samples if isinstance(report, Report) else None
-    title = f"Identifiability check of {data['input'].get('path') or 'table'}"
+    title = report_title(data)
     sha = data["input"].get("sha256")
     meta = (f"{data['tool']['name']} {data['tool']['version']} \u00b7 generated {data['generated_at']} \u00b7 "
             f"{fmt_count(data['input']['rows_used'])} of {fmt_count(data['input']['rows'])} rows used"

@@ -14,7 +14,7 @@ import xml.etree.ElementTree as ET
 from collections.abc import Sequence
 from typing import Any
 
-from preflight.report.markdown import fmt_number, fmt_p
+from preflight.report.prose import fmt_number, fmt_p
 from preflight.report.text import headline
 
 EVIDENCE_LINE = "evidence, not a guard"

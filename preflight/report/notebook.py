@@ -12,7 +12,7 @@ import html
 import re
 from typing import Any
 
-from preflight.report.markdown import edge_text, gate_outcome
+from preflight.report.prose import NO_REASON, edge_text, gate_outcome
 from preflight.report.text import headline
 
 REPR_REASONS = 3
@@ -123,7 +123,7 @@ def report_html(data: dict[str, Any]) -> str:
             rows.append(["<em>whole table</em>", _flags(data["global"]["flags"])])
         parts.append('<div style="font-weight:600;margin-top:6px;">Flags on variables and the whole table</div>')
         parts.append(_table(("variable", "flags"), rows))
-    reasons = c["reasons"] or ["No reason was recorded."]
+    reasons = c["reasons"] or [NO_REASON]
     parts.append('<div style="font-weight:600;margin-top:6px;">Why</div>')
     parts.append('<ul style="margin:2px 0 6px 1.2em;padding:0;">'
                  + "".join(f"<li>{_e(r)}</li>" for r in reasons) + "</ul>")

@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from preflight.evidence import rejects
+from preflight.report.identity import pair_check
 
 # Colours are never the only carrier of meaning: every styled element also
 # has a line style, a marker or a text label.
@@ -116,16 +117,9 @@ def _best_p(check: dict[str, Any] | None) -> tuple[float | None, str]:
     return check.get("p_value"), "raw"
 
 
-def find_check(checks: Sequence[dict[str, Any]], name: str) -> dict[str, Any] | None:
-    for check in checks:
-        if check["name"] == name:
-            return check
-    return None
-
-
 def direction_hsic(pair: dict[str, Any], regressor: str, response: str) -> dict[str, Any] | None:
-    """The pair's HSIC check of the residual of ``response`` regressed on ``regressor``."""
-    return find_check(pair["checks"], f"hsic ({response} on {regressor})")
+    """The pair's HSIC check of the (straight-line) residual of ``response`` regressed on ``regressor``."""
+    return pair_check(pair, "hsic", (response, regressor), family="residual independence")
 
 
 def _partialled(samples: dict[str, Any], pair: dict[str, Any]) -> tuple[np.ndarray, np.ndarray]:
@@ -340,7 +334,7 @@ def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, max_d
     grid = regressor[order]
     spline_fitted = fits.spline_fitted[order]
     straight_fitted = fits.linear_fitted[order]
-    gain = find_check(pair["checks"], f"spline f-test ({resp_name} on {reg_name})")
+    gain = pair_check(pair, "spline-f-test", (resp_name, reg_name))
     gain_text = ""
     if gain is not None and gain.get("effect") is not None:
         gain_text = f"; spline adds R\u00b2 {gain['effect']:.3f}"
@@ -547,6 +541,27 @@ def edge_kinds(report: dict[str, Any]) -> list[tuple[dict[str, Any], str, bool]]
     return out
 
 
+_LEGEND = (("oriented", True, "oriented edge: solid arrow from cause to effect"),
+           ("unoriented", False, "adjacent, direction not determined: dashed line"),
+           ("suspect", False, "hidden common cause suspected: dotted line with a diamond"))
+_KIND_WORDS = {"oriented": "oriented", "unoriented": "direction not determined",
+               "suspect": "hidden common cause suspected"}
+
+
+@dataclass(frozen=True)
+class _GraphGeometry:
+    """Where every box of the overview graph sits, in points."""
+
+    width: float
+    height: float
+    legend_height: float
+    centres: dict[str, tuple[float, float]]
+    half: dict[str, tuple[float, float]]
+    """Half width and half height of each variable's box."""
+    labels: dict[str, tuple[str, str]]
+    """(title, flags line) of each variable's box."""
+
+
 def graph_svg(report: dict[str, Any], *, key: str = "graph") -> str:
     """Overview of the variables with every edge drawn by status.
 
@@ -555,14 +570,46 @@ def graph_svg(report: dict[str, Any], *, key: str = "graph") -> str:
     are dotted with a diamond at the middle.  A legend in words sits under
     the graph.  Coordinates are in points, so box sizes and gaps are exact.
     """
-    from matplotlib.patches import FancyBboxPatch
-
     names = list(report["input"]["columns"])
+    drawn = edge_kinds(report)
+    geometry = _graph_geometry(report, names, drawn)
+    width, height, centres, half = geometry.width, geometry.height, geometry.centres, geometry.half
+    import matplotlib
+
+    with matplotlib.rc_context(_RC):
+        fig = _figure(width / 72.0, height / 72.0)
+        ax = fig.add_axes([0, 0, 1, 1])
+        ax.set_xlim(0, width)
+        ax.set_ylim(0, height)
+        ax.axis("off")
+        for pair, kind, oriented in drawn:
+            a, b = pair["x"], pair["y"]
+            if oriented and pair["orientation"] == "y->x":
+                a, b = b, a
+            # Bend lines that would otherwise run through the boxes in between.
+            others = [(centres[n], half[n]) for n in names if n not in (a, b)]
+            rad = _clear_bend(np.asarray(centres[a], float), np.asarray(centres[b], float), others)
+            _draw_edge(ax, centres[a], half[a], centres[b], half[b], kind, oriented, rad)
+        _draw_boxes(ax, names, geometry)
+        _draw_legend(ax, geometry.legend_height)
+        if not drawn:
+            ax.text(width / 2, height - _MARGIN - 6, "no edges: no pair was found adjacent or suspect",
+                    ha="center", va="top", fontsize=8.5, color=INK)
+        described = []
+        for pair, kind, oriented in drawn:
+            a, b = (pair["y"], pair["x"]) if pair["orientation"] == "y->x" else (pair["x"], pair["y"])
+            described.append(f"{a} {'->' if oriented else '--'} {b} ({_KIND_WORDS[kind]})")
+        summary = "Edges: " + "; ".join(described) + "." if described else "No edges."
+        return _to_svg(fig, key, title="Overview graph of the variables. " + summary + " Legend: "
+                       + "; ".join(text for _, _, text in _LEGEND) + ".", tight=False)
+
+
+def _graph_geometry(report: dict[str, Any], names: list[str], drawn) -> _GraphGeometry:
+    """Box sizes from the labels, layers from the causal order, and the centre of every box."""
     structure = report.get("structure") or {}
     order = list(structure.get("order") or [])
     flags_of = {v["name"]: [f for f in v["flags"]] for v in report["variables"]}
     gaussian = set(structure.get("gaussian_noises") or [])
-    drawn = edge_kinds(report)
     # Every adjacent pair shapes the layers; a suspect pair that is not adjacent is drawn but does not.
     layout = graph_layout(names, order, [(p["x"], p["y"]) for p, _, _ in drawn if p["adjacent"]])
 
@@ -585,10 +632,7 @@ def graph_svg(report: dict[str, Any], *, key: str = "graph") -> str:
     rows_per_layer = [sum(1 for lv, _ in layout.values() if lv == level) for level in range(n_layers)]
     row_height = 2 * half_h_flagged + _ROW_GAP
     body_height = max(rows_per_layer, default=1) * row_height
-    legend_items = [("oriented", True, "oriented edge: solid arrow from cause to effect"),
-                    ("unoriented", False, "adjacent, direction not determined: dashed line"),
-                    ("suspect", False, "hidden common cause suspected: dotted line with a diamond")]
-    legend_height = 16.0 * len(legend_items) + 14.0
+    legend_height = 16.0 * len(_LEGEND) + 14.0
     width = sum(layer_width) + _COLUMN_GAP * (n_layers - 1) + 2 * _MARGIN
     width = max(width, 380.0)
     height = body_height + legend_height + 2 * _MARGIN
@@ -602,53 +646,33 @@ def graph_svg(report: dict[str, Any], *, key: str = "graph") -> str:
             if lv == level:
                 cy = height - _MARGIN - body_height / 2 - (row - (count - 1) / 2) * row_height
                 centres[name] = (cx, cy)
+    return _GraphGeometry(width, height, legend_height, centres, half, labels)
 
-    import matplotlib
 
-    with matplotlib.rc_context(_RC):
-        fig = _figure(width / 72.0, height / 72.0)
-        ax = fig.add_axes([0, 0, 1, 1])
-        ax.set_xlim(0, width)
-        ax.set_ylim(0, height)
-        ax.axis("off")
-        for pair, kind, oriented in drawn:
-            a, b = pair["x"], pair["y"]
-            if oriented and pair["orientation"] == "y->x":
-                a, b = b, a
-            # Bend lines that would otherwise run through the boxes in between.
-            others = [(centres[n], half[n]) for n in names if n not in (a, b)]
-            rad = _clear_bend(np.asarray(centres[a], float), np.asarray(centres[b], float), others)
-            _draw_edge(ax, centres[a], half[a], centres[b], half[b], kind, oriented, rad)
-        for name in names:
-            cx, cy = centres[name]
-            hw, hh = half[name]
-            ax.add_patch(FancyBboxPatch((cx - hw, cy - hh), 2 * hw, 2 * hh,
-                                        boxstyle="round,pad=0,rounding_size=5", facecolor="white",
-                                        edgecolor=INK, linewidth=1.0, zorder=6))
-            title, note = labels[name]
-            if note:
-                ax.text(cx, cy + _FLAG_FONT * 0.65, title, ha="center", va="center", fontsize=_NODE_FONT,
-                        color=INK, zorder=7)
-                ax.text(cx, cy - _NODE_FONT * 0.75, note, ha="center", va="center", fontsize=_FLAG_FONT,
-                        color="#444444", style="italic", zorder=7)
-            else:
-                ax.text(cx, cy, title, ha="center", va="center", fontsize=_NODE_FONT, color=INK, zorder=7)
-        # Legend in words, each entry with its line sample.
-        y = _MARGIN + legend_height - 14.0
-        for kind, arrow, text in legend_items:
-            start, end = (_MARGIN + 4, y), (_MARGIN + 52, y)
-            _draw_edge(ax, start, (0.0, 0.0), end, (0.0, 0.0), kind, arrow, 0.0)
-            ax.text(_MARGIN + 62, y, text, ha="left", va="center", fontsize=8.5, color=INK)
-            y -= 16.0
-        if not drawn:
-            ax.text(width / 2, height - _MARGIN - 6, "no edges: no pair was found adjacent or suspect",
-                    ha="center", va="top", fontsize=8.5, color=INK)
-        words = {"oriented": "oriented", "unoriented": "direction not determined",
-                 "suspect": "hidden common cause suspected"}
-        described = []
-        for pair, kind, oriented in drawn:
-            a, b = (pair["y"], pair["x"]) if pair["orientation"] == "y->x" else (pair["x"], pair["y"])
-            described.append(f"{a} {'->' if oriented else '--'} {b} ({words[kind]})")
-        summary = "Edges: " + "; ".join(described) + "." if described else "No edges."
-        return _to_svg(fig, key, title="Overview graph of the variables. " + summary + " Legend: "
-                       + "; ".join(text for _, _, text in legend_items) + ".", tight=False)
+def _draw_boxes(ax, names: list[str], geometry: _GraphGeometry) -> None:
+    from matplotlib.patches import FancyBboxPatch
+
+    for name in names:
+        cx, cy = geometry.centres[name]
+        hw, hh = geometry.half[name]
+        ax.add_patch(FancyBboxPatch((cx - hw, cy - hh), 2 * hw, 2 * hh,
+                                    boxstyle="round,pad=0,rounding_size=5", facecolor="white",
+                                    edgecolor=INK, linewidth=1.0, zorder=6))
+        title, note = geometry.labels[name]
+        if note:
+            ax.text(cx, cy + _FLAG_FONT * 0.65, title, ha="center", va="center", fontsize=_NODE_FONT,
+                    color=INK, zorder=7)
+            ax.text(cx, cy - _NODE_FONT * 0.75, note, ha="center", va="center", fontsize=_FLAG_FONT,
+                    color="#444444", style="italic", zorder=7)
+        else:
+            ax.text(cx, cy, title, ha="center", va="center", fontsize=_NODE_FONT, color=INK, zorder=7)
+
+
+def _draw_legend(ax, legend_height: float) -> None:
+    """The legend in words, each entry with its line sample."""
+    y = _MARGIN + legend_height - 14.0
+    for kind, arrow, text in _LEGEND:
+        start, end = (_MARGIN + 4, y), (_MARGIN + 52, y)
+        _draw_edge(ax, start, (0.0, 0.0), end, (0.0, 0.0), kind, arrow, 0.0)
+        ax.text(_MARGIN + 62, y, text, ha="left", va="center", fontsize=8.5, color=INK)
+        y -= 16.0
