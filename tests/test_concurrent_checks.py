@@ -55,3 +55,38 @@ def test_two_threads_checking_different_tables_get_the_serial_reports():
         thread.join()
     assert not errors, errors
     assert concurrent == serial
+
+
+def test_random_feature_hsic_from_many_threads_matches_serial():
+    """The random-feature HSIC remembers recent features; threads evicting each other's entries change nothing."""
+    from preflight.checks.independence import hsic
+
+    rng = np.random.default_rng(11)
+    columns = [rng.exponential(size=3000) for _ in range(12)]
+    pairs = [(columns[k], columns[k] + 0.3 * columns[(k + 1) % 12]) for k in range(12)]
+
+    def run(k: int):
+        x, y = pairs[k]
+        return hsic(x, y, exact_max_n=500, seed=k).p_value  # 3,000 rows: the random-feature test
+
+    serial = [run(k) for k in range(12)]
+    results: dict[tuple[int, int], float | None] = {}
+    errors: list[BaseException] = []
+    start = threading.Barrier(4)
+
+    def worker(t: int) -> None:
+        try:
+            start.wait()
+            for repeat in range(3):
+                for k in range(t, 12, 4) if repeat % 2 == 0 else range(12):
+                    results[(t, k)] = run(k)
+        except BaseException as error:  # surfaced in the main thread below
+            errors.append(error)
+
+    threads = [threading.Thread(target=worker, args=(t,)) for t in range(4)]
+    for thread in threads:
+        thread.start()
+    for thread in threads:
+        thread.join()
+    assert not errors, errors
+    assert all(value == serial[k] for (_, k), value in results.items())

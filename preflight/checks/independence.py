@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+import threading
 from collections import OrderedDict
 from collections.abc import Callable
 from dataclasses import replace
@@ -544,6 +545,7 @@ def _features_and_derivative_mean(v: np.ndarray, omega: np.ndarray) -> tuple[np.
 
 _FEATURE_CACHE: OrderedDict = OrderedDict()
 _FEATURE_CACHE_SIZE = 6
+_FEATURE_CACHE_LOCK = threading.Lock()
 
 
 def _features_and_covariance(v: np.ndarray, sigma: float, n_frequencies: int,
@@ -556,19 +558,26 @@ def _features_and_covariance(v: np.ndarray, sigma: float, n_frequencies: int,
     regressor in every HSIC it enters (association, residual, spline
     residual), so its features are computed once.  The frequencies are
     always drawn, so the generator's stream, and every result, is the same
-    with or without a hit.
+    with or without a hit.  The memo is keyed by the content of v and of the
+    frequencies, so a hit returns exactly what the computation would; the
+    arrays it hands out are read-only, and a lock keeps threads that run
+    checks at once from evicting each other's entries mid-lookup.
     """
     omega = rng.standard_normal(n_frequencies) / sigma
     key = (v.shape[0], hashlib.blake2b(v.tobytes(), digest_size=16).digest(), omega.tobytes())
-    hit = _FEATURE_CACHE.get(key)
-    if hit is not None:
-        _FEATURE_CACHE.move_to_end(key)
-        return hit
+    with _FEATURE_CACHE_LOCK:
+        hit = _FEATURE_CACHE.get(key)
+        if hit is not None:
+            _FEATURE_CACHE.move_to_end(key)
+            return hit
     features, derivative_mean = _features_and_derivative_mean(v, omega)
     covariance = (features.T @ features).astype(np.float64) / v.shape[0]
-    _FEATURE_CACHE[key] = (features, covariance, derivative_mean)
-    while len(_FEATURE_CACHE) > _FEATURE_CACHE_SIZE:
-        _FEATURE_CACHE.popitem(last=False)
+    for array in (features, covariance, derivative_mean):
+        array.flags.writeable = False
+    with _FEATURE_CACHE_LOCK:
+        _FEATURE_CACHE[key] = (features, covariance, derivative_mean)
+        while len(_FEATURE_CACHE) > _FEATURE_CACHE_SIZE:
+            _FEATURE_CACHE.popitem(last=False)
     return features, covariance, derivative_mean
 
 
