@@ -28,7 +28,7 @@ def _comparable(report) -> dict:
 
 
 def test_two_threads_checking_different_tables_get_the_serial_reports():
-    tables = [pd.DataFrame(demo.kiln_data(600)), _fork_table(700, seed=5)]
+    tables = [pd.DataFrame(demo.kiln_data(400)), _fork_table(500, seed=5)]
 
     def check(frame):
         return preflight.check(frame, seed=3, jobs=1, keep_samples=False)

@@ -176,6 +176,29 @@ def test_multiplicity_adjustment_follows_the_p_values_not_their_order(method):
             assert np.unique(adjusted[p == value]).size == 1
 
 
+@pytest.mark.parametrize("method", ["holm", "fdr_bh"])
+def test_groups_adjusted_by_key_get_the_numbers_of_the_listed_groups(method):
+    from preflight.evidence import Tagged, adjust_families, adjust_named_groups
+    from preflight.results import CheckResult
+
+    rng = np.random.default_rng(5)
+
+    def tagged(family):
+        return Tagged(family, "pair", CheckResult(name="t", statistic=0.0, p_value=float(rng.uniform(0, 0.1))))
+
+    groups = {("pair", k): [tagged("a"), tagged("b")] for k in range(6)}
+    groups[("table", "")] = [tagged("a"), Tagged(None, "global", CheckResult(name="u", statistic=1.0, p_value=None))]
+    listed = adjust_families(list(groups.values()), method)
+    keyed = adjust_named_groups(groups, method)
+    assert list(keyed) == list(groups)
+    assert list(keyed.values()) == listed
+    assert any(t.result.p_adjusted > t.result.p_value for group in keyed.values() for t in group
+               if t.result.p_value is not None)
+    assert keyed[("table", "")][1].result.p_adjusted is None
+    reversed_keys = adjust_named_groups(dict(reversed(list(groups.items()))), method)
+    assert all(reversed_keys[key] == keyed[key] for key in groups)
+
+
 def test_reports_of_columns_near_the_ends_of_the_float_range_render_without_warnings():
     import warnings
 
