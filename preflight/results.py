@@ -43,7 +43,8 @@ class CheckIdentity:
         The multiplicity family it is corrected in (:mod:`preflight.evidence`);
         None when it is not corrected.
     scope : str
-        ``"variable"``, ``"pair"`` or ``"global"``.
+        ``"variable"``, ``"pair"`` or ``"global"``; empty while only the
+        check function has named its test (the caller sets the rest).
     variables : tuple of str
         The variables involved: one for a variable, the pair as the battery
         ran it (names sorted) for a pair, none for the whole table.
@@ -61,7 +62,7 @@ class CheckIdentity:
 
     test: str
     family: str | None = None
-    scope: str = "variable"
+    scope: str = ""
     variables: tuple[str, ...] = ()
     direction: tuple[str, str] | None = None
     variant: str | None = None
