@@ -86,6 +86,52 @@ def fit_equations(X, parents: Sequence[Sequence[int]]) -> tuple[StructuralEquati
     return tuple(out)
 
 
+def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, seed: int = 0) -> tuple:
+    """Checks of one structural equation x_target = c + b' x_parents + e, as ``CheckResult``s.
+
+    In order: the five noise normality checks of
+    :func:`preflight.checks.normality.normality_checks` on the residual
+    (H0: Gaussian noise); Ramsey's RESET on the equation (H0: E[x_target |
+    parents] is linear; powers 2 and 3 of the standardised fitted values,
+    Ramsey 1969); the additive spline F-test (H0: every parent enters
+    linearly, against a cubic B-spline in each parent with
+    :func:`preflight.fit.spline_df` columns; effect: gain in R-squared);
+    Koenker's Breusch-Pagan and White on all the parents (H0: the noise
+    variance does not depend on them; Koenker 1981, White 1980).  A
+    variable without parents gets the normality checks only.  Nothing here
+    is adjusted for multiplicity.
+    """
+    from preflight.checks.linearity import _nested_f, full_rank_columns
+    from preflight.checks.normality import normality_checks
+    from preflight.checks.variance import breusch_pagan, white_test
+    from preflight.fit import bspline_basis, ols, spline_df
+    from preflight.results import CheckResult
+
+    X = as_matrix(X, name="X", min_n=8)
+    target = int(target)
+    sets: list[tuple[int, ...]] = [() for _ in range(X.shape[1])]
+    sets[target] = tuple(int(i) for i in parents)
+    equation = fit_equations(X, sets)[target]
+    out = list(normality_checks(equation.residuals, seed=seed))
+    if not equation.parents:
+        return tuple(out)
+    P, y, n = X[:, list(equation.parents)], X[:, target], X.shape[0]
+    linear = ols(P, y)
+    fitted = y - linear.residuals
+    spread = float(fitted.std())
+    s = (fitted - fitted.mean()) / (spread if spread > 0 else 1.0)
+    larger = [(np.column_stack([P, s**2, s**3]), "ramsey reset (equation)", "powers 2, 3 of the fitted values"),
+              (np.column_stack([bspline_basis(P[:, c], spline_df(n, max_df))[:, 1:] for c in range(P.shape[1])]),
+               "additive spline f-test (equation)", f"cubic B-spline with {spline_df(n, max_df)} columns per parent")]
+    for design, name, what in larger:
+        fit = ols(full_rank_columns(design), y)
+        f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, fit.rss, fit.rank, n)
+        out.append(CheckResult(name=name, statistic=f_stat, p_value=p_value, effect=fit.r_squared - linear.r_squared,
+                               effect_name="gain in R-squared", n=n, note=f"{what}; F({df_num}, {df_den})"))
+    out += [breusch_pagan(equation.residuals, P), white_test(equation.residuals, P)]
+    return tuple(out)
+
+
 # --------------------------------------------------------------------------- residual independence
 
 

@@ -8,7 +8,7 @@ import statsmodels.api as sm
 from scipy import stats
 
 from preflight.checks.independence import hsic_rff
-from preflight.equations import fit_equations, judge_edge, residual_independence
+from preflight.equations import equation_checks, fit_equations, judge_edge, residual_independence
 from preflight.errors import InputError
 from preflight.fit import ols
 
@@ -146,3 +146,28 @@ def test_judge_edge_needs_a_material_effect_when_asked():
         judge_edge(X, 1, 1, parents)
     with pytest.raises(InputError):
         judge_edge(X, 1, 2, parents, alpha=1.5)
+
+
+def test_equation_checks_match_statsmodels_on_a_two_parent_equation():
+    from statsmodels.stats.diagnostic import het_breuschpagan, het_white, linear_reset
+
+    rng = np.random.default_rng(12)
+    n = 500
+    a = _skewed(rng, n)
+    b = 0.5 * a + _arcsine(rng, n)
+    c = 0.8 * a - 0.6 * b + 0.3 * a**2 + (0.5 + np.abs(b)) * _arcsine(rng, n)
+    X = np.column_stack([a, b, c])
+    checks = {r.name: r for r in equation_checks(X, 2, (0, 1))}
+    design = sm.add_constant(np.column_stack([a, b]))
+    fit = sm.OLS(c, design).fit()
+    reset = linear_reset(fit, power=3, use_f=True)
+    assert checks["ramsey reset (equation)"].statistic == pytest.approx(float(reset.fvalue), rel=1e-7)
+    assert checks["ramsey reset (equation)"].p_value == pytest.approx(float(reset.pvalue), rel=1e-6)
+    lm, lm_p, _, _ = het_breuschpagan(fit.resid, design)
+    assert checks["breusch-pagan"].statistic == pytest.approx(lm, rel=1e-7)
+    white_lm, white_p, _, _ = het_white(fit.resid, design)
+    assert checks["white"].statistic == pytest.approx(white_lm, rel=1e-7)
+    # The curvature in a and the spread in b are there to be found.
+    assert checks["additive spline f-test (equation)"].p_value < 0.01
+    assert checks["breusch-pagan"].p_value < 0.01
+    assert len(equation_checks(X, 0, ())) == 5
