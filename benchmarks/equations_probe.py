@@ -13,12 +13,15 @@ on one core; run under ``nice -n 19`` on a shared machine):
                 edge judged inside its equations, with the true parent sets
                 and with parent sets from the DirectLiNGAM order and pruning,
                 against what ``preflight.check`` concludes on the same table.
+  equation-flags  false linearity and spread flags of the true equations
+                (RESET, additive spline, Breusch-Pagan, White) by effect floor.
   confounding   noise dependence between two equations' residuals for a pair
                 with a hidden common cause against clean pairs.
 
 Usage:
   python benchmarks/equations_probe.py calibration --n 1000 5000 --replicates 200
   python benchmarks/equations_probe.py edges --n 2000 --tables 12
+  python benchmarks/equations_probe.py equation-flags --n 2000 10000 50000 --tables 20
   python benchmarks/equations_probe.py confounding --n 2000 10000 --replicates 100
 """
 
@@ -230,6 +233,48 @@ def edges_markdown(result: dict) -> str:
     return "\n".join(lines)
 
 
+# --------------------------------------------------------------------------- equation flags
+
+EQUATION_TESTS = ("ramsey reset (equation)", "additive spline f-test (equation)", "breusch-pagan", "white")
+FLOORS = (0.0, 0.002, 0.005, 0.01, 0.02)
+
+
+def equation_flags_table(ns, tables: int, seed: int) -> list[dict]:
+    """Rejections at alpha of the linearity and spread checks of every true equation (true parents), by n."""
+    from preflight.equations import equation_checks
+
+    rows = []
+    for n in ns:
+        counts: Counter = Counter()
+        started = time.time()
+        for t in range(tables):
+            X, parents, _ = random_dag(np.random.default_rng([seed, n, t]), n)
+            for child, ps in enumerate(parents):
+                if not ps:
+                    continue
+                counts["equations"] += 1
+                checks = {r.name: r for r in equation_checks(X, child, ps, seed=t)}
+                for name in EQUATION_TESTS:
+                    r = checks[name]
+                    for floor in FLOORS:
+                        counts[f"{name}|{floor}"] += bool(r.p_value is not None and r.p_value < ALPHA
+                                                          and r.effect is not None and r.effect >= floor)
+        rows.append({"n": n, "tables": tables, "seconds": round(time.time() - started, 1), "counts": dict(counts)})
+        print(json.dumps(rows[-1]), file=sys.stderr, flush=True)
+    return rows
+
+
+def equation_flags_markdown(rows: list[dict]) -> str:
+    lines = ["| n | equations | check | " + " | ".join(f"effect >= {f}" for f in FLOORS) + " |",
+             "|---|---|---|" + "---|" * len(FLOORS)]
+    for row in rows:
+        c, total = row["counts"], row["counts"]["equations"]
+        for name in EQUATION_TESTS:
+            cells = [f"{c[f'{name}|{f}']} ({100 * c[f'{name}|{f}'] / total:.1f} %)" for f in FLOORS]
+            lines.append(f"| {row['n']} | {total} | {name} | " + " | ".join(cells) + " |")
+    return "\n".join(lines)
+
+
 # --------------------------------------------------------------------------- confounding
 
 
@@ -263,7 +308,7 @@ def confounding_table(ns, replicates: int, seed: int) -> list[dict]:
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("part", choices=("calibration", "edges", "confounding"))
+    parser.add_argument("part", choices=("calibration", "edges", "equation-flags", "confounding"))
     parser.add_argument("--n", type=int, nargs="+", default=[1000])
     parser.add_argument("--replicates", type=int, default=200)
     parser.add_argument("--bootstrap", type=int, default=200, help="residual-bootstrap replicates per test")
@@ -278,6 +323,9 @@ def main(argv=None) -> int:
     elif args.part == "edges":
         result = [edges_table(n, args.tables, args.bootstrap, args.seed, not args.no_pipeline) for n in args.n]
         print("\n\n".join(edges_markdown(r) for r in result))
+    elif args.part == "equation-flags":
+        result = equation_flags_table(args.n, args.tables, args.seed)
+        print(equation_flags_markdown(result))
     else:
         result = confounding_table(args.n, args.replicates, args.seed)
         print(json.dumps(result, indent=1))

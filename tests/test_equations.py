@@ -171,3 +171,13 @@ def test_equation_checks_match_statsmodels_on_a_two_parent_equation():
     assert checks["additive spline f-test (equation)"].p_value < 0.01
     assert checks["breusch-pagan"].p_value < 0.01
     assert len(equation_checks(X, 0, ())) == 5
+
+
+def test_residual_independence_does_not_depend_on_units():
+    rng = np.random.default_rng(13)
+    X = rng.standard_exponential(size=(400, 2))
+    y = X @ [0.7, 0.4] + _skewed(rng, 400)
+    base = residual_independence(y, X, replicates=39, seed=2)
+    scaled = residual_independence(1e6 * y - 3.0, X * [1e-3, 250.0] + 7.0, replicates=39, seed=2)
+    assert scaled.p_value == base.p_value and scaled.column_p_values == base.column_p_values
+    assert scaled.statistic == pytest.approx(base.statistic, rel=1e-6)
