@@ -298,12 +298,23 @@ def confounding_table(ns, replicates: int, seed: int) -> list[dict]:
                 ea = ols(parent, a).residuals
                 eb = ols(parent, b).residuals
                 result = noise_dependence(ea, eb, seed=r)
-                counts[label] += result.p_value is not None and result.p_value < ALPHA
+                counts[label] += int(result.p_value is not None and result.p_value < ALPHA)
                 pearson = abs(np.corrcoef(ea, eb)[0, 1])
-                counts[f"{label}, |r| >= 0.05"] += pearson >= 0.05
+                counts[f"{label}, |r| >= 0.05"] += int(pearson >= 0.05)
         rows.append({"n": n, "replicates": replicates, "counts": dict(counts)})
         print(json.dumps(rows[-1]), file=sys.stderr, flush=True)
     return rows
+
+
+def confounding_markdown(rows: list[dict]) -> str:
+    labels = ("clean", "hidden cause, weight 0.3", "hidden cause, weight 0.5")
+    lines = ["| n | replicates | " + " | ".join(f"{label}: HSIC p < 0.05 | {label}: abs(r) >= 0.05" for label in labels)
+             + " |", "|---|---|" + "---|---|" * len(labels)]
+    for row in rows:
+        c, total = row["counts"], row["replicates"]
+        cells = [f"{c.get(key, 0)}/{total}" for label in labels for key in (label, f"{label}, |r| >= 0.05")]
+        lines.append(f"| {row['n']} | {total} | " + " | ".join(cells) + " |")
+    return "\n".join(lines)
 
 
 def main(argv=None) -> int:
@@ -328,7 +339,7 @@ def main(argv=None) -> int:
         print(equation_flags_markdown(result))
     else:
         result = confounding_table(args.n, args.replicates, args.seed)
-        print(json.dumps(result, indent=1))
+        print(confounding_markdown(result))
     if args.json:
         with open(args.json, "w") as fh:
             json.dump(result, fh, indent=1)
