@@ -97,6 +97,11 @@ def calibration_table(ns, replicates: int, bootstrap_replicates: int, seed: int,
                 for group in ("all", kind, f"{k} parents", family):
                     counts[(calibration, "joint", group)] += int(result.p_value < ALPHA)
                 counts[(calibration, "first parent", "all")] += int(result.column_p_values[0] < ALPHA)
+                if result.smooth_p_value is not None:
+                    for group in ("all", kind, f"{k} parents", family):
+                        counts[("bootstrap gamma", "joint", group)] += int(result.smooth_p_value < ALPHA)
+                        counts[("bootstrap gamma at 0.005", "joint", group)] += int(result.smooth_p_value < 0.005)
+                        counts[("bootstrap at 0.005", "joint", group)] += int(result.p_value < 0.005)
             for group in (kind, f"{k} parents", family):
                 counts[("count", group)] += 1
         rows.append({"n": n, "replicates": replicates, "seconds": round(time.time() - started, 1),
