@@ -177,29 +177,52 @@ def pipeline_orientations(X: np.ndarray, seed: int) -> dict:
     return out, report.data["conclusion"]["level"]
 
 
-def edges_table(n: int, tables: int, bootstrap_replicates: int, seed: int, with_pipeline: bool) -> dict:
+def _disagreement(X: np.ndarray, cause: int, child: int, judgement, families) -> dict:
+    """What the likelihood ratio saw on an edge whose residual asymmetry it contradicted."""
+    from preflight.checks.direction import pairwise_likelihood_ratio
+    from preflight.checks.normality import shape
+    from preflight.fit import residualize
+
+    Z = X[:, list(judgement.conditioning)] if judgement.conditioning else None
+    u_i, u_j = residualize(X[:, cause], Z), residualize(X[:, child], Z)
+    cause_shape = shape(u_i)
+    return {"cause noise": families[cause], "child noise": families[child],
+            "R (entropy)": round(judgement.likelihood_ratio, 5),
+            "R (auto: tanh or sub-gaussian score)": round(pairwise_likelihood_ratio(u_i, u_j, density="auto").statistic, 5),
+            "cause partial residual excess kurtosis": round(float(cause_shape.excess_kurtosis), 3),
+            "cause partial residual skewness": round(float(cause_shape.skewness), 3),
+            "conditioning size": len(judgement.conditioning)}
+
+
+def edges_table(n: int, tables: int, bootstrap_replicates: int, seed: int, with_pipeline: bool,
+                only_true: bool = False) -> dict:
     counts: Counter = Counter()
     levels: Counter = Counter()
+    disagreements = []
     started = time.time()
+    variants = [("true parents, bootstrap", "true", "bootstrap")]
+    if not only_true:
+        variants += [("true parents, uncalibrated", "true", "none"), ("estimated parents, bootstrap", "est", "bootstrap")]
     for t in range(tables):
         rng = np.random.default_rng([seed, n, t])
-        X, parents, _ = random_dag(rng, n)
+        X, parents, families = random_dag(rng, n)
         p = X.shape[1]
-        estimated = estimated_parents(X, seed=t)
+        estimated = None if only_true else estimated_parents(X, seed=t)
         pipeline = pipeline_orientations(X, seed=t) if with_pipeline else None
         if pipeline is not None:
             levels[pipeline[1]] += 1
         for child in range(p):
             for cause in parents[child]:
                 counts["edges"] += 1
-                for label, sets, calibration in (("true parents, bootstrap", parents, "bootstrap"),
-                                                 ("true parents, uncalibrated", parents, "none"),
-                                                 ("estimated parents, bootstrap", estimated, "bootstrap")):
+                for label, which, calibration in variants:
+                    sets = parents if which == "true" else estimated
                     j = judge_edge(X, cause, child, sets, calibration=calibration,
                                    replicates=bootstrap_replicates, seed=t)
                     verdict = {"i->j": "correct", "j->i": "wrong"}.get(j.orientation, "undetermined")
                     counts[(label, verdict)] += 1
                     counts[(label, j.reason)] += 1
+                    if j.reason.startswith("likelihood") and label == "true parents, bootstrap":
+                        disagreements.append(_disagreement(X, cause, child, j, families))
                 if pipeline is not None:
                     found_cause, adjacent, flags = pipeline[0][frozenset((cause, child))]
                     verdict = ("correct" if found_cause == cause else "wrong" if found_cause == child
@@ -210,7 +233,7 @@ def edges_table(n: int, tables: int, bootstrap_replicates: int, seed: int, with_
                     counts[("preflight.check", "nonlinear")] += "nonlinear" in flags
                     counts[("preflight.check", "heteroscedastic")] += "heteroscedastic" in flags
         print(f"n={n} table {t + 1}/{tables} p={p} {time.time() - started:.0f}s", file=sys.stderr, flush=True)
-    return {"n": n, "tables": tables, "seconds": round(time.time() - started, 1),
+    return {"n": n, "tables": tables, "seconds": round(time.time() - started, 1), "disagreements": disagreements,
             "levels": dict(levels), "counts": {"|".join(k) if isinstance(k, tuple) else k: int(v)
                                                 for k, v in counts.items()}}
 
@@ -333,6 +356,7 @@ def main(argv=None) -> int:
     parser.add_argument("--tables", type=int, default=12)
     parser.add_argument("--seed", type=int, default=17)
     parser.add_argument("--no-pipeline", action="store_true")
+    parser.add_argument("--only-true-parents", action="store_true", help="edges part: only true parents, bootstrap")
     parser.add_argument("--calibrations", nargs="+", default=["none", "first-order", "bootstrap"],
                         choices=["none", "first-order", "bootstrap"], help="calibration part: which nulls to run")
     parser.add_argument("--json", help="also write the raw counts here")
@@ -341,7 +365,8 @@ def main(argv=None) -> int:
         result = calibration_table(args.n, args.replicates, args.bootstrap, args.seed, tuple(args.calibrations))
         print(calibration_markdown(result))
     elif args.part == "edges":
-        result = [edges_table(n, args.tables, args.bootstrap, args.seed, not args.no_pipeline) for n in args.n]
+        result = [edges_table(n, args.tables, args.bootstrap, args.seed, not args.no_pipeline, args.only_true_parents)
+                  for n in args.n]
         print("\n\n".join(edges_markdown(r) for r in result))
     elif args.part == "equation-flags":
         result = equation_flags_table(args.n, args.tables, args.seed)

@@ -13,6 +13,15 @@ from preflight.errors import InputError
 from preflight.fit import ols
 
 
+@pytest.fixture(autouse=True)
+def _single_threaded_blas():
+    # As inside preflight.check (api.py): threaded BLAS spins on these many small products.
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        yield
+
+
 def _skewed(rng, n):
     return stats.gamma(a=0.5).rvs(size=n, random_state=rng) - 0.5
 
