@@ -191,7 +191,7 @@ def residual_independence(y, design, tested=None, calibration: str = "bootstrap"
     ``calibration``:
 
     * ``"bootstrap"`` (default): the residual bootstrap of Sen and Sen
-      (2014), section 3: draw e* from the centred residuals with replacement,
+      (2014): draw e* from the centred residuals with replacement,
       rebuild y* = c + design b_hat + e*, refit, and recompute the statistic
       on the refitted residual.  The refitted residual of y* is the
       residual of e* alone, so only e* is projected.  Statistic per tested
@@ -202,7 +202,10 @@ def residual_independence(y, design, tested=None, calibration: str = "bootstrap"
       seeded subsample of ``max_n`` rows when n is larger (the fit and the
       bootstrap refits use every row).  The joint statistic is the sum of
       the per-column statistics, each divided by its bootstrap mean.
-      p = (1 + #{T* >= T}) / (1 + B).
+      p = (1 + #{T* >= T}) / (1 + B); ``smooth_p_value`` is the tail of a
+      gamma matched to the mean and variance of the B joint statistics,
+      for decisions after a correction over many tests, where 1 / (1 + B)
+      is too coarse.
     * ``"first-order"``: per column,
       ``hsic(..., residual_design=design)``, the gamma null corrected by a
       first-order expansion; joint p-value by Bonferroni over the columns.
