@@ -367,9 +367,10 @@ def _spacing_ratio(x: np.ndarray, y: np.ndarray) -> float:
 def likelihood_ratio_table(ns, replicates: int, seed: int) -> str:
     """Share of two-variable pairs x -> y (cause and noise of one family) the ratio orients right, by n."""
     from preflight.checks.direction import pairwise_likelihood_ratio
+    from preflight.structure import causal_order
 
-    lines = ["| n | cause and noise family | log-cosh entropy (project) | scipy m-spacing entropy |",
-             "|---|---|---|---|"]
+    lines = ["| n | cause and noise family | log-cosh entropy (project) | scipy m-spacing entropy "
+             "| structure.causal_order puts x first |", "|---|---|---|---|---|"]
     for n in ns:
         for family in FAMILIES:
             right = Counter()
@@ -379,7 +380,9 @@ def likelihood_ratio_table(ns, replicates: int, seed: int) -> str:
                 y = weight(rng) * x + noise(rng, family, n)
                 right["log-cosh"] += int(pairwise_likelihood_ratio(x, y).statistic > 0)
                 right["spacing"] += int(_spacing_ratio(x, y) > 0)
-            lines.append(f"| {n} | {family} | {right['log-cosh']}/{replicates} | {right['spacing']}/{replicates} |")
+                right["order"] += int(causal_order(np.column_stack([x, y]), seed=r)[0] == 0)
+            lines.append(f"| {n} | {family} | {right['log-cosh']}/{replicates} | {right['spacing']}/{replicates} "
+                         f"| {right['order']}/{replicates} |")
             print(lines[-1], file=sys.stderr, flush=True)
     return "\n".join(lines)
 
