@@ -24,6 +24,7 @@ from preflight.battery import (
     run_pair_battery,
     with_noise_dependence,
 )
+from preflight import equation_stage
 from preflight.evidence import Tagged, adjust_named_groups, significant
 from preflight.io import GraphFile, LoadedData
 from preflight.policy import Policy, level_rank
@@ -201,6 +202,8 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("skeleton", 0, 1)
     skeleton = _adjacency(X, names, policy, graph)
     progress("skeleton", 1, 1)
+    if graph is None and equation_stage.CANDIDATE_EDGES_FROM_PARENTS:
+        skeleton = replace(skeleton, estimated=equation_stage.with_parent_edges(skeleton.estimated, structure.parents))
     noise_pairs = tuple(ij for ij in table.pairs if skeleton.estimated[ij])
     # The noise HSICs need nothing the pairs need: with workers they run in
     # the one the whole-table screens left idle while this process shares
@@ -217,8 +220,11 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("whole-table screens", 0, 1)
     whole_table = whole.result() if whole is not None else _whole_table_screens(X, policy)
     progress("whole-table screens", 1, 1)
+    edges = equation_stage.edge_tests(X, names, structure.parents, skeleton.estimated, table.pairs, policy, progress)
+    equations = equation_stage.equation_tests(X, names, structure.parents, policy)
     return Computed(structure=structure, skeleton=skeleton, plan=plan, batteries=tuple(batteries),
-                    noise_dependence=noise_dependence, whole_table=whole_table)
+                    noise_dependence=noise_dependence, whole_table=whole_table, edge_tests=edges,
+                    equation_checks=equations)
 
 
 def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, progress: Progress,
@@ -533,8 +539,14 @@ def _adjust(table: Table, screen: Screen, computed: Computed, batteries: Sequenc
     groups[("global", "table")] = (list(screen.global_checks)
                                    + [Tagged(None, "global", c) for c in computed.whole_table.checks]
                                    + list(structure.global_checks if structure is not None else ()))
+    for ij, tests in computed.edge_tests.items():
+        groups[("edge", ij)] = list(tests)
+    for j, tests in computed.equation_checks.items():
+        groups[("equation", j)] = list(tests)
     adjusted = adjust_named_groups(groups, table.policy.correction)
     return Evidence(
+        edge_checks={ij: adjusted[("edge", ij)] for ij in computed.edge_tests},
+        equation_checks={j: adjusted[("equation", j)] for j in computed.equation_checks},
         batteries=tuple(batteries),
         pair_checks={ij: adjusted[("pair", ij)] for ij, _ in zip(table.pairs, batteries)},
         noise_dependence={ij: adjusted[("noise", ij)][0].result for ij in table.pairs
@@ -653,6 +665,10 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
     judged = [judge_pair(replace(battery, adjacent=False), evidence.pair_checks[ij], policy)
               if ij in skeleton.dropped else f
               for ij, battery, f in zip(table.pairs, evidence.batteries, evidence.judged)]
+    if computed.structure is not None:
+        judged = [equation_stage.judge_in_equations(f, ij, evidence.edge_checks.get(ij), evidence.equation_checks,
+                                                    policy)
+                  if ij not in skeleton.dropped else f for ij, f in zip(table.pairs, judged)]
     misspecified = {name for f in judged if f.adjacent and "nonlinear" in f.flags for name in (f.x, f.y)}
     final = []
     for ij, f in zip(table.pairs, judged):
