@@ -32,9 +32,15 @@ VARIANCE_FAMILY = "equation variance"
 STRUCTURAL_EQUATION = "structural equation"
 """Variant of a check computed on a structural equation (a variable on all its parents)."""
 
-CANDIDATE_EDGES_FROM_PARENTS = False
-"""Spike switch (not a policy key yet): add the pruned parent edges to the PC-stable skeleton.  Off: on the kiln
-demo the reversed causal order adds spurious edges (gas_flow - wall_temp oriented, gas_flow - glaze_gloss)."""
+CANDIDATE_EDGES_FROM_PARENTS = True
+"""Spike switch (not a policy key yet): add the pruned parent edges to the PC-stable skeleton, which leaves out
+weak edges (a third of the true edges at 2,000 rows in benchmarks/EQUATIONS_WIRING.md)."""
+
+ONLY_TRUSTED_PARENT_EDGES = True
+"""Spike switch: add only the parent edges of equations that hold up (linear and homoscedastic, see
+:func:`trusted`); a departing equation is a sign of a scrambled causal order, whose parent sets are not edges.
+With every parent edge, the kiln demo's reversed chain adds gas_flow - wall_temp (oriented) and
+gas_flow - glaze_gloss."""
 
 BOOTSTRAP_REPLICATES = 200
 """Residual-bootstrap refits per edge test.  The decision uses the smooth p-value (a gamma matched to the
@@ -42,7 +48,16 @@ bootstrap), which resolves the tail a Holm correction over many edges needs; the
 below 1 / (1 + B)."""
 
 
-def with_parent_edges(estimated: np.ndarray, parents) -> np.ndarray:
+def trusted(equations: dict[int, tuple[Tagged, ...]], p: int, policy: Policy) -> frozenset[int]:
+    """The variables whose equation holds up: no parents, or linear and homoscedastic (adjusted as the
+    evidence layer will adjust them: the equation families hold nothing else)."""
+    from preflight.evidence import adjust_named_groups
+
+    adjusted = adjust_named_groups({j: list(tests) for j, tests in equations.items()}, policy.correction)
+    return frozenset(j for j in range(p) if j not in adjusted or not any(_departs(adjusted[j], policy)))
+
+
+def with_parent_edges(estimated: np.ndarray, parents, children=None) -> np.ndarray:
     """The skeleton's adjacency with every edge of the pruned parent sets added.
 
     PC-stable's Fisher-z tests leave out weak edges the DirectLiNGAM pruning
@@ -51,6 +66,8 @@ def with_parent_edges(estimated: np.ndarray, parents) -> np.ndarray:
     """
     out = estimated.copy()
     for child, ps in enumerate(parents):
+        if children is not None and child not in children:
+            continue
         for parent in ps:
             out[child, parent] = out[parent, child] = True
     return out

@@ -202,8 +202,12 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("skeleton", 0, 1)
     skeleton = _adjacency(X, names, policy, graph)
     progress("skeleton", 1, 1)
+    equations = equation_stage.equation_tests(X, names, structure.parents, policy)
     if graph is None and equation_stage.CANDIDATE_EDGES_FROM_PARENTS:
-        skeleton = replace(skeleton, estimated=equation_stage.with_parent_edges(skeleton.estimated, structure.parents))
+        children = (equation_stage.trusted(equations, len(names), policy)
+                    if equation_stage.ONLY_TRUSTED_PARENT_EDGES else None)
+        skeleton = replace(skeleton, estimated=equation_stage.with_parent_edges(skeleton.estimated, structure.parents,
+                                                                                children))
     noise_pairs = tuple(ij for ij in table.pairs if skeleton.estimated[ij])
     # The noise HSICs need nothing the pairs need: with workers they run in
     # the one the whole-table screens left idle while this process shares
@@ -221,7 +225,6 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     whole_table = whole.result() if whole is not None else _whole_table_screens(X, policy)
     progress("whole-table screens", 1, 1)
     edges = equation_stage.edge_tests(X, names, structure.parents, skeleton.estimated, table.pairs, policy, progress)
-    equations = equation_stage.equation_tests(X, names, structure.parents, policy)
     return Computed(structure=structure, skeleton=skeleton, plan=plan, batteries=tuple(batteries),
                     noise_dependence=noise_dependence, whole_table=whole_table, edge_tests=edges,
                     equation_checks=equations)
