@@ -27,6 +27,23 @@ from equations_probe import random_dag  # noqa: E402
 FLAGS = ("confounding-suspected", "nonlinear", "heteroscedastic", "gaussian-noise")
 
 
+def _count_equation_judgement(counts: Counter, pair: dict, oriented: bool) -> None:
+    """Branch only: was the true edge judged inside its equations, and if left undetermined, why."""
+    tests = [c for c in pair["checks"] if c["name"].startswith("hsic in the equation")]
+    if not pair["adjacent"]:
+        return
+    if len(tests) != 2:
+        counts["true edge: battery's judgement (an equation departs, or main)"] += 1
+        return
+    counts["true edge: judged in its equations"] += 1
+    if oriented:
+        return
+    rejected = [c["p_adjusted"] is not None and c["p_adjusted"] < 0.05 for c in tests]
+    why = ("dependent both ways" if all(rejected) else "independent both ways" if not any(rejected)
+           else "likelihood ratio disagrees, or Gaussian noise")
+    counts[f"true edge judged in equations, undetermined: {why}"] += 1
+
+
 def run(n: int, tables: int, seed: int) -> dict:
     import pandas as pd
 
@@ -55,6 +72,7 @@ def run(n: int, tables: int, seed: int) -> dict:
                 counts["not adjacent"] += not pair["adjacent"]
                 for flag in FLAGS:
                     counts[flag] += flag in pair["flags"]
+                _count_equation_judgement(counts, pair, cause is not None)
             elif pair["adjacent"]:
                 counts["spurious adjacent"] += 1
                 counts["spurious oriented"] += cause is not None
