@@ -83,13 +83,13 @@ def run(n: int, tables: int, seed: int) -> dict:
 
 
 def markdown(results: list[dict], label: str) -> str:
-    lines = [f"| code | n | tables | true edges | correct | wrong | undetermined | not adjacent | "
+    lines = ["| code | n | tables | true edges | correct | wrong | undetermined | not adjacent | "
              "confounding-suspected | nonlinear | heteroscedastic | spurious adjacent (oriented) | levels | s |",
              "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|"]
     for r in results:
         c, total = r["counts"], r["counts"]["true edges"]
 
-        def cell(key: str) -> str:
+        def cell(key: str, c: dict = c, total: int = total) -> str:
             return f"{c.get(key, 0)} ({100 * c.get(key, 0) / total:.1f} %)"
 
         lines.append(f"| {label} | {r['n']} | {r['tables']} | {total} | {cell('correct')} | {cell('wrong')} | "

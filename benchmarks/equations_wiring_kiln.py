@@ -2,12 +2,17 @@
 
     python benchmarks/equations_wiring_kiln.py skeleton|union|trusted-union [rows]
 """
-import sys, os, tempfile
+import os
+import sys
+import tempfile
+
 import preflight
 from preflight.demo import write_demo_csv
+
 try:
     import preflight.equation_stage as es
-    es.CANDIDATE_EDGES_FROM_PARENTS = sys.argv[1] != "skeleton"; es.ONLY_TRUSTED_PARENT_EDGES = sys.argv[1] == "trusted-union"
+    es.CANDIDATE_EDGES_FROM_PARENTS = sys.argv[1] != "skeleton"
+    es.ONLY_TRUSTED_PARENT_EDGES = sys.argv[1] == "trusted-union"
 except ImportError:
     pass
 rows = int(sys.argv[2]) if len(sys.argv) > 2 else 2000

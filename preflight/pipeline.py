@@ -15,6 +15,7 @@ from typing import Any, cast
 
 import numpy as np
 
+from preflight import equation_stage
 from preflight._version import __version__
 from preflight.battery import (
     PairBattery,
@@ -24,7 +25,6 @@ from preflight.battery import (
     run_pair_battery,
     with_noise_dependence,
 )
-from preflight import equation_stage
 from preflight.evidence import Tagged, adjust_named_groups, significant
 from preflight.io import GraphFile, LoadedData
 from preflight.policy import Policy, level_rank
