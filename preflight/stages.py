@@ -43,6 +43,8 @@ class Table:
     """The policy in force, its seed resolved (``policy.working_seed``)."""
     requested: Policy
     """The policy as the user gave it, echoed in the report's settings."""
+    plot_rows: np.ndarray | None = None
+    """The rows the report's plots draw (sorted; chosen by ``pipeline.plot_rows``), or None when no plots are kept."""
 
     @property
     def values(self) -> np.ndarray:

@@ -154,7 +154,7 @@ def test_one_direction_builds_each_design_once(monkeypatch):
     y = x**3 + rng.uniform(-1, 1, size=600)
     designs = fit.RegressorDesigns(x)
     policy = Policy()
-    direction = _direction_checks(x, y, "y on x", "forward", policy, 1, designs)
+    direction = _direction_checks(x, y, fit.simple_slope(x, y)[1], "y on x", "forward", policy, 1, designs)
     spread = _spline_variance_checks(x, y, "y on x", "forward", policy, designs)
     assert len(built) == 1 and len(spread) == 2 and direction
     # Without designs handed over, the spline spread builds its own basis, with the same results.

@@ -357,10 +357,9 @@ def _plots(data: dict[str, Any], samples: dict[str, Any] | None, max_edge_plots:
                      "the spline F-test compared it with. A material gap between them is what the "
                      "<span class=\"flag\">nonlinear</span> flag reports.</p>")
         parts.append('<div class="plotgrid wide">')
-        max_df = int(data["settings"]["spline_max_df"])
         for k, pair in enumerate(nonlinear[:max_edge_plots]):
             label = f"Straight line and spline fit for {pair['x']} and {pair['y']}"
-            svg = plots.linear_vs_spline_svg(pair, samples, max_df=max_df, key=f"spline{k}")
+            svg = plots.linear_vs_spline_svg(pair, samples, key=f"spline{k}")
             parts.append(f"<figure>{_svg_with_label(svg, label)}<figcaption>{_e(label)}.</figcaption></figure>")
         parts.append("</div>")
 
