@@ -7,8 +7,9 @@ FAIL, evidence, line styles named in the legend), so the report survives
 black-and-white printing and colour-blind readers.
 
 Plots are inline SVG from :mod:`preflight.report.plots`.  Data-dependent
-plots need ``report.samples``; a report re-rendered from saved JSON has none,
-and says so in place of those plots.
+plots need ``report.samples`` (the plotted rows, the noise estimates and the
+pair battery's fits at those rows); a report re-rendered from saved JSON has
+none, and says so in place of those plots.
 """
 
 from __future__ import annotations
