@@ -92,3 +92,19 @@ def test_plots_module_fits_nothing():
     assert not imported & (FITTING | {"preflight.fit", "scipy.linalg", "numpy.linalg"})
     assert not used & FITTING
     assert not any(module.startswith(("preflight.fit", "preflight.checks")) for module in imported)
+
+
+def test_a_pair_without_fits_is_named_not_drawn():
+    """Samples without a pair's fits (a report built by hand) leave that pair's plots out, saying so."""
+    from test_report_renderers import handmade_report
+
+    from preflight.report.html import render_html
+
+    report = handmade_report()
+    full = render_html(report)
+    report.samples["fits"] = {key: fits for key, fits in report.samples["fits"].items() if key != frozenset("bc")}
+    partial = render_html(report)
+    # b -- c loses its residual plot and its spline plot; a -> b keeps its residual plot.
+    assert partial.count("<svg") == full.count("<svg") - 2
+    assert "Residuals of c on b and of b on c: not drawn, the report carries no fits of this pair." in partial
+    assert "Straight line and spline fit for b and c: not drawn" in partial

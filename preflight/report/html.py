@@ -343,6 +343,9 @@ def _plots(data: dict[str, Any], samples: dict[str, Any] | None, max_edge_plots:
         parts.append("<p>No adjacent pairs, so no residual plots.</p>")
     for k, pair in enumerate(edges[:max_edge_plots]):
         label = f"Residuals of {pair['y']} on {pair['x']} and of {pair['x']} on {pair['y']}"
+        if plots.pair_fits(samples, pair) is None:
+            parts.append(f"<p>{_e(label)}: not drawn, the report carries no fits of this pair.</p>")
+            continue
         svg = plots.residual_pair_svg(pair, samples, alpha=alpha, key=f"edge{k}")
         given = f" (given {_e(', '.join(pair['conditioning']))})" if pair.get("conditioning") else ""
         parts.append(f"<figure>{_svg_with_label(svg, label)}<figcaption>"
@@ -360,6 +363,9 @@ def _plots(data: dict[str, Any], samples: dict[str, Any] | None, max_edge_plots:
         parts.append('<div class="plotgrid wide">')
         for k, pair in enumerate(nonlinear[:max_edge_plots]):
             label = f"Straight line and spline fit for {pair['x']} and {pair['y']}"
+            if plots.pair_fits(samples, pair) is None:
+                parts.append(f"<p>{_e(label)}: not drawn, the report carries no fits of this pair.</p>")
+                continue
             svg = plots.linear_vs_spline_svg(pair, samples, key=f"spline{k}")
             parts.append(f"<figure>{_svg_with_label(svg, label)}<figcaption>{_e(label)}.</figcaption></figure>")
         parts.append("</div>")
