@@ -367,7 +367,8 @@ def _material_departure(results: list[CheckResult], alpha: float, floor: float) 
     return any(significant(r, alpha) and r.effect is not None and abs(r.effect) >= floor for r in results)
 
 
-def _nongaussian(results: list[CheckResult], policy: Policy) -> bool:
+def nongaussian_under(results: list[CheckResult], policy: Policy) -> bool:
+    """The policy's verdict on adjusted normality checks of one noise: clearly non-Gaussian (no results: False)."""
     from preflight.checks.normality import is_nongaussian
 
     if not results:
@@ -443,7 +444,8 @@ def _judge_adjacent(battery: PairBattery, checks: list[Tagged], policy: Policy,
     facts = {"adjacent"}
     indep = {role: not any(significant(r, alpha) for r in _of(checks, "residual independence", role))
              for role in ("forward", "reverse")}
-    gaussian = {role: not _nongaussian(_of(checks, "noise normality", role), policy) for role in ("forward", "reverse")}
+    gaussian = {role: not nongaussian_under(_of(checks, "noise normality", role), policy)
+                for role in ("forward", "reverse")}
     lingam, anm = _orientations(battery, checks, gaussian, indep, alpha)
 
     # The favoured direction is the one whose residual the evidence says is

@@ -22,6 +22,7 @@ from preflight.battery import (
     PlotFits,
     SharedAssociation,
     judge_pair,
+    nongaussian_under,
     run_pair_battery,
     with_noise_dependence,
 )
@@ -191,7 +192,7 @@ def _compute(table: Table, screen: Screen, graph: GraphFile | None, progress: Pr
         p = len(table.names)
         return Computed(structure=None, skeleton=Skeleton(
             estimated=np.zeros((p, p), dtype=bool), cpdag=np.zeros((p, p), dtype=np.int8),
-            source="not estimated: the data void the analysis"), plan=PairPlan(tasks=(), noise_pairs=()),
+            source="not estimated: the data void the analysis"), plan=PairPlan(tasks=()),
             batteries=(), noise_dependence={}, whole_table=WholeTable(checks=(), dependent_components=False))
     pool = _start_pool(table.values, table.names, table.policy)
     try:
@@ -219,7 +220,7 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     # the association checks.
     noise_future = (pool.submit(_noise_dependence_task, structure.noise, noise_pairs, policy)
                     if pool is not None and noise_pairs else None)
-    plan = _plan(table, structure, skeleton, noise_pairs, progress)
+    plan = _plan(table, structure, skeleton, progress)
     if noise_pairs:
         progress("noise dependence", 0, len(noise_pairs))
     noise_results = (noise_future.result() if noise_future is not None
@@ -342,15 +343,14 @@ def _conditioning_set(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[i
     return tuple(sorted(common & set(parents[i]) & set(parents[j])))
 
 
-def _plan(table: Table, structure: Structure, skeleton: Skeleton, noise_pairs: tuple[Pair, ...],
-          progress: Progress) -> PairPlan:
+def _plan(table: Table, structure: Structure, skeleton: Skeleton, progress: Progress) -> PairPlan:
     """Each pair's conditioning set and adjacency, with the association checks shared by the unconditioned pairs."""
     conditioning = {(i, j): _conditioning_set(i, j, skeleton.estimated, structure.parents) for i, j in table.pairs}
     shared = _shared_association(table.values, table.names, [ij for ij in table.pairs if not conditioning[ij]],
                                  table.policy, progress)
     tasks = tuple(PairTask(pair=ij, conditioning=conditioning[ij], adjacent=bool(skeleton.estimated[ij]),
                            association=shared.get(ij)) for ij in table.pairs)
-    return PairPlan(tasks=tasks, noise_pairs=noise_pairs)
+    return PairPlan(tasks=tasks)
 
 
 def _shared_association(X: np.ndarray, names, pairs, policy: Policy,
@@ -626,8 +626,6 @@ def _rerun_without(table: Table, plan: PairPlan, batteries: Sequence[PairBattery
 
 def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence: Evidence) -> VariableFindings:
     """Each variable's report entry: its flags, and its checks judged (noise shape, rows needed)."""
-    from preflight.battery import _nongaussian
-
     policy, structure = table.policy, computed.structure
     gaussian_noises: list[str] = []
     entries = []
@@ -635,7 +633,7 @@ def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence:
         tagged = evidence.variable_checks[name]
         if structure is not None:
             noise_norm = [t.result for t in tagged if t.family == "noise normality"]
-            if not _nongaussian(noise_norm, policy):
+            if not nongaussian_under(noise_norm, policy):
                 gaussian_noises.append(name)
             tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], name, policy))]
         flags = list(screen.variable_flags[name])
@@ -831,7 +829,6 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
 def _identified_global(result: CheckResult) -> CheckResult:
     """A whole-table check with its identity: the test its function named, no family, no variables."""
     return result if result.identity is not None else result.identified(scope="global")
-
 
 
 def canonical_columns(names) -> list[int]:
