@@ -83,9 +83,8 @@ def _plot_fits(x: np.ndarray, y: np.ndarray, names: tuple[str, str], partialled:
                max_df: int, rows: np.ndarray) -> PlotFits:
     """The battery's fits of an adjacent pair at ``rows``; spline residuals only when ``designs`` are given.
 
-    The spline is the spline F-test's (the same design, on the same
-    partialled columns), refitted here only to keep its residual: the test
-    returns a p-value, not a fit.
+    The spline is the spline F-test's own fit (:meth:`RegressorDesigns.spline_fit`
+    keeps it for its regressor and response).
     """
     xr, yr = partialled
     n = xr.shape[0]
@@ -94,7 +93,7 @@ def _plot_fits(x: np.ndarray, y: np.ndarray, names: tuple[str, str], partialled:
     if designs is not None and n >= df + 2:
         for role, response in (("forward", yr), ("reverse", xr)):
             if np.allclose(designs[role].spline_basis(df).sum(axis=1), 1.0, rtol=0.0, atol=1e-8):
-                splines[role] = ols(designs[role].spline_design(df), response).residuals[rows]
+                splines[role] = designs[role].spline_fit(df, response).residuals[rows]
     return PlotFits(x=names[0], y=names[1], x_partialled=xr[rows] + x.mean(), y_partialled=yr[rows] + y.mean(),
                     y_on_x=residuals["forward"][rows], x_on_y=residuals["reverse"][rows], spline_df=df,
                     spline_y_on_x=splines["forward"], spline_x_on_y=splines["reverse"])
@@ -242,7 +241,7 @@ def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, directi
     basis = designs.spline_basis(df)
     if not np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8):
         return []
-    residual = ols(designs.spline_design(df), response).residuals
+    residual = designs.spline_fit(df, response).residuals
     label = f"{direction[0]} on {direction[1]}"
     spline_note = f"; residual of a cubic regression spline (df={df})"
     return [_tag("variance", role, replace(result, note=result.note + spline_note),
