@@ -14,7 +14,7 @@ all pairs.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -37,6 +37,66 @@ class PairBattery:
     checks: tuple[Tagged, ...]
     likelihood_ratio: float | None = None
     """Hyvärinen-Smith R on the partial residuals; > 0 favours x -> y."""
+    plot_fits: PlotFits | None = field(default=None, compare=False)
+    """The fits the checks made, at the plotted rows (adjacent pairs of a run that keeps samples), else None."""
+
+
+@dataclass(frozen=True)
+class PlotFits:
+    """What the battery fitted on one adjacent pair, kept at the rows the report plots.
+
+    Values are in the units the battery computed in (each column scaled by a
+    power of two, see ``pipeline.unit_exponents``); the plots map them back.
+    The partialled columns have their full-data means added back, so with no
+    conditioning set they are the columns themselves.
+    """
+
+    x: str
+    y: str
+    x_partialled: np.ndarray
+    y_partialled: np.ndarray
+    y_on_x: np.ndarray
+    """Residual of the straight line of y on x (both partialled): the forward checks' residual."""
+    x_on_y: np.ndarray
+    """Residual of the straight line of x on y: the reverse checks' residual."""
+    spline_df: int
+    spline_y_on_x: np.ndarray | None = None
+    """Residual of the spline F-test's regression spline of y on x; None where it was not fitted."""
+    spline_x_on_y: np.ndarray | None = None
+
+    def partialled(self, name: str) -> np.ndarray:
+        return self.x_partialled if name == self.x else self.y_partialled
+
+    def residual(self, response: str) -> np.ndarray:
+        """The straight-line residual of ``response`` regressed on the pair's other variable."""
+        return self.y_on_x if response == self.y else self.x_on_y
+
+    def spline_residual(self, response: str) -> np.ndarray | None:
+        return self.spline_y_on_x if response == self.y else self.spline_x_on_y
+
+    def without_splines(self) -> PlotFits:
+        return replace(self, spline_y_on_x=None, spline_x_on_y=None)
+
+
+def _plot_fits(x: np.ndarray, y: np.ndarray, names: tuple[str, str], partialled: tuple[np.ndarray, np.ndarray],
+               residuals: dict[str, np.ndarray], designs: dict[str, RegressorDesigns] | None,
+               max_df: int, rows: np.ndarray) -> PlotFits:
+    """The battery's fits of an adjacent pair at ``rows``; spline residuals only when ``designs`` are given.
+
+    The spline is the spline F-test's own fit (:meth:`RegressorDesigns.spline_fit`
+    keeps it for its regressor and response).
+    """
+    xr, yr = partialled
+    n = xr.shape[0]
+    df = spline_df(n, max_df)
+    splines: dict[str, np.ndarray | None] = {"forward": None, "reverse": None}
+    if designs is not None and n >= df + 2:
+        for role, response in (("forward", yr), ("reverse", xr)):
+            if np.allclose(designs[role].spline_basis(df).sum(axis=1), 1.0, rtol=0.0, atol=1e-8):
+                splines[role] = designs[role].spline_fit(df, response).residuals[rows]
+    return PlotFits(x=names[0], y=names[1], x_partialled=xr[rows] + x.mean(), y_partialled=yr[rows] + y.mean(),
+                    y_on_x=residuals["forward"][rows], x_on_y=residuals["reverse"][rows], spline_df=df,
+                    spline_y_on_x=splines["forward"], spline_x_on_y=splines["reverse"])
 
 
 @dataclass(frozen=True)
@@ -118,16 +178,18 @@ def _degenerate(name: str, n: int, why: str) -> CheckResult:
     return CheckResult(name=name, statistic=float("nan"), p_value=None, n=n, note=f"not computed: {why}")
 
 
-def _direction_checks(regressor: np.ndarray, response: np.ndarray, direction: tuple[str, str], role: str,
-                      policy: Policy, seed: int, designs: RegressorDesigns) -> list[Tagged]:
-    """Normality, linearity, spread and independence of the residual of ``direction`` = (response, regressor)."""
+def _direction_checks(regressor: np.ndarray, response: np.ndarray, residual: np.ndarray, direction: tuple[str, str],
+                      role: str, policy: Policy, seed: int, designs: RegressorDesigns) -> list[Tagged]:
+    """Normality, linearity, spread and independence of the residual of ``direction`` = (response, regressor).
+
+    ``residual`` is that of the straight line of response on regressor (:func:`preflight.fit.simple_slope`).
+    """
     from preflight.checks.independence import hsic
     from preflight.checks.linearity import linearity_checks
     from preflight.checks.normality import normality_checks
     from preflight.checks.variance import variance_checks
 
     label = f"{direction[0]} on {direction[1]}"
-    _, residual = simple_slope(regressor, response)
     n = regressor.shape[0]
     spread = float(np.std(response))
     if not np.std(regressor) > 0 or not np.std(residual) > 1e-10 * max(spread, 1e-300):
@@ -179,7 +241,7 @@ def _spline_variance_checks(regressor: np.ndarray, response: np.ndarray, directi
     basis = designs.spline_basis(df)
     if not np.allclose(basis.sum(axis=1), 1.0, rtol=0.0, atol=1e-8):
         return []
-    residual = ols(designs.spline_design(df), response).residuals
+    residual = designs.spline_fit(df, response).residuals
     label = f"{direction[0]} on {direction[1]}"
     spline_note = f"; residual of a cubic regression spline (df={df})"
     return [_tag("variance", role, replace(result, note=result.note + spline_note),
@@ -212,13 +274,15 @@ def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str
 
 def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: np.ndarray | None,
                      conditioning: tuple[str, ...], adjacent: bool, policy: Policy,
-                     association: SharedAssociation | None = None) -> PairBattery:
+                     association: SharedAssociation | None = None, plot_rows: np.ndarray | None = None) -> PairBattery:
     """Run the battery on one pair.
 
     ``Z`` holds the conditioning columns (or None), partialled out of both
     variables and entering the additive-noise check's spline regressions
     linearly.  ``association`` holds checks of x and y computed beforehand
-    for many pairs at once (only used when ``Z`` is empty).
+    for many pairs at once (only used when ``Z`` is empty).  With
+    ``plot_rows``, an adjacent pair keeps its fits at those rows
+    (:class:`PlotFits`) for the report's plots.
     """
     from preflight.checks.direction import pairwise_likelihood_ratio
 
@@ -228,18 +292,23 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
     checks = association_checks(xr, yr, x_name, y_name, len(conditioning), policy, seed,
                                 ready=association if not conditioning else None)
     lr_value = None
+    fits = None
     if adjacent:
         # Each direction's regressor gets its designs built once, for every check that fits on it.
         designs = {"forward": RegressorDesigns(xr), "reverse": RegressorDesigns(yr)}
-        checks += _direction_checks(xr, yr, (y_name, x_name), "forward", policy, seed, designs["forward"])
-        checks += _direction_checks(yr, xr, (x_name, y_name), "reverse", policy, seed, designs["reverse"])
+        residuals = {"forward": simple_slope(xr, yr)[1], "reverse": simple_slope(yr, xr)[1]}
+        checks += _direction_checks(xr, yr, residuals["forward"], (y_name, x_name), "forward", policy, seed,
+                                    designs["forward"])
+        checks += _direction_checks(yr, xr, residuals["reverse"], (x_name, y_name), "reverse", policy, seed,
+                                    designs["reverse"])
         lr = _tag(None, "pair", pairwise_likelihood_ratio(xr, yr),
                   f"pairwise likelihood ratio ({x_name} -> {y_name} if > 0)", variables=(x_name, y_name),
                   test="pairwise-likelihood-ratio")
         lr_value = float(lr.result.statistic)
         checks.append(lr)
         linear_p = [t.result.p_value for t in checks if t.family == "linearity" and t.result.p_value is not None]
-        if linear_p and rejects(min(linear_p), policy.alpha):
+        bends = bool(linear_p) and rejects(min(linear_p), policy.alpha)
+        if bends:
             checks += additive_noise_checks(x, y, x_name, y_name, policy, seed, Z)
         # Only a direction whose raw linearity tests reject can be judged
         # nonlinear, so only there is the spread of the spline residual needed.
@@ -249,8 +318,12 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
                       if t.family == "linearity" and t.role == role and t.result.p_value is not None]
             if role_p and rejects(min(role_p), policy.alpha):
                 checks += _spline_variance_checks(regressor, response, direction, role, policy, designs[role])
+        if plot_rows is not None:
+            # A pair can be judged nonlinear only where its linearity tests reject: only then is a spline drawn.
+            fits = _plot_fits(x, y, (x_name, y_name), (xr, yr), residuals, designs if bends else None,
+                              policy.spline_max_df, plot_rows)
     return PairBattery(x=x_name, y=y_name, adjacent=adjacent, n=int(x.shape[0]),
-                       conditioning=conditioning, checks=tuple(checks), likelihood_ratio=lr_value)
+                       conditioning=conditioning, checks=tuple(checks), likelihood_ratio=lr_value, plot_fits=fits)
 
 
 # ---------------------------------------------------------------- judging
@@ -293,7 +366,8 @@ def _material_departure(results: list[CheckResult], alpha: float, floor: float) 
     return any(significant(r, alpha) and r.effect is not None and abs(r.effect) >= floor for r in results)
 
 
-def _nongaussian(results: list[CheckResult], policy: Policy) -> bool:
+def nongaussian_under(results: list[CheckResult], policy: Policy) -> bool:
+    """The policy's verdict on adjusted normality checks of one noise: clearly non-Gaussian (no results: False)."""
     from preflight.checks.normality import is_nongaussian
 
     if not results:
@@ -369,7 +443,8 @@ def _judge_adjacent(battery: PairBattery, checks: list[Tagged], policy: Policy,
     facts = {"adjacent"}
     indep = {role: not any(significant(r, alpha) for r in _of(checks, "residual independence", role))
              for role in ("forward", "reverse")}
-    gaussian = {role: not _nongaussian(_of(checks, "noise normality", role), policy) for role in ("forward", "reverse")}
+    gaussian = {role: not nongaussian_under(_of(checks, "noise normality", role), policy)
+                for role in ("forward", "reverse")}
     lingam, anm = _orientations(battery, checks, gaussian, indep, alpha)
 
     # The favoured direction is the one whose residual the evidence says is

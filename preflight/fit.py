@@ -194,19 +194,20 @@ class RegressorDesigns:
     """The designs that checks fit on one regressor, each built on first use and then kept by this object.
 
     One direction of a pair fits several models on the same regressor: the
-    spline F-test and the spread of the spline residual fit the same spline,
-    and White's test runs on the straight-line residual and on the spline
-    residual with the same design [1, x, x^2].  The caller that owns the
-    regressor builds one ``RegressorDesigns`` and hands it to each of those
-    checks, as a fitted model is handed to its diagnostics; nothing is
-    remembered anywhere else, so two checks running at once share nothing.
+    spline F-test, the spread of the spline residual and the report's plot
+    use the same spline fit, and White's test runs on the straight-line
+    residual and on the spline residual with the same design [1, x, x^2].
+    The caller that owns the regressor builds one ``RegressorDesigns`` and
+    hands it to each of those checks, as a fitted model is handed to its
+    diagnostics; nothing is remembered anywhere else, so two checks running
+    at once share nothing.
 
     Every array returned is read-only (a writeable copy is one ``.copy()``
     away) and has the memory layout the direct computation gives, so least
     squares on it rounds exactly as on a freshly built design.
     """
 
-    __slots__ = ("values", "_built")
+    __slots__ = ("values", "_built", "_spline_fits")
 
     def __init__(self, x: np.ndarray):
         x = np.asarray(x, dtype=np.float64)
@@ -215,6 +216,7 @@ class RegressorDesigns:
         self.values = x
         """The regressor the designs are built from (not copied: the owner must not write to it)."""
         self._built: dict[tuple, np.ndarray] = {}
+        self._spline_fits: dict[int, tuple[np.ndarray, LinearFit]] = {}
 
     @classmethod
     def of(cls, x: np.ndarray, designs: RegressorDesigns | None = None) -> RegressorDesigns:
@@ -244,6 +246,20 @@ class RegressorDesigns:
     def white_design(self) -> np.ndarray:
         """:func:`full_rank_columns` of White's design [x, x^2] of the regressor."""
         return self._kept(("white design",), lambda: full_rank_columns(white_design(self.values)))
+
+    def spline_fit(self, df: int, response: np.ndarray) -> LinearFit:
+        """:func:`ols` of ``response`` on :meth:`spline_design`, kept for the last response it was asked for.
+
+        The response is recognised by identity (the same array object), so a
+        fit is never handed out for other values; its residuals are read-only.
+        """
+        kept = self._spline_fits.get(int(df))
+        if kept is not None and kept[0] is response:
+            return kept[1]
+        fit = ols(self.spline_design(df), response)
+        fit.residuals.flags.writeable = False
+        self._spline_fits[int(df)] = (response, fit)
+        return fit
 
 
 def _read_only(array: np.ndarray) -> np.ndarray:

@@ -20,8 +20,10 @@ from preflight._version import __version__
 from preflight.battery import (
     PairBattery,
     PairFindings,
+    PlotFits,
     SharedAssociation,
     judge_pair,
+    nongaussian_under,
     run_pair_battery,
     with_noise_dependence,
 )
@@ -60,7 +62,7 @@ def run(loaded: LoadedData, policy: Policy, *, graph: GraphFile | None, progress
     orientation swapped to match (check names keep the literal names they
     were computed with).
     """
-    table = _canonical_table(loaded, policy)
+    table = _canonical_table(loaded, policy, keep_samples)
     screen = _screen(table)
     computed = _compute(table, screen, graph, progress)
     evidence = _adjust(table, screen, computed, computed.batteries)
@@ -68,7 +70,7 @@ def run(loaded: LoadedData, policy: Policy, *, graph: GraphFile | None, progress
     variables = _judge_variables(table, screen, computed, evidence)
     findings = _judge_pairs(table, computed, evidence)
     conclusion = _conclude(table, screen, computed, variables, findings)
-    report = _report(table, computed, evidence, variables, conclusion, keep_samples)
+    report = _report(table, computed, evidence, variables, conclusion)
     return _in_input_order(report, loaded, table.input_positions)
 
 
@@ -120,8 +122,12 @@ def _tag_noise_dependence(results: list[CheckResult], names, pairs, progress: Pr
 
 # ---------------------------------------------------------------- table and screen
 
-def _canonical_table(loaded: LoadedData, policy: Policy) -> Table:
-    """The columns sorted by name (:func:`canonical_columns`) and scaled by powers of two (:func:`unit_exponents`)."""
+def _canonical_table(loaded: LoadedData, policy: Policy, keep_samples: bool = False) -> Table:
+    """The columns sorted by name (:func:`canonical_columns`) and scaled by powers of two (:func:`unit_exponents`).
+
+    With ``keep_samples``, the rows the plots will draw are chosen now, so the
+    pair battery can keep its fits at those rows.
+    """
     from preflight.seeds import working_seed
 
     names = loaded.names
@@ -133,8 +139,15 @@ def _canonical_table(loaded: LoadedData, policy: Policy) -> Table:
     values = np.asfortranarray(values) if loaded.values.flags.f_contiguous and not loaded.values.flags.c_contiguous \
         else np.ascontiguousarray(values)
     canonical = replace(loaded, values=values, names=tuple(names[k] for k in order))
-    return Table(data=canonical, input_positions=tuple(order), exponents=exponents[order],
-                 policy=replace(policy, seed=working_seed(policy.seed)), requested=policy)
+    working = replace(policy, seed=working_seed(policy.seed))
+    return Table(data=canonical, input_positions=tuple(order), exponents=exponents[order], policy=working,
+                 requested=policy, plot_rows=plot_rows(values.shape[0], working) if keep_samples else None)
+
+
+def plot_rows(n: int, policy: Policy) -> np.ndarray:
+    """The seeded subsample of rows the plots draw (sorted), at most ``policy.plot_max_points`` of n."""
+    rng = np.random.default_rng(derived_seed(policy.seed, "plot sample"))
+    return np.sort(rng.choice(n, size=min(n, policy.plot_max_points), replace=False))
 
 
 def _screen(table: Table) -> Screen:
@@ -180,7 +193,7 @@ def _compute(table: Table, screen: Screen, graph: GraphFile | None, progress: Pr
         p = len(table.names)
         return Computed(structure=None, skeleton=Skeleton(
             estimated=np.zeros((p, p), dtype=bool), cpdag=np.zeros((p, p), dtype=np.int8),
-            source="not estimated: the data void the analysis"), plan=PairPlan(tasks=(), noise_pairs=()),
+            source="not estimated: the data void the analysis"), plan=PairPlan(tasks=()),
             batteries=(), noise_dependence={}, whole_table=WholeTable(checks=(), dependent_components=False))
     pool = _start_pool(table.values, table.names, table.policy)
     try:
@@ -214,7 +227,7 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     # the association checks.
     noise_future = (pool.submit(_noise_dependence_task, structure.noise, noise_pairs, policy)
                     if pool is not None and noise_pairs else None)
-    plan = _plan(table, structure, skeleton, noise_pairs, progress)
+    plan = _plan(table, structure, skeleton, progress)
     if noise_pairs:
         progress("noise dependence", 0, len(noise_pairs))
     noise_results = (noise_future.result() if noise_future is not None
@@ -339,15 +352,14 @@ def _conditioning_set(i: int, j: int, adjacency: np.ndarray, parents) -> tuple[i
     return tuple(sorted(common & set(parents[i]) & set(parents[j])))
 
 
-def _plan(table: Table, structure: Structure, skeleton: Skeleton, noise_pairs: tuple[Pair, ...],
-          progress: Progress) -> PairPlan:
+def _plan(table: Table, structure: Structure, skeleton: Skeleton, progress: Progress) -> PairPlan:
     """Each pair's conditioning set and adjacency, with the association checks shared by the unconditioned pairs."""
     conditioning = {(i, j): _conditioning_set(i, j, skeleton.estimated, structure.parents) for i, j in table.pairs}
     shared = _shared_association(table.values, table.names, [ij for ij in table.pairs if not conditioning[ij]],
                                  table.policy, progress)
     tasks = tuple(PairTask(pair=ij, conditioning=conditioning[ij], adjacent=bool(skeleton.estimated[ij]),
                            association=shared.get(ij)) for ij in table.pairs)
-    return PairPlan(tasks=tasks, noise_pairs=noise_pairs)
+    return PairPlan(tasks=tasks)
 
 
 def _shared_association(X: np.ndarray, names, pairs, policy: Policy,
@@ -375,21 +387,22 @@ def _shared_association(X: np.ndarray, names, pairs, policy: Policy,
             for pair, (pearson, spearman), hsic in zip(pairs, linear, kernel)}
 
 
-def _pair_battery(X: np.ndarray, names: Sequence[str], task: PairTask, policy: Policy) -> PairBattery:
+def _pair_battery(X: np.ndarray, names: Sequence[str], task: PairTask, policy: Policy,
+                  plot_rows: np.ndarray | None = None) -> PairBattery:
     """The battery of one pair of the table ``X`` (the data are passed, never read from a global)."""
     i, j = task.pair
     conditioning = task.conditioning
     return run_pair_battery(X[:, i], X[:, j], names[i], names[j], X[:, list(conditioning)] if conditioning else None,
                             tuple(names[c] for c in conditioning), task.adjacent, policy,
-                            association=task.association)
+                            association=task.association, plot_rows=plot_rows)
 
 
 _WORKER: dict[str, Any] = {}
 """The table of a worker process, set once by :func:`_init_worker`; the main process never writes it."""
 
 
-def _pair_battery_in_worker(task: PairTask, policy: Policy) -> PairBattery:
-    return _pair_battery(_WORKER["X"], _WORKER["names"], task, policy)
+def _pair_battery_in_worker(task: PairTask, policy: Policy, plot_rows: np.ndarray | None) -> PairBattery:
+    return _pair_battery(_WORKER["X"], _WORKER["names"], task, policy, plot_rows)
 
 
 def _init_worker(X, names, parent_pid: int):
@@ -490,7 +503,7 @@ def _join_all(processes, seconds: float) -> list:
 
 def _run_batteries(table: Table, tasks: Sequence[PairTask], progress: Progress, pool=None) -> list[PairBattery]:
     """Every pair's battery, in task order; results do not depend on the number of processes."""
-    X, names, policy = table.values, table.names, table.policy
+    X, names, policy, rows = table.values, table.names, table.policy, table.plot_rows
     jobs = _jobs(policy, len(tasks))
     results: list[PairBattery | None] = [None] * len(tasks)
     # A non-adjacent pair whose association checks are all ready needs no more
@@ -498,7 +511,7 @@ def _run_batteries(table: Table, tasks: Sequence[PairTask], progress: Progress, 
     ready = [k for k, task in enumerate(tasks)
              if not task.adjacent and task.association is not None and task.association.complete]
     for k in ready:
-        results[k] = _pair_battery(X, names, tasks[k], policy)
+        results[k] = _pair_battery(X, names, tasks[k], policy, rows)
     heavy = [k for k in range(len(tasks)) if results[k] is None]
     # Counted over the pairs that need the whole battery: the others are done
     # already and would make the time left look shorter than it is.
@@ -506,12 +519,12 @@ def _run_batteries(table: Table, tasks: Sequence[PairTask], progress: Progress, 
     progress("pair battery", done, len(heavy))
     if pool is None or len(heavy) < 2:
         for k in heavy:
-            results[k] = _pair_battery(X, names, tasks[k], policy)
+            results[k] = _pair_battery(X, names, tasks[k], policy, rows)
             done += 1
             progress("pair battery", done, len(heavy))
         return cast("list[PairBattery]", results)  # every slot is filled by now
     chunk = max(1, len(heavy) // (8 * jobs))
-    in_worker = functools.partial(_pair_battery_in_worker, policy=policy)
+    in_worker = functools.partial(_pair_battery_in_worker, policy=policy, plot_rows=rows)
     for k, result in zip(heavy, pool.map(in_worker, [tasks[k] for k in heavy], chunksize=chunk)):
         results[k] = result
         done += 1
@@ -611,7 +624,8 @@ def _rerun_without(table: Table, plan: PairPlan, batteries: Sequence[PairBattery
         progress("second pass", done, len(rerun))
         dropped = tuple(c for c in task.conditioning if c in after and c not in before)
         kept = tuple(c for c in task.conditioning if c not in after)
-        battery = _pair_battery(table.values, names, replace(task, conditioning=kept, association=None), table.policy)
+        battery = _pair_battery(table.values, names, replace(task, conditioning=kept, association=None), table.policy,
+                                table.plot_rows)
         note = (f"not partialled out: {', '.join(names[c] for c in dropped)}, in a relation judged "
                 "nonlinear, so its place in the linear causal order is not trusted")
         first = battery.checks[0]
@@ -627,8 +641,6 @@ def _rerun_without(table: Table, plan: PairPlan, batteries: Sequence[PairBattery
 
 def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence: Evidence) -> VariableFindings:
     """Each variable's report entry: its flags, and its checks judged (noise shape, rows needed)."""
-    from preflight.battery import _nongaussian
-
     policy, structure = table.policy, computed.structure
     gaussian_noises: list[str] = []
     entries = []
@@ -636,7 +648,7 @@ def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence:
         tagged = evidence.variable_checks[name]
         if structure is not None:
             noise_norm = [t.result for t in tagged if t.family == "noise normality"]
-            if not _nongaussian(noise_norm, policy):
+            if not nongaussian_under(noise_norm, policy):
                 gaussian_noises.append(name)
             tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], name, policy))]
         flags = list(screen.variable_flags[name])
@@ -770,7 +782,7 @@ def _pair_entries(table: Table, screen: Screen, findings: Findings, outcome: Rul
 # ---------------------------------------------------------------- report
 
 def _report(table: Table, computed: Computed, evidence: Evidence, variables: VariableFindings,
-            conclusion: Conclusion, keep_samples: bool) -> Report:
+            conclusion: Conclusion) -> Report:
     """The report dictionary (columns still in canonical order) and, if asked, the rows the plots draw."""
     loaded, policy, names, structure = table.data, table.policy, table.names, computed.structure
     outcome = conclusion.outcome
@@ -798,13 +810,23 @@ def _report(table: Table, computed: Computed, evidence: Evidence, variables: Var
         "generated_at": _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat(),
     }
     samples = None
-    if keep_samples:
-        n = table.values.shape[0]
-        rng = np.random.default_rng(derived_seed(policy.seed, "plot sample"))
-        rows = np.sort(rng.choice(n, size=min(n, policy.plot_max_points), replace=False))
-        samples = {"names": list(names), "values": table.values[rows], "rows": rows, "n": n,
-                   "noise": structure.noise[rows] if structure is not None else None}
+    rows = table.plot_rows
+    if rows is not None:
+        samples = {"names": list(names), "values": table.values[rows], "rows": rows, "n": table.values.shape[0],
+                   "noise": structure.noise[rows] if structure is not None else None,
+                   "exponents": {name: int(e) for name, e in zip(names, table.exponents)},
+                   "fits": _plotted_fits(evidence.batteries, conclusion.pair_entries)}
     return Report(data=report, samples=samples)
+
+
+def _plotted_fits(batteries: Sequence[PairBattery], entries) -> dict[frozenset[str], PlotFits]:
+    """The battery fits the HTML plots draw: those of the pairs reported adjacent, splines only where nonlinear."""
+    fits = {}
+    for battery, entry in zip(batteries, entries):
+        if entry["adjacent"] and battery.plot_fits is not None:
+            kept = battery.plot_fits if "nonlinear" in entry["flags"] else battery.plot_fits.without_splines()
+            fits[frozenset((battery.x, battery.y))] = kept
+    return fits
 
 
 def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> CheckResult:
@@ -826,7 +848,6 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
 def _identified_global(result: CheckResult) -> CheckResult:
     """A whole-table check with its identity: the test its function named, no family, no variables."""
     return result if result.identity is not None else result.identified(scope="global")
-
 
 
 def canonical_columns(names) -> list[int]:

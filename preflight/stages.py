@@ -13,6 +13,7 @@ Variables are column positions of the table as every stage sees it
 
 from __future__ import annotations
 
+import functools
 import itertools
 from dataclasses import dataclass, field, replace
 from typing import Any
@@ -40,9 +41,11 @@ class Table:
     exponents: np.ndarray
     """Per canonical column, the power of two its values were divided by."""
     policy: Policy
-    """The policy in force, its seed resolved (``policy.working_seed``)."""
+    """The policy in force, its seed resolved (:func:`preflight.seeds.working_seed`)."""
     requested: Policy
     """The policy as the user gave it, echoed in the report's settings."""
+    plot_rows: np.ndarray | None = None
+    """The rows the report's plots draw (sorted; chosen by ``pipeline.plot_rows``), or None when no plots are kept."""
 
     @property
     def values(self) -> np.ndarray:
@@ -52,10 +55,10 @@ class Table:
     def names(self) -> tuple[str, ...]:
         return self.data.names
 
-    @property
-    def pairs(self) -> list[Pair]:
-        """Every pair of columns once, ``i < j``, in the order of the report."""
-        return list(itertools.combinations(range(len(self.names)), 2))
+    @functools.cached_property
+    def pairs(self) -> tuple[Pair, ...]:
+        """Every pair of columns once, ``i < j``, in the order of the report (built on first use)."""
+        return tuple(itertools.combinations(range(len(self.names)), 2))
 
 
 @dataclass(frozen=True)
@@ -143,10 +146,9 @@ class PairTask:
 
 @dataclass(frozen=True)
 class PairPlan:
-    """One task per pair, in pair order, and the adjacent pairs whose noise estimates are compared."""
+    """One task per pair, in pair order."""
 
     tasks: tuple[PairTask, ...]
-    noise_pairs: tuple[Pair, ...]
 
 
 @dataclass(frozen=True)

@@ -154,13 +154,48 @@ def test_one_direction_builds_each_design_once(monkeypatch):
     y = x**3 + rng.uniform(-1, 1, size=600)
     designs = fit.RegressorDesigns(x)
     policy = Policy()
-    direction = _direction_checks(x, y, "y on x", "forward", policy, 1, designs)
+    direction = _direction_checks(x, y, fit.simple_slope(x, y)[1], "y on x", "forward", policy, 1, designs)
     spread = _spline_variance_checks(x, y, "y on x", "forward", policy, designs)
     assert len(built) == 1 and len(spread) == 2 and direction
     # Without designs handed over, the spline spread builds its own basis, with the same results.
     assert _spline_variance_checks(x, y, "y on x", "forward", policy) == spread
     assert len(built) == 2
 
+
+
+def test_one_direction_fits_its_spline_once(monkeypatch):
+    """The spline F-test, the spline spread and the plot's spline share one least-squares fit per direction."""
+    from preflight.battery import _direction_checks, _plot_fits, _spline_variance_checks
+    from preflight.policy import Policy
+
+    rng = np.random.default_rng(13)
+    x = rng.uniform(-2, 2, size=600)
+    y = x**3 + rng.uniform(-1, 1, size=600)
+    designs = fit.RegressorDesigns(x)
+    policy = Policy()
+    df = fit.spline_df(x.shape[0], policy.spline_max_df)
+    fresh = fit.ols(fit.full_rank_columns(fit.bspline_basis(x, df)[:, 1:]), y)
+    spline_fits = []
+    original = fit.ols
+
+    def counting(X, response, intercept=True):
+        if X is designs.spline_design(df):
+            spline_fits.append(response)
+        return original(X, response, intercept)
+
+    monkeypatch.setattr(fit, "ols", counting)
+    _direction_checks(x, y, fit.simple_slope(x, y)[1], ("y", "x"), "forward", policy, 1, designs)
+    _spline_variance_checks(x, y, ("y", "x"), "forward", policy, designs)
+    residuals = {"forward": fit.simple_slope(x, y)[1], "reverse": fit.simple_slope(y, x)[1]}
+    plotted = _plot_fits(x, y, ("x", "y"), (x, y), residuals, {"forward": designs, "reverse": fit.RegressorDesigns(y)},
+                         policy.spline_max_df, np.arange(600))
+    assert len(spline_fits) == 1
+    assert _same_bits(designs.spline_fit(df, y).residuals, fresh.residuals)
+    assert plotted.spline_y_on_x is not None and _same_bits(plotted.spline_y_on_x, fresh.residuals)
+    # Another response (even with equal values) is fitted afresh, never answered from the kept fit.
+    other = y.copy()
+    assert designs.spline_fit(df, other) is not designs.spline_fit(df, y)
+    assert not designs.spline_fit(df, y).residuals.flags.writeable
 
 def _mutable_globals(module) -> dict[str, int]:
     return {name: len(value) for name, value in vars(module).items()

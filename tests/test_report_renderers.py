@@ -132,8 +132,27 @@ def handmade_report(names=("a", "b", "c", "d", "e"), n=300, passed=False, seed=3
     }
     validate_report(data)
     rows = np.sort(rng.choice(n, size=n // 2, replace=False))
-    samples = {"names": list(names), "values": X[rows], "rows": rows, "n": n, "noise": (X - X.mean(0))[rows]}
+    samples = {"names": list(names), "values": X[rows], "rows": rows, "n": n, "noise": (X - X.mean(0))[rows],
+               "exponents": dict.fromkeys(names, 0), "fits": _battery_fits(X, list(names), pairs, rows)}
     return Report(data=data, samples=samples)
+
+
+def _battery_fits(X: np.ndarray, names: list[str], pairs: list[dict], rows: np.ndarray) -> dict:
+    """The fits the pair battery keeps for the plots (``battery._plot_fits``) of every adjacent pair."""
+    from preflight.battery import _plot_fits
+    from preflight.fit import RegressorDesigns, residualize, simple_slope
+
+    fits = {}
+    for pair in (p for p in pairs if p["adjacent"]):
+        x, y = X[:, names.index(pair["x"])], X[:, names.index(pair["y"])]
+        Z = X[:, [names.index(c) for c in pair["conditioning"]]] if pair["conditioning"] else None
+        xr, yr = residualize(x, Z), residualize(y, Z)
+        residuals = {"forward": simple_slope(xr, yr)[1], "reverse": simple_slope(yr, xr)[1]}
+        designs = ({"forward": RegressorDesigns(xr), "reverse": RegressorDesigns(yr)}
+                   if "nonlinear" in pair["flags"] else None)
+        fits[frozenset((pair["x"], pair["y"]))] = _plot_fits(x, y, (pair["x"], pair["y"]), (xr, yr), residuals,
+                                                             designs, 10, rows)
+    return fits
 
 
 def void_report() -> Report:
@@ -428,40 +447,43 @@ def test_html_escapes_awkward_names_and_survives_a_void_analysis():
 
 
 def test_plot_residuals_match_a_regression_on_the_conditioning_set():
-    """The plotted residuals equal statsmodels OLS residuals of y on [1, x, Z] (Frisch-Waugh-Lovell)."""
+    """The plotted residuals equal statsmodels OLS residuals of y on [1, x, Z] over all rows (Frisch-Waugh-Lovell)."""
     import statsmodels.api as sm
 
+    from preflight.fit import bspline_basis, residualize, spline_df
     from preflight.report.plots import linear_and_spline_fits, residuals_both_ways
 
     report = handmade_report()
     pair = report.pair("b", "c")
     assert pair["conditioning"] == ["a"]
-    values = report.samples["values"]
-    a, b, c = values[:, 0], values[:, 1], values[:, 2]
+    rows = report.samples["rows"]
+    rng = np.random.default_rng(3)  # the columns of handmade_report, every row
+    a = rng.uniform(-1, 1, 300)
+    b = 0.8 * a + 0.5 * rng.uniform(-1, 1, 300)
+    c = np.tanh(2 * b) + 0.2 * rng.normal(size=300)
+    np.testing.assert_array_equal(report.samples["values"][:, :3], np.column_stack([a, b, c])[rows])
     xp, resid_c, yp, resid_b = residuals_both_ways(pair, report.samples)
-    reference_c = sm.OLS(c, sm.add_constant(np.column_stack([b, a]))).fit().resid
-    reference_b = sm.OLS(b, sm.add_constant(np.column_stack([c, a]))).fit().resid
+    reference_c = sm.OLS(c, sm.add_constant(np.column_stack([b, a]))).fit().resid[rows]
+    reference_b = sm.OLS(b, sm.add_constant(np.column_stack([c, a]))).fit().resid[rows]
     np.testing.assert_allclose(resid_c, reference_c, atol=1e-10)
     np.testing.assert_allclose(resid_b, reference_b, atol=1e-10)
     # The x axis is b with a partialled out, shifted back to b's mean.
-    reference_xp = sm.OLS(b, sm.add_constant(a)).fit().resid + b.mean()
+    reference_xp = sm.OLS(b, sm.add_constant(a)).fit().resid[rows] + b.mean()
     np.testing.assert_allclose(xp, reference_xp, atol=1e-10)
 
-    from preflight.fit import bspline_basis, spline_df
-
-    unconditioned = dict(pair, conditioning=[])
-    fits = linear_and_spline_fits(unconditioned, report.samples, max_df=10)
-    np.testing.assert_allclose(fits.regressor, b, atol=1e-12)
-    straight = sm.OLS(c, sm.add_constant(b)).fit().fittedvalues
-    np.testing.assert_allclose(fits.linear_fitted, straight, atol=1e-10)
-    # The spline has the df of the test (full row count), fitted on the plotted rows.
-    assert fits.df == spline_df(report.samples["n"], 10)
-    spline = sm.OLS(c, bspline_basis(b, fits.df)).fit().fittedvalues  # the basis sums to one: it spans the intercept
+    fits = linear_and_spline_fits(pair, report.samples)
+    np.testing.assert_allclose(fits.regressor, xp, atol=1e-12)
+    np.testing.assert_allclose(fits.response, reference_c + fits.linear_fitted, atol=1e-10)
+    # The spline of the spline F-test: its df (all rows), fitted on all rows of the partialled columns.
+    assert fits.df == spline_df(300, 10)
+    br, cr = residualize(b, a[:, None]), residualize(c, a[:, None])
+    spline = sm.OLS(cr, bspline_basis(br, fits.df)).fit().fittedvalues[rows] + c.mean()
+    assert fits.spline_fitted is not None  # the basis sums to one: it spans the intercept
     np.testing.assert_allclose(fits.spline_fitted, spline, atol=1e-8)
-    # The spline bends with the tanh mechanism: it explains clearly more than the line.
-    rss_line = float(((c - fits.linear_fitted) ** 2).sum())
-    rss_spline = float(((c - fits.spline_fitted) ** 2).sum())
-    assert rss_spline < 0.8 * rss_line
+    # The spline bends with the tanh mechanism, so it sits closer to the plotted points than the line.
+    rss_line = float(((fits.response - fits.linear_fitted) ** 2).sum())
+    rss_spline = float(((fits.response - fits.spline_fitted) ** 2).sum())
+    assert rss_spline < rss_line
 
 
 def test_graph_layout_runs_left_to_right_along_the_order():

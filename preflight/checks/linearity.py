@@ -165,7 +165,7 @@ def _spline_comparison(xv: np.ndarray, yv: np.ndarray, df: int | None, max_df: i
         return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=linear.rss, rank_linear=linear.rank,
                                 rank_spline=linear.rank, tss=linear.tss, f_statistic=math.nan, p_value=None,
                                 df_num=0, df_den=n - linear.rank, usable=False)
-    spline = ols(designs.spline_design(chosen), yv)
+    spline = designs.spline_fit(chosen, yv)
     f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, spline.rss, spline.rank, n)
     return SplineComparison(df=chosen, n=n, rss_linear=linear.rss, rss_spline=min(spline.rss, linear.rss),
                             rank_linear=linear.rank, rank_spline=spline.rank, tss=linear.tss, f_statistic=f_stat,

@@ -7,8 +7,9 @@ FAIL, evidence, line styles named in the legend), so the report survives
 black-and-white printing and colour-blind readers.
 
 Plots are inline SVG from :mod:`preflight.report.plots`.  Data-dependent
-plots need ``report.samples``; a report re-rendered from saved JSON has none,
-and says so in place of those plots.
+plots need ``report.samples`` (the plotted rows, the noise estimates and the
+pair battery's fits at those rows); a report re-rendered from saved JSON has
+none, and says so in place of those plots.
 """
 
 from __future__ import annotations
@@ -342,6 +343,9 @@ def _plots(data: dict[str, Any], samples: dict[str, Any] | None, max_edge_plots:
         parts.append("<p>No adjacent pairs, so no residual plots.</p>")
     for k, pair in enumerate(edges[:max_edge_plots]):
         label = f"Residuals of {pair['y']} on {pair['x']} and of {pair['x']} on {pair['y']}"
+        if plots.pair_fits(samples, pair) is None:
+            parts.append(f"<p>{_e(label)}: not drawn, the report carries no fits of this pair.</p>")
+            continue
         svg = plots.residual_pair_svg(pair, samples, alpha=alpha, key=f"edge{k}")
         given = f" (given {_e(', '.join(pair['conditioning']))})" if pair.get("conditioning") else ""
         parts.append(f"<figure>{_svg_with_label(svg, label)}<figcaption>"
@@ -357,10 +361,12 @@ def _plots(data: dict[str, Any], samples: dict[str, Any] | None, max_edge_plots:
                      "the spline F-test compared it with. A material gap between them is what the "
                      "<span class=\"flag\">nonlinear</span> flag reports.</p>")
         parts.append('<div class="plotgrid wide">')
-        max_df = int(data["settings"]["spline_max_df"])
         for k, pair in enumerate(nonlinear[:max_edge_plots]):
             label = f"Straight line and spline fit for {pair['x']} and {pair['y']}"
-            svg = plots.linear_vs_spline_svg(pair, samples, max_df=max_df, key=f"spline{k}")
+            if plots.pair_fits(samples, pair) is None:
+                parts.append(f"<p>{_e(label)}: not drawn, the report carries no fits of this pair.</p>")
+                continue
+            svg = plots.linear_vs_spline_svg(pair, samples, key=f"spline{k}")
             parts.append(f"<figure>{_svg_with_label(svg, label)}<figcaption>{_e(label)}.</figcaption></figure>")
         parts.append("</div>")
 

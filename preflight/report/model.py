@@ -21,8 +21,12 @@ class Report:
     """The result of :func:`preflight.check`.
 
     ``data`` holds the plain JSON-ready content (schema version 1);
-    ``samples`` optionally holds a subsample of the analysed columns for
-    plots.  It is never written to the JSON report, so the report does not
+    ``samples`` optionally holds what the plots draw: ``rows`` (the seeded
+    subsample), ``values`` (the columns at those rows, input units), ``n``,
+    ``noise`` (noise estimates at those rows), ``exponents`` (each column's
+    power of two in the analysis) and ``fits`` (the pair battery's
+    ``PlotFits`` of each adjacent pair, keyed by the frozenset of its two
+    names).  It is never written to the JSON report, so the report does not
     carry the data.
     """
 

@@ -15,15 +15,20 @@ from __future__ import annotations
 import html
 import io
 import itertools
+import math
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from fractions import Fraction
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from preflight.evidence import rejects
 from preflight.report.identity import pair_check
+
+if TYPE_CHECKING:
+    from preflight.battery import PlotFits
 
 # Colours are never the only carrier of meaning: every styled element also
 # has a line style, a marker or a text label.
@@ -122,28 +127,23 @@ def direction_hsic(pair: dict[str, Any], regressor: str, response: str) -> dict[
     return pair_check(pair, "hsic", (response, regressor), family="residual independence")
 
 
-def _partialled(samples: dict[str, Any], pair: dict[str, Any]) -> tuple[np.ndarray, np.ndarray]:
-    """Both columns of the pair after partialling out its conditioning set, means added back.
+def pair_fits(samples: dict[str, Any], pair: dict[str, Any]) -> PlotFits | None:
+    """The pair battery's fits of this pair at the plotted rows, or None when the report carries none for it."""
+    return (samples.get("fits") or {}).get(frozenset((pair["x"], pair["y"])))
 
-    The battery tests the partialled columns; adding the means back keeps
-    the axes in the data's own units when the conditioning set is empty.
+
+def _displayed(values: np.ndarray, name: str, samples: dict[str, Any]) -> np.ndarray:
+    """Values the battery computed (column scaled by 2**-exponent) in the units the axis shows.
+
+    Those are the column's own units, or units of 10**power for a column
+    near the ends of the floating-point range (:func:`_display_power`).  The
+    factor 2**exponent / 10**power is formed exactly and rounded once, so
+    nothing overflows on the way.
     """
-    from preflight.fit import residualize
-
-    names = list(samples["names"])
-    values = np.asarray(samples["values"], dtype=np.float64)
-
-    def column(name: str) -> np.ndarray:
-        v = values[:, names.index(name)]
-        power = _display_power(v)
-        # two steps: 10**power alone is subnormal or overflows at the ends of the range
-        return v / 10.0 ** (power // 2) / 10.0 ** (power - power // 2) if power else v
-
-    x = column(pair["x"])
-    y = column(pair["y"])
-    conditioning = [c for c in pair.get("conditioning", []) if c in names]
-    Z = np.column_stack([column(c) for c in conditioning]) if conditioning else None
-    return residualize(x, Z) + x.mean(), residualize(y, Z) + y.mean()
+    exponent = int(samples["exponents"][name])
+    power = _display_power(np.asarray(samples["values"], dtype=np.float64)[:, list(samples["names"]).index(name)])
+    factor = math.ldexp(1.0, exponent) if not power else float(Fraction(2) ** exponent / Fraction(10) ** power)
+    return np.asarray(values, dtype=np.float64) * factor
 
 
 def _display_power(v: np.ndarray) -> int:
@@ -189,18 +189,19 @@ def _style_axes(ax) -> None:
 
 def residuals_both_ways(pair: dict[str, Any],
                         samples: dict[str, Any]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """(x, residual of y on x, y, residual of x on y) after partialling out the pair's conditioning set.
+    """(x, residual of y on x, y, residual of x on y) at the plotted rows, as the pair battery computed them.
 
-    x and y are returned with their means added back (see ``_partialled``);
-    the residuals are those of simple regressions on the partialled columns,
-    which by Frisch-Waugh-Lovell equal the residuals of y on [1, x, Z].
+    x and y are the battery's columns after partialling out the pair's
+    conditioning set, with their means added back; the residuals are those
+    the battery's checks tested (by Frisch-Waugh-Lovell, the residuals of y on
+    [1, x, Z] over all rows).  Nothing is refitted here.
     """
-    from preflight.fit import simple_slope
-
-    xp, yp = _partialled(samples, pair)
-    _, resid_y = simple_slope(xp, yp)
-    _, resid_x = simple_slope(yp, xp)
-    return xp, resid_y, yp, resid_x
+    fits = pair_fits(samples, pair)
+    if fits is None:
+        raise KeyError(f"the report carries no fits of the pair ({pair['x']}, {pair['y']})")
+    x, y = pair["x"], pair["y"]
+    return (_displayed(fits.partialled(x), x, samples), _displayed(fits.residual(y), y, samples),
+            _displayed(fits.partialled(y), y, samples), _displayed(fits.residual(x), x, samples))
 
 
 def residual_pair_svg(pair: dict[str, Any], samples: dict[str, Any], *, alpha: float, key: str) -> str:
@@ -297,42 +298,40 @@ class SplineComparisonFits:
     response_name: str
     df: int
     linear_fitted: np.ndarray
-    spline_fitted: np.ndarray
+    spline_fitted: np.ndarray | None
+    """None where the battery fitted no spline (a regressor too tied for quantile knots)."""
 
 
-def linear_and_spline_fits(pair: dict[str, Any], samples: dict[str, Any], *, max_df: int) -> SplineComparisonFits:
+def linear_and_spline_fits(pair: dict[str, Any], samples: dict[str, Any]) -> SplineComparisonFits:
     """Straight line and cubic regression spline of the effect (y unless oriented y->x) on the cause.
 
-    The spline has the degrees of freedom the spline F-test used
-    (:func:`preflight.fit.spline_df` of the full row count ``samples["n"]``).
+    Both are the pair battery's: the straight line its checks' residual, the
+    spline that of the spline F-test (its degrees of freedom, all rows).
     """
-    from preflight.fit import bspline_basis, ols, spline_df
-
-    xp, yp = _partialled(samples, pair)
-    if pair.get("orientation") == "y->x":
-        regressor, response, reg_name, resp_name = yp, xp, pair["y"], pair["x"]
-    else:
-        regressor, response, reg_name, resp_name = xp, yp, pair["x"], pair["y"]
-    df = spline_df(int(samples.get("n") or regressor.shape[0]), max_df)
-    straight = ols(regressor, response)
-    curve = ols(bspline_basis(regressor, df)[:, 1:], response)
-    return SplineComparisonFits(regressor, response, reg_name, resp_name, df,
-                                response - straight.residuals, response - curve.residuals)
+    fits = pair_fits(samples, pair)
+    if fits is None:
+        raise KeyError(f"the report carries no fits of the pair ({pair['x']}, {pair['y']})")
+    reg_name, resp_name = (pair["y"], pair["x"]) if pair.get("orientation") == "y->x" else (pair["x"], pair["y"])
+    regressor = _displayed(fits.partialled(reg_name), reg_name, samples)
+    response = _displayed(fits.partialled(resp_name), resp_name, samples)
+    spline = fits.spline_residual(resp_name)
+    return SplineComparisonFits(regressor, response, reg_name, resp_name, fits.spline_df,
+                                response - _displayed(fits.residual(resp_name), resp_name, samples),
+                                None if spline is None else response - _displayed(spline, resp_name, samples))
 
 
-def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, max_df: int, key: str) -> str:
+def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, key: str) -> str:
     """Straight-line fit against a cubic regression spline for one pair flagged ``nonlinear``.
 
-    The response is the effect when the pair is oriented, else y.  The
-    spline has the degrees of freedom the spline F-test used
-    (:func:`preflight.fit.spline_df` of the full row count).
+    The response is the effect when the pair is oriented, else y.  Both fits
+    are the pair battery's (:func:`linear_and_spline_fits`).
     """
-    fits = linear_and_spline_fits(pair, samples, max_df=max_df)
+    fits = linear_and_spline_fits(pair, samples)
     regressor, response, df = fits.regressor, fits.response, fits.df
     reg_name, resp_name = fits.regressor_name, fits.response_name
     order = np.argsort(regressor)
     grid = regressor[order]
-    spline_fitted = fits.spline_fitted[order]
+    spline_fitted = None if fits.spline_fitted is None else fits.spline_fitted[order]
     straight_fitted = fits.linear_fitted[order]
     gain = pair_check(pair, "spline-f-test", (resp_name, reg_name))
     gain_text = ""
@@ -346,8 +345,11 @@ def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, max_d
         _scatter(ax, regressor, response)
         ax.plot(grid, straight_fitted, color=FIT_LINE, linewidth=1.6,
                 linestyle="--", label="straight line (dashed)")
-        ax.plot(grid, spline_fitted, color=SPLINE_LINE, linewidth=1.8, linestyle="-",
-                label=f"cubic spline, {df} df (solid)")
+        if spline_fitted is not None:
+            ax.plot(grid, spline_fitted, color=SPLINE_LINE, linewidth=1.8, linestyle="-",
+                    label=f"cubic spline, {df} df (solid)")
+        else:
+            gain_text += "; no spline: the regressor is too tied for its knots"
         title = f"{_label(resp_name)} on {_label(reg_name)}: straight line vs spline{gain_text}"
         ax.set_title(title, loc="left")
         ax.set_xlabel(_axis_label(reg_name, pair, samples))
@@ -355,7 +357,8 @@ def linear_vs_spline_svg(pair: dict[str, Any], samples: dict[str, Any], *, max_d
         ax.legend(loc="best", fontsize=8, frameon=True, framealpha=0.9)
         _style_axes(ax)
         fig.tight_layout()
-        return _to_svg(fig, key, title=title + f" (cubic spline with {df} degrees of freedom)")
+        described = f" (cubic spline with {df} degrees of freedom)" if spline_fitted is not None else ""
+        return _to_svg(fig, key, title=title + described)
 
 
 # ---------------------------------------------------------------- graph overview
