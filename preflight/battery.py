@@ -489,11 +489,26 @@ def _judge_adjacent(battery: PairBattery, checks: list[Tagged], policy: Policy,
     if dependent["forward"] and dependent["reverse"] and not nonlinear and "gaussian-noise" not in flags:
         flags.append("confounding-suspected")
         facts.add("residuals-dependent-both-ways")
+    elif nonlinear and anm == "undetermined" and _no_additive_noise_model(checks, policy):
+        # Neither a line nor a spline leaves an independent residual in either
+        # direction: a curve alone would leave one (Hoyer et al. 2009), a
+        # hidden common cause need not.
+        flags.append("confounding-suspected")
+        facts.add("no-independent-noise-model")
     facts.add("lingam-oriented" if lingam != "undetermined" else "lingam-undetermined")
     facts.add("anm-oriented" if anm != "undetermined" else "anm-undetermined")
     judged = _judged_checks(checks, policy, favoured, spread_role, nonlinear)
     return PairFindings(battery.x, battery.y, True, lingam, anm, tuple(flags),
                         frozenset(facts | set(flags)), judged, battery.conditioning)
+
+
+def _no_additive_noise_model(checks: list[Tagged], policy: Policy) -> bool:
+    """Both spline residuals depend on their regressors: HSIC, or a material change of spread."""
+    def dependent(role: str) -> bool:
+        anm = _of(checks, "additive-noise independence", role)
+        return bool(anm) and (any(significant(r, policy.alpha) for r in anm) or _material_departure(
+            _spread(checks, role, spline=True), policy.alpha, policy.confounding_spread_min_r2))
+    return dependent("forward") and dependent("reverse")
 
 
 def _judged_checks(checks: list[Tagged], policy: Policy, favoured: str, spread_role: str,

@@ -23,14 +23,16 @@ import numpy as np
 from preflight.battery import PairFindings, _material_departure
 from preflight.evidence import Tagged, significant
 from preflight.policy import Policy
-from preflight.results import CheckResult
+from preflight.results import STRUCTURAL_EQUATION, CheckResult
 from preflight.seeds import derived_seed
 
 EDGE_FAMILY = "equation residual independence"
+SPREAD_FAMILY = "equation residual spread"
 LINEARITY_FAMILY = "equation linearity"
 VARIANCE_FAMILY = "equation variance"
-STRUCTURAL_EQUATION = "structural equation"
-"""Variant of a check computed on a structural equation (a variable on all its parents)."""
+EQUATION_FAMILIES = (LINEARITY_FAMILY, VARIANCE_FAMILY)
+RESIDUAL_BOOTSTRAP = "residual bootstrap"
+"""The null of an HSIC inside an equation: simulated by the residual bootstrap (Sen and Sen 2014)."""
 
 CANDIDATE_EDGES_FROM_PARENTS = True
 """Spike switch (not a policy key yet): add the pruned parent edges to the PC-stable skeleton, which leaves out
@@ -54,7 +56,7 @@ def trusted(equations: dict[int, tuple[Tagged, ...]], p: int, policy: Policy) ->
     from preflight.evidence import adjust_named_groups
 
     adjusted = adjust_named_groups({j: list(tests) for j, tests in equations.items()}, policy.correction)
-    return frozenset(j for j in range(p) if j not in adjusted or not any(_departs(adjusted[j], policy)))
+    return frozenset(j for j in range(p) if j not in adjusted or not any(departs(adjusted[j], policy)))
 
 
 def with_parent_edges(estimated: np.ndarray, parents, children=None) -> np.ndarray:
@@ -73,44 +75,50 @@ def with_parent_edges(estimated: np.ndarray, parents, children=None) -> np.ndarr
     return out
 
 
-def edge_tests(X: np.ndarray, names, parents, adjacency: np.ndarray, pairs, policy: Policy,
-               progress=None) -> dict[tuple[int, int], tuple[Tagged, ...]]:
-    """Per adjacent pair (i, j): forward (j on i and the other parents), reverse, and the likelihood ratio."""
+def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Policy) -> tuple[Tagged, ...]:
+    """One adjacent pair (i, j) inside its equations: the forward (j on i and the other parents) and reverse
+    residual HSIC, each residual's spread against the partial regressor, and the likelihood ratio.
+
+    A pure function of its arguments (seeded from the column names), so the
+    pairs can run in any process in any order.
+    """
     from preflight.equations import judge_edge
 
-    todo = [ij for ij in pairs if adjacency[ij]]
-    out = {}
-    for done, (i, j) in enumerate(todo):
-        if progress is not None:
-            progress("edges in their equations", done, len(todo))
-        judgement = judge_edge(X, i, j, parents, alpha=policy.alpha, calibration="bootstrap",
-                               replicates=BOOTSTRAP_REPLICATES, n_features=policy.hsic_features,
-                               exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
-                               seed=derived_seed(policy.seed, "edge in its equations", names[i], names[j]))
-        given = ", ".join(names[c] for c in judgement.conditioning) or "nothing"
-        tagged = []
-        for role, result, response, regressor in (("forward", judgement.forward, names[j], names[i]),
-                                                  ("reverse", judgement.backward, names[i], names[j])):
-            decision_p = result.smooth_p_value if result.smooth_p_value is not None else result.p_value
-            check = CheckResult(
-                name=f"hsic in the equation ({response} on {regressor} and its other parents)",
-                statistic=result.statistic, p_value=float(decision_p), effect=result.effect,
-                effect_name="normalised HSIC", n=result.n,
-                note=(f"{result.note}; smooth p-value (gamma matched to the bootstrap), counted "
-                      f"p = {result.p_value:.4g}; other parents partialled out: {given}"))
-            tagged.append(Tagged(EDGE_FAMILY, role, check.identified(
-                scope="pair", family=EDGE_FAMILY, variables=tuple(sorted((names[i], names[j]))),
-                direction=(response, regressor), test="hsic", variant=STRUCTURAL_EQUATION)))
-        ratio = CheckResult(name=f"pairwise likelihood ratio in the equations ({names[i]} -> {names[j]} if > 0)",
-                            statistic=judgement.likelihood_ratio, p_value=None, n=judgement.n,
-                            note=f"on the partial residuals given {given}")
-        tagged.append(Tagged(None, "pair", ratio.identified(
-            scope="pair", variables=tuple(sorted((names[i], names[j]))), test="pairwise-likelihood-ratio",
-            variant=STRUCTURAL_EQUATION)))
-        out[(i, j)] = tuple(tagged)
-    if progress is not None and todo:
-        progress("edges in their equations", len(todo), len(todo))
-    return out
+    i, j = pair
+    judgement = judge_edge(X, i, j, parents, alpha=policy.alpha, calibration="bootstrap",
+                           replicates=BOOTSTRAP_REPLICATES, n_features=policy.hsic_features,
+                           exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
+                           seed=derived_seed(policy.seed, "edge in its equations", names[i], names[j]))
+    given = ", ".join(names[c] for c in judgement.conditioning) or "nothing"
+    variables = tuple(sorted((names[i], names[j])))
+    tagged = []
+    for role, result, spread, response, regressor in (
+            ("forward", judgement.forward, judgement.forward_spread, names[j], names[i]),
+            ("reverse", judgement.backward, judgement.backward_spread, names[i], names[j])):
+        decision_p = result.smooth_p_value if result.smooth_p_value is not None else result.p_value
+        label = f"{response} on {regressor} and its other parents"
+        check = CheckResult(
+            name=f"hsic in the equation ({label})",
+            statistic=result.statistic, p_value=float(decision_p), effect=result.effect,
+            effect_name="normalised HSIC", n=result.n,
+            note=(f"{result.note}; smooth p-value (gamma matched to the bootstrap), counted "
+                  f"p = {result.p_value:.4g}; other parents partialled out: {given}"))
+        identified = check.identified(scope="pair", family=EDGE_FAMILY, variables=variables,
+                                      direction=(response, regressor), test="hsic", variant=STRUCTURAL_EQUATION)
+        identified = replace(identified, identity=replace(identified.identity, null=RESIDUAL_BOOTSTRAP))
+        tagged.append(Tagged(EDGE_FAMILY, role, identified))
+        for test, spread_check in zip(("white",) if len(spread) == 1 else ("breusch-pagan", "white"), spread):
+            spread_check = replace(spread_check, note=f"{spread_check.note}; against {regressor} with {given} "
+                                                      "partialled out")
+            tagged.append(Tagged(SPREAD_FAMILY, role, spread_check.identified(
+                scope="pair", family=SPREAD_FAMILY, variables=variables, direction=(response, regressor),
+                test=test, variant=STRUCTURAL_EQUATION, name=f"{spread_check.name} in the equation ({label})")))
+    ratio = CheckResult(name=f"pairwise likelihood ratio in the equations ({names[i]} -> {names[j]} if > 0)",
+                        statistic=judgement.likelihood_ratio, p_value=None, n=judgement.n,
+                        note=f"on the partial residuals given {given}")
+    tagged.append(Tagged(None, "pair", ratio.identified(
+        scope="pair", variables=variables, test="pairwise-likelihood-ratio", variant=STRUCTURAL_EQUATION)))
+    return tuple(tagged)
 
 
 def equation_tests(X: np.ndarray, names, parents, policy: Policy) -> dict[int, tuple[Tagged, ...]]:
@@ -131,7 +139,7 @@ def equation_tests(X: np.ndarray, names, parents, policy: Policy) -> dict[int, t
     return out
 
 
-def _departs(equation: list[Tagged], policy: Policy) -> tuple[bool, bool]:
+def departs(equation: list[Tagged], policy: Policy) -> tuple[bool, bool]:
     """(nonlinear, heteroscedastic): a significant departure with at least the policy's effect floor."""
     alpha = policy.alpha
     return (_material_departure([t.result for t in equation if t.family == LINEARITY_FAMILY], alpha,
@@ -161,30 +169,40 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     """
     if not findings.adjacent or edge is None:
         return findings
-    alpha = policy.alpha
-    i, j = pair
-    sides = [list(equations.get(v, [])) for v in (i, j)]
-    equation_results = tuple(replace(t.result, passed=not any(_departs([t], policy))) for side in sides for t in side)
-    if any(any(_departs(side, policy)) for side in sides):
-        return replace(findings, checks=findings.checks + equation_results)
-    forward, reverse, ratio = edge
-    independent = {"forward": not significant(forward.result, alpha),
-                   "reverse": not significant(reverse.result, alpha)}
+    if any(any(departs(list(equations.get(v, [])), policy)) for v in pair):
+        return findings
+    dependent = {role: _dependent([t for t in edge if t.role == role], policy) for role in ("forward", "reverse")}
+    (ratio,) = [t for t in edge if t.role == "pair"]
     gaussian = "gaussian-noise" in findings.flags
     lr = float(ratio.result.statistic)
     lingam = "undetermined"
     if not gaussian:
-        if independent["forward"] and not independent["reverse"] and lr > 0:
+        if not dependent["forward"] and dependent["reverse"] and lr > 0:
             lingam = "x->y"
-        elif independent["reverse"] and not independent["forward"] and lr < 0:
+        elif not dependent["reverse"] and dependent["forward"] and lr < 0:
             lingam = "y->x"
     flags = [f for f in findings.flags if f not in ("nonlinear", "heteroscedastic", "confounding-suspected")]
     facts = {"adjacent", "anm-undetermined", "lingam-oriented" if lingam != "undetermined" else "lingam-undetermined"}
-    if not independent["forward"] and not independent["reverse"] and not gaussian:
+    if dependent["forward"] and dependent["reverse"] and not gaussian:
         flags.append("confounding-suspected")
         facts.add("residuals-dependent-both-ways")
-    judged = (replace(forward.result, passed=independent["forward"] if lingam != "y->x" else None),
-              replace(reverse.result, passed=independent["reverse"] if lingam != "x->y" else None),
-              ratio.result) + equation_results
+    judged = tuple(replace(t.result, passed=None if _explained_by(t.role, lingam) else not _counts(t, policy))
+                   for t in edge if t.family is not None) + (ratio.result,)
     return replace(findings, lingam_orientation=lingam, anm_orientation="undetermined", flags=tuple(flags),
                    facts=frozenset(facts | set(flags)), checks=findings.checks + judged)
+
+
+def _counts(test: Tagged, policy: Policy) -> bool:
+    """A significant departure with at least its floor: normalised HSIC, or the auxiliary R-squared of a
+    spread test (``confounding_spread_min_r2``: a hidden common cause leaves a faint spread change)."""
+    floor = policy.dependence_min_hsic if test.family == EDGE_FAMILY else policy.confounding_spread_min_r2
+    return significant(test.result, policy.alpha) and (test.result.effect or 0.0) >= floor
+
+
+def _dependent(tests: list[Tagged], policy: Policy) -> bool:
+    return any(_counts(t, policy) for t in tests)
+
+
+def _explained_by(role: str, orientation: str) -> bool:
+    """The reverse regression's residual is expected to depend on its regressor once x -> y is found."""
+    return (role == "reverse" and orientation == "x->y") or (role == "forward" and orientation == "y->x")

@@ -222,6 +222,7 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
         skeleton = replace(skeleton, estimated=equation_stage.with_parent_edges(skeleton.estimated, structure.parents,
                                                                                 children))
     noise_pairs = tuple(ij for ij in table.pairs if skeleton.estimated[ij])
+    edge_futures = _submit_edge_tasks(pool, structure.parents, noise_pairs, policy)
     # The noise HSICs need nothing the pairs need: with workers they run in
     # the one the whole-table screens left idle while this process shares
     # the association checks.
@@ -237,10 +238,30 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("whole-table screens", 0, 1)
     whole_table = whole.result() if whole is not None else _whole_table_screens(X, policy)
     progress("whole-table screens", 1, 1)
-    edges = equation_stage.edge_tests(X, names, structure.parents, skeleton.estimated, table.pairs, policy, progress)
+    edges = _edge_tests(table, structure.parents, noise_pairs, edge_futures, progress)
     return Computed(structure=structure, skeleton=skeleton, plan=plan, batteries=tuple(batteries),
                     noise_dependence=noise_dependence, whole_table=whole_table, edge_tests=edges,
                     equation_checks=equations)
+
+
+def _submit_edge_tasks(pool, parents, pairs, policy: Policy) -> list | None:
+    """The adjacent pairs' tests inside their equations, queued in the workers to run beside the batteries."""
+    if pool is None or len(pairs) < 2:
+        return None
+    task = functools.partial(_edge_task_in_worker, parents=parents, policy=policy)
+    return [pool.submit(task, ij) for ij in pairs]
+
+
+def _edge_tests(table: Table, parents, pairs, futures: list | None, progress: Progress) -> dict:
+    """Per adjacent pair, its tagged tests inside the equations (:func:`equation_stage.edge_task`), in pair order."""
+    out = {}
+    for done, ij in enumerate(pairs):
+        progress("edges in their equations", done, len(pairs))
+        out[ij] = (futures[done].result() if futures is not None
+                   else equation_stage.edge_task(table.values, table.names, parents, ij, table.policy))
+    if pairs:
+        progress("edges in their equations", len(pairs), len(pairs))
+    return out
 
 
 def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, progress: Progress,
@@ -403,6 +424,10 @@ _WORKER: dict[str, Any] = {}
 
 def _pair_battery_in_worker(task: PairTask, policy: Policy, plot_rows: np.ndarray | None) -> PairBattery:
     return _pair_battery(_WORKER["X"], _WORKER["names"], task, policy, plot_rows)
+
+
+def _edge_task_in_worker(pair: tuple[int, int], parents, policy: Policy):
+    return equation_stage.edge_task(_WORKER["X"], _WORKER["names"], parents, pair, policy)
 
 
 def _init_worker(X, names, parent_pid: int):
@@ -653,9 +678,11 @@ def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence:
             tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], name, policy))]
         flags = list(screen.variable_flags[name])
         judged = []
-        for t in tagged:
+        for t in tagged + evidence.equation_checks.get(j, []):
             r = t.result
-            if t.family == "noise normality":
+            if t.family in equation_stage.EQUATION_FAMILIES:
+                r = replace(r, passed=not any(equation_stage.departs([t], policy)))
+            elif t.family == "noise normality":
                 r = replace(r, passed=None if r.p_value is None else significant(r, policy.alpha))
             elif t.family == "autocorrelation":
                 r = replace(r, passed="autocorrelated" not in flags)

@@ -15,6 +15,8 @@ from dataclasses import dataclass, field, replace
 
 SCOPES = ("variable", "pair", "global")
 
+STRUCTURAL_EQUATION = "structural equation"
+"""Variant of a check computed on a structural equation (a variable on all its parents at once)."""
 SPLINE_RESIDUAL = "spline residual"
 """Variant of a check computed on the residual of the regression spline rather than of the straight line."""
 NOISE_ESTIMATE = "noise estimate"
