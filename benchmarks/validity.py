@@ -22,6 +22,9 @@ Usage::
 
     python benchmarks/validity.py --quick --results /tmp/validity.md --figures /tmp/figs
     nice -n 10 python benchmarks/validity.py --jobs 1 --seed 20261203
+    # the parts outside the default grid: several parents per child with wide noise, hidden non-adjacent cause
+    python benchmarks/validity.py --skip-calibration --kinds linear-non-gaussian,hidden-cause-non-adjacent \
+        --shapes several-parents,pair,fork --ns 1000:8,2000:8,100000:1 --results /tmp/wide.md
 
 The module is also imported by ``tests/test_validity_subset.py`` so that the
 fast subset and the full study share one implementation.
