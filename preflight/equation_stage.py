@@ -1,4 +1,4 @@
-"""Edges judged inside their structural equations (issue #17, items 1 and 2; a spike).
+"""Edges judged inside their structural equations.
 
 The pair battery regresses y on x alone, so a child's other parents stay in
 its residual and read as nonlinearity, changing spread and confounding.
@@ -23,7 +23,7 @@ import numpy as np
 from preflight.battery import PairFindings, _material_departure
 from preflight.evidence import Tagged, significant
 from preflight.policy import Policy
-from preflight.results import STRUCTURAL_EQUATION, CheckResult
+from preflight.results import STRUCTURAL_EQUATION, CheckIdentity, CheckResult
 from preflight.seeds import derived_seed
 
 EDGE_FAMILY = "equation residual independence"
@@ -35,11 +35,11 @@ RESIDUAL_BOOTSTRAP = "residual bootstrap"
 """The null of an HSIC inside an equation: simulated by the residual bootstrap (Sen and Sen 2014)."""
 
 CANDIDATE_EDGES_FROM_PARENTS = True
-"""Spike switch (not a policy key yet): add the pruned parent edges to the PC-stable skeleton, which leaves out
+"""Measurement switch for ``benchmarks/equations_wiring.py`` (not a policy key): add the pruned parent edges to the PC-stable skeleton, which leaves out
 weak edges (a third of the true edges at 2,000 rows in benchmarks/EQUATIONS_WIRING.md)."""
 
 ONLY_TRUSTED_PARENT_EDGES = True
-"""Spike switch: add only the parent edges of equations that hold up (linear and homoscedastic, see
+"""Measurement switch for ``benchmarks/equations_wiring.py``: add only the parent edges of equations that hold up (linear and homoscedastic, see
 :func:`trusted`); a departing equation is a sign of a scrambled causal order, whose parent sets are not edges.
 With every parent edge, the kiln demo's reversed chain adds gas_flow - wall_temp (oriented) and
 gas_flow - glaze_gloss."""
@@ -57,6 +57,11 @@ def trusted(equations: dict[int, tuple[Tagged, ...]], p: int, policy: Policy) ->
 
     adjusted = adjust_named_groups({j: list(tests) for j, tests in equations.items()}, policy.correction)
     return frozenset(j for j in range(p) if j not in adjusted or not any(departs(adjusted[j], policy)))
+
+
+def graph_parents(dag: np.ndarray) -> tuple[tuple[int, ...], ...]:
+    """Each column's parents in a DAG's int adjacency matrix (``dag[i, j]`` = 1 for i -> j)."""
+    return tuple(tuple(int(i) for i in np.flatnonzero(dag[:, j])) for j in range(dag.shape[0]))
 
 
 def with_parent_edges(estimated: np.ndarray, parents, children=None) -> np.ndarray:
@@ -102,11 +107,11 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
             statistic=result.statistic, p_value=float(decision_p), effect=result.effect,
             effect_name="normalised HSIC", n=result.n,
             note=(f"{result.note}; smooth p-value (gamma matched to the bootstrap), counted "
-                  f"p = {result.p_value:.4g}; other parents partialled out: {given}"))
-        identified = check.identified(scope="pair", family=EDGE_FAMILY, variables=variables,
-                                      direction=(response, regressor), test="hsic", variant=STRUCTURAL_EQUATION)
-        identified = replace(identified, identity=replace(identified.identity, null=RESIDUAL_BOOTSTRAP))
-        tagged.append(Tagged(EDGE_FAMILY, role, identified))
+                  f"p = {result.p_value:.4g}; other parents partialled out: {given}"),
+            identity=CheckIdentity("hsic", scope="pair", null=RESIDUAL_BOOTSTRAP))
+        tagged.append(Tagged(EDGE_FAMILY, role, check.identified(
+            scope="pair", family=EDGE_FAMILY, variables=variables, direction=(response, regressor),
+            variant=STRUCTURAL_EQUATION)))
         for test, spread_check in zip(("white",) if len(spread) == 1 else ("breusch-pagan", "white"), spread):
             spread_check = replace(spread_check, note=f"{spread_check.note}; against {regressor} with {given} "
                                                       "partialled out")

@@ -215,14 +215,16 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("skeleton", 0, 1)
     skeleton = _adjacency(X, names, policy, graph)
     progress("skeleton", 1, 1)
-    equations = equation_stage.equation_tests(X, names, structure.parents, policy)
+    # A hypothesised graph states the parents; otherwise the structural view's pruned parents stand in.
+    parents = equation_stage.graph_parents(graph.matrix(names)) if graph is not None else structure.parents
+    equations = equation_stage.equation_tests(X, names, parents, policy)
     if graph is None and equation_stage.CANDIDATE_EDGES_FROM_PARENTS:
         children = (equation_stage.trusted(equations, len(names), policy)
                     if equation_stage.ONLY_TRUSTED_PARENT_EDGES else None)
-        skeleton = replace(skeleton, estimated=equation_stage.with_parent_edges(skeleton.estimated, structure.parents,
+        skeleton = replace(skeleton, estimated=equation_stage.with_parent_edges(skeleton.estimated, parents,
                                                                                 children))
     noise_pairs = tuple(ij for ij in table.pairs if skeleton.estimated[ij])
-    edge_futures = _submit_edge_tasks(pool, structure.parents, noise_pairs, policy)
+    edge_futures = _submit_edge_tasks(pool, parents, noise_pairs, policy)
     # The noise HSICs need nothing the pairs need: with workers they run in
     # the one the whole-table screens left idle while this process shares
     # the association checks.
@@ -238,7 +240,7 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("whole-table screens", 0, 1)
     whole_table = whole.result() if whole is not None else _whole_table_screens(X, policy)
     progress("whole-table screens", 1, 1)
-    edges = _edge_tests(table, structure.parents, noise_pairs, edge_futures, progress)
+    edges = _edge_tests(table, parents, noise_pairs, edge_futures, progress)
     return Computed(structure=structure, skeleton=skeleton, plan=plan, batteries=tuple(batteries),
                     noise_dependence=noise_dependence, whole_table=whole_table, edge_tests=edges,
                     equation_checks=equations)
