@@ -35,12 +35,14 @@ RESIDUAL_BOOTSTRAP = "residual bootstrap"
 """The null of an HSIC inside an equation: simulated by the residual bootstrap (Sen and Sen 2014)."""
 
 CANDIDATE_EDGES_FROM_PARENTS = True
-"""Measurement switch for ``benchmarks/equations_wiring.py`` (not a policy key): add the pruned parent edges to the PC-stable skeleton, which leaves out
-weak edges (a third of the true edges at 2,000 rows in benchmarks/EQUATIONS_WIRING.md)."""
+"""Measurement switch for ``benchmarks/equations_wiring.py`` (not a policy key): add the pruned parent edges
+to the PC-stable skeleton, which leaves out weak edges (a third of the true edges at 2,000 rows in
+benchmarks/EQUATIONS_WIRING.md)."""
 
 ONLY_TRUSTED_PARENT_EDGES = True
-"""Measurement switch for ``benchmarks/equations_wiring.py``: add only the parent edges of equations that hold up (linear and homoscedastic, see
-:func:`trusted`); a departing equation is a sign of a scrambled causal order, whose parent sets are not edges.
+"""Measurement switch for ``benchmarks/equations_wiring.py``: add only the parent edges of equations that
+hold up (linear and homoscedastic, see :func:`trusted`); a departing equation is a sign of a scrambled causal
+order, whose parent sets are not edges.
 With every parent edge, the kiln demo's reversed chain adds gas_flow - wall_temp (oriented) and
 gas_flow - glaze_gloss."""
 
