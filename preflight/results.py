@@ -23,6 +23,8 @@ NOISE_ESTIMATE = "noise estimate"
 """Variant of a check computed on a variable's structural noise estimate."""
 NOISE_ESTIMATES = "noise estimates"
 """Variant of a pair check computed on the two variables' structural noise estimates."""
+GIVEN_A_SPLINE = "given a spline"
+"""Variant of an association check of two variables both regressed on a cubic spline of a common neighbour."""
 
 
 @dataclass(frozen=True)

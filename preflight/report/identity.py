@@ -22,6 +22,7 @@ from collections.abc import Iterator, Sequence
 from typing import Any
 
 from preflight.results import (
+    GIVEN_A_SPLINE,
     NOISE_ESTIMATE,
     NOISE_ESTIMATES,
     SPLINE_RESIDUAL,
@@ -131,6 +132,10 @@ def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
             test = test_id(name[: -len(suffix)])
             return CheckIdentity(test, _IN_EQUATION_FAMILY.get(test), "pair", pair, (first, second),
                                  STRUCTURAL_EQUATION)
+        marker = f" ({first}, {second}) given a spline of "
+        if marker in name:
+            return CheckIdentity(test_id(name[: name.index(marker)]), "separation given a spline", "pair", pair,
+                                 variant=GIVEN_A_SPLINE)
         if name == f"noise dependence (hsic) ({first}, {second})":
             return CheckIdentity("hsic", "noise dependence", "pair", pair, variant=NOISE_ESTIMATES)
         if name == f"pairwise likelihood ratio ({first} -> {second} if > 0)":

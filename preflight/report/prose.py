@@ -18,7 +18,7 @@ from typing import Any
 
 from preflight.report.identity import checks_with_identity, variable_check
 from preflight.report.text import FLAG_MEANING, LEVEL_WORDS, WHAT_STILL_FITS
-from preflight.results import SPLINE_RESIDUAL, STRUCTURAL_EQUATION, CheckIdentity
+from preflight.results import GIVEN_A_SPLINE, SPLINE_RESIDUAL, STRUCTURAL_EQUATION, CheckIdentity
 
 CHECK_HEADER = ("check", "statistic", "p", "adjusted p", "effect", "n", "result", "note")
 """Columns of every table of checks."""
@@ -333,6 +333,11 @@ METHODS: tuple[Method, ...] = (
            "its null simulated by the residual bootstrap with refitted coefficients (Sen and Sen 2014); the same "
            "bootstrap calibrates White's auxiliary R-squared of the residual's spread (White 1980)",
            ("sen2014", "white1980"), _in_equation),
+    Method("spline-separation", "independence", "for an edge with a common neighbour in a relation judged "
+           "nonlinear, Pearson, Spearman and HSIC between the two variables once both are regressed on a cubic "
+           "regression spline of that neighbour (de Boor 1978): a linear partial correlation does not separate "
+           "the ends of a chain through a curve", ("deboor1978",),
+           lambda identity: identity.variant == GIVEN_A_SPLINE),
     Method("distance-correlation", "independence", "distance correlation (Sz\u00e9kely et al. 2007)",
            ("szekely2007",), _tests("distance-correlation")),
     Method("pearson", "independence", "Pearson's correlation with Fisher's z transform, adjusted for the size "
