@@ -189,17 +189,24 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
         elif not dependent["reverse"] and dependent["forward"] and lr < 0:
             lingam = "y->x"
     flags = [f for f in findings.flags if f not in ("nonlinear", "heteroscedastic", "confounding-suspected")]
+    powered = has_precedence(ratio.result.n, policy)
     facts = {"adjacent", "anm-undetermined"} | (
-        {"lingam-oriented", "oriented-in-equations"} if lingam != "undetermined" else {"lingam-undetermined"})
+        {"lingam-oriented"} | ({"oriented-in-equations"} if powered else set()) if lingam != "undetermined"
+        else {"lingam-undetermined"})
     if dependent["forward"] and dependent["reverse"] and not gaussian:
         flags.append("confounding-suspected")
         facts.add("residuals-dependent-both-ways")
-    elif not (dependent["forward"] or dependent["reverse"] or gaussian):
+    elif powered and not (dependent["forward"] or dependent["reverse"] or gaussian):
         facts.add("independent-both-ways")
     judged = tuple(replace(t.result, passed=None if _explained_by(t.role, lingam) else not _counts(t, policy))
                    for t in edge if t.family is not None) + (ratio.result,)
     return replace(findings, lingam_orientation=lingam, anm_orientation="undetermined", flags=tuple(flags),
                    facts=frozenset(facts | set(flags)), checks=findings.checks + judged)
+
+
+def has_precedence(n: int, policy: Policy) -> bool:
+    """Whether an edge judged inside its equations on ``n`` rows outweighs the class and limits only itself."""
+    return n >= policy.equation_precedence_min_rows
 
 
 def _counts(test: Tagged, policy: Policy) -> bool:
