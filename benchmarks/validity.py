@@ -22,6 +22,9 @@ Usage::
 
     python benchmarks/validity.py --quick --results /tmp/validity.md --figures /tmp/figs
     nice -n 10 python benchmarks/validity.py --jobs 1 --seed 20261203
+    # the parts outside the default grid: several parents per child with wide noise, hidden non-adjacent cause
+    python benchmarks/validity.py --skip-calibration --kinds linear-non-gaussian,hidden-cause-non-adjacent \
+        --shapes several-parents,pair,fork --ns 1000:8,2000:8,100000:1 --results /tmp/wide.md
 
 The module is also imported by ``tests/test_validity_subset.py`` so that the
 fast subset and the full study share one implementation.
@@ -63,6 +66,16 @@ TARGET = 0.02
 """The committed ceiling for both headline figures."""
 
 SHAPES = ("chain", "fork", "collider", "random")
+"""Shapes of the default grid."""
+EXTRA_SHAPES = ("pair", "several-parents")
+"""Shapes run on request (``--shapes``): two variables, and random DAGs of 5 to 15 variables with one to four
+parents per child, wide edge weights and each variable's noise family drawn from the wide list."""
+ALL_SHAPES = SHAPES + EXTRA_SHAPES
+"""Seeds derive from a shape's position here, so new shapes go at the end."""
+DEFAULT_KINDS = ("linear-non-gaussian", "gaussian", "mixed", "nonlinear", "heteroscedastic", "hidden-confounder",
+                 "discrete", "autocorrelated", "independent")
+"""Kinds of the default grid; ``hidden-cause-non-adjacent`` runs on request (``--kinds``)."""
+HIDDEN_CAUSE_KINDS = ("hidden-confounder", "hidden-cause-non-adjacent")
 NONGAUSSIAN_FAMILIES = ("uniform", "laplace", "exponential", "student-t5")
 NOISE_FREE_KINDS = ("gaussian", "nonlinear")
 """Kinds whose generator ignores the noise family (both draw Gaussian noise)."""
@@ -106,6 +119,8 @@ class Grid:
     """Nodes of the chain, fork and collider."""
     p_random: tuple[int, ...]
     """Node counts the random DAGs cycle through, replicate by replicate."""
+    p_several: tuple[int, ...] = (5, 10, 15, 7, 12, 6, 9, 13, 8, 11, 14)
+    """Node counts the several-parents DAGs cycle through (5 to 15, spread out so few replicates still span them)."""
     kinds_by_n: dict | None = None
     """n -> the kinds run at that n (default: every kind at every n)."""
 
@@ -115,14 +130,37 @@ class Grid:
         return self.kinds
 
     def describe(self) -> str:
+        from preflight.scenarios import SKEWED_FAMILIES, WIDE_NOISE_FAMILIES, shape_allows
+
         reps = ", ".join(f"n = {n}: {self.replicates[n]}"
                          + ("" if self.kinds_at(n) == self.kinds else f" (only {', '.join(self.kinds_at(n))})")
                          for n in self.ns)
-        return (f"kinds: {', '.join(self.kinds)}; shapes: {', '.join(self.shapes)} "
-                f"(chain/fork/collider with {self.p_fixed} nodes, random DAGs cycling through "
-                f"{', '.join(map(str, self.p_random))} nodes); replicates per kind and shape: {reps}; "
+        sizes = []
+        if any(s in self.shapes for s in ("chain", "fork", "collider")):
+            sizes.append(f"chain/fork/collider with {self.p_fixed} nodes")
+        if "random" in self.shapes:
+            sizes.append(f"random DAGs cycling through {', '.join(map(str, self.p_random))} nodes")
+        if "pair" in self.shapes:
+            sizes.append("pair: two variables")
+        if "several-parents" in self.shapes:
+            sizes.append(f"several-parents DAGs cycling through {', '.join(map(str, self.p_several))} nodes, "
+                         "one to four parents per child, weights of magnitude 0.3 to 1.5 (one in five 0.1 to 0.3) "
+                         "with random sign, each variable's noise family drawn from "
+                         f"{', '.join(WIDE_NOISE_FAMILIES)}")
+        text = (f"kinds: {', '.join(self.kinds)}; shapes: {', '.join(self.shapes)} "
+                f"({', '.join(sizes)}); replicates per kind and shape: {reps}; "
                 f"noise family cycling through {', '.join(NONGAUSSIAN_FAMILIES)} by replicate "
-                f"(Gaussian for the kinds {' and '.join(NOISE_FREE_KINDS)}, whose generator ignores the family)")
+                f"(Gaussian for the kinds {' and '.join(NOISE_FREE_KINDS)}, whose generator ignores the family"
+                + ("; drawn per variable on the several-parents shape" if "several-parents" in self.shapes else "")
+                + ")")
+        if "hidden-cause-non-adjacent" in self.kinds:
+            text += (f"; hidden-cause-non-adjacent: a hidden cause drawn from {', '.join(SKEWED_FAMILIES)} "
+                     "enters two observed variables with no directed path between them (loadings of magnitude "
+                     "0.8 to 1.5, random sign); on the pair shape it is all that links the two")
+        skipped = [f"{k} × {s}" for k in self.kinds for s in self.shapes if not shape_allows(k, s)]
+        if skipped:
+            text += f"; not drawn (the shape has no two variables without a directed path): {', '.join(skipped)}"
+        return text
 
 
 def derived_seed(base: int, *parts: int) -> int:
@@ -132,28 +170,41 @@ def derived_seed(base: int, *parts: int) -> int:
 
 
 def make_specs(grid: Grid, seed: int) -> list[Spec]:
-    from preflight.scenarios import KINDS
+    from preflight.scenarios import KINDS, WIDE_PER_VARIABLE, shape_allows
 
     specs = []
     for kind in grid.kinds:
         for shape in grid.shapes:
+            if not shape_allows(kind, shape):
+                continue
             for n in grid.ns:
                 if kind not in grid.kinds_at(n):
                     continue
                 for r in range(grid.replicates[n]):
-                    noise = ("gaussian" if kind in NOISE_FREE_KINDS
-                             else NONGAUSSIAN_FAMILIES[(r + SHAPES.index(shape)) % len(NONGAUSSIAN_FAMILIES)])
-                    p = grid.p_random[r % len(grid.p_random)] if shape == "random" else grid.p_fixed
-                    s = derived_seed(seed, KINDS.index(kind), SHAPES.index(shape), n, r)
+                    if kind in NOISE_FREE_KINDS:
+                        noise = "gaussian"
+                    elif shape == "several-parents":
+                        noise = WIDE_PER_VARIABLE
+                    else:
+                        noise = NONGAUSSIAN_FAMILIES[(r + ALL_SHAPES.index(shape)) % len(NONGAUSSIAN_FAMILIES)]
+                    if shape == "random":
+                        p = grid.p_random[r % len(grid.p_random)]
+                    elif shape == "several-parents":
+                        p = grid.p_several[r % len(grid.p_several)]
+                    elif shape == "pair":
+                        p = 2
+                    else:
+                        p = grid.p_fixed
+                    s = derived_seed(seed, KINDS.index(kind), ALL_SHAPES.index(shape), n, r)
                     specs.append(Spec(kind=kind, shape=shape, noise=noise, p=p, n=n, replicate=r, seed=s))
     # Cheapest and broadest first: if a time budget stops the run, every kind keeps its small-n replicates.
     order = {k: i for i, k in enumerate(grid.kinds)}
-    specs.sort(key=lambda s: (s.n, s.replicate, order[s.kind], SHAPES.index(s.shape)))
+    specs.sort(key=lambda s: (s.n, s.replicate, order[s.kind], ALL_SHAPES.index(s.shape)))
     return specs
 
 
 def quick_grid() -> Grid:
-    return Grid(kinds=_all_kinds(), shapes=("chain", "collider"), ns=(200, 1000),
+    return Grid(kinds=DEFAULT_KINDS, shapes=("chain", "collider"), ns=(200, 1000),
                 replicates={200: 1, 1000: 1}, p_fixed=4, p_random=(5,))
 
 
@@ -161,7 +212,7 @@ def full_grid(replicates: int) -> Grid:
     """The grid of the committed study: per kind and shape, 3r/2 replicates at n = 200 (cheap), r at
     1000 and 5000, r/4 at 20000 (it costs most)."""
     r = int(replicates)
-    return Grid(kinds=_all_kinds(), shapes=SHAPES, ns=(200, 1000, 5000, 20000),
+    return Grid(kinds=DEFAULT_KINDS, shapes=SHAPES, ns=(200, 1000, 5000, 20000),
                 replicates={200: max(1, 3 * r // 2), 1000: r, 5000: r, 20000: max(1, r // 4)},
                 p_fixed=5, p_random=(5, 6, 7, 8, 9, 10))
 
@@ -317,6 +368,7 @@ def score(scenario, spec: Spec, report: dict) -> dict:
         if is_hidden:
             counts["hidden_pairs"] += 1
             counts["hidden_adjacent"] += int(adjacent)
+            counts["hidden_flagged"] += int("confounding-suspected" in raised)
 
         # ---- pair flags: where each should be raised ("expected") and where it must not ("clean")
         on_true_adjacent = true_edge is not None and adjacent
@@ -335,9 +387,15 @@ def score(scenario, spec: Spec, report: dict) -> dict:
                 role = "clean"
             tally("heteroscedastic", "heteroscedastic" in raised, role)
             tally("no-association", "no-association" in raised, "clean")
+        if on_true_adjacent and "confounding-suspected" in raised:
+            counts["confounding_on_true_edges"] += 1
         if kind == "hidden-confounder":
             if is_hidden:
                 tally("confounding-suspected", "confounding-suspected" in raised, "expected")
+        elif kind == "hidden-cause-non-adjacent":
+            # no directed path joins the hidden pair, so every other adjacent pair is unconfounded
+            tally("confounding-suspected", "confounding-suspected" in raised,
+                  "expected" if is_hidden else ("clean" if adjacent else None))
         elif kind not in ("heteroscedastic", "independent") and adjacent:
             # a heteroscedastic mechanism looks like confounding from one pair (README); not counted
             tally("confounding-suspected", "confounding-suspected" in raised, "clean")
@@ -529,7 +587,9 @@ def headline(records: list[dict]) -> dict:
     lingam = [r for r in records if r["spec"]["kind"] == "linear-non-gaussian" and r["spec"]["n"] >= 1000]
     lingam_ok = [r for r in lingam if "error" not in r]
     wrong, edges = false_orientations(_sum_counts(lingam_ok))
-    non_ident_kinds = tuple(k for k, v in EXPECTED_LEVEL.items() if v != "linear-non-gaussian")
+    present = {r["spec"]["kind"] for r in records}
+    non_ident_kinds = tuple(k for k, v in EXPECTED_LEVEL.items()
+                            if v != "linear-non-gaussian" and (k in DEFAULT_KINDS or k in present))
     named_kinds = ("gaussian", "heteroscedastic", "hidden-confounder", "discrete", "autocorrelated")
     out = {"orientation": {"wrong": wrong, "edges": edges, "replicates": len(lingam_ok),
                            "errors": len(lingam) - len(lingam_ok)}}
@@ -978,7 +1038,7 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
     add("")
     add("| shape | n | replicates | reversed true edges | spurious edges oriented | edges | rate |")
     add("|---|---|---|---|---|---|---|")
-    for (shape, n), rs in sorted(group_by(lingam, "shape", "n").items(), key=lambda kv: (SHAPES.index(kv[0][0]), kv[0][1])):
+    for (shape, n), rs in sorted(group_by(lingam, "shape", "n").items(), key=lambda kv: (ALL_SHAPES.index(kv[0][0]), kv[0][1])):
         c = _sum_counts(rs)
         wrong, edges = false_orientations(c)
         add(f"| {shape} | {n} | {len(rs)} | {c['reversed']} | {c['spurious_oriented']} | {edges} | "
@@ -991,7 +1051,7 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
         add("")
         add("| shape | p | noise | n | seed | level reached | wrong orientations (what, basis) | skeleton misses | rules fired |")
         add("|---|---|---|---|---|---|---|---|---|")
-        for r in sorted(culprits, key=lambda r: (SHAPES.index(r["spec"]["shape"]), r["spec"]["n"], r["spec"]["seed"])):
+        for r in sorted(culprits, key=lambda r: (ALL_SHAPES.index(r["spec"]["shape"]), r["spec"]["n"], r["spec"]["seed"])):
             s_ = r["spec"]
             what = ", ".join(f"{k} × {what} ({basis or 'null'})"
                              for (what, basis), k in sorted(Counter(tuple(w[:2]) for w in r["wrong"]).items()))
@@ -1035,19 +1095,19 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
                 f"{flagged} | {', '.join(r['rules_fired']) or '–'} |")
         add("")
 
-    add("Every false orientation, by kind, what went wrong and the `basis` the report gave for it (all n):")
+    add("Every false orientation, by kind, n, what went wrong and the `basis` the report gave for it:")
     add("")
-    add("| kind | what went wrong | basis | count |")
-    add("|---|---|---|---|")
+    add("| kind | n | what went wrong | basis | count |")
+    add("|---|---|---|---|---|")
     tally = Counter()
     for r in records:
         for entry in r.get("wrong", []):
-            tally[(r["spec"]["kind"], entry[0], entry[1] or "null")] += 1
+            tally[(r["spec"]["kind"], r["spec"]["n"], entry[0], entry[1] or "null")] += 1
     order = {k: i for i, k in enumerate(_all_kinds())}
-    for (kind, what, basis), count in sorted(tally.items(), key=lambda kv: (order[kv[0][0]], -kv[1])):
-        add(f"| {kind} | {what} | {basis} | {count} |")
+    for (kind, n, what, basis), count in sorted(tally.items(), key=lambda kv: (order[kv[0][0]], kv[0][1], -kv[1])):
+        add(f"| {kind} | {n} | {what} | {basis} | {count} |")
     if not tally:
-        add("| – | none | – | 0 |")
+        add("| – | – | none | – | 0 |")
     add("")
 
     # ---- cost
@@ -1083,14 +1143,16 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
             f"{_frac(s['oriented_not_identifiable'])} [{s['reversed_not_identifiable']}] | {_frac(s['false_spurious'])} | "
             f"{_frac(s['missed'])} | {_frac(s['skeleton_recall'])} | {s['seconds']:.1f} s |")
     add("")
-    add("### Conclusions reached, by kind (all n)")
+    add("### Conclusions reached, by kind and n")
     add("")
-    add("| kind | expected | " + " | ".join(LEVELS) + " |")
-    add("|---|---|" + "---|" * len(LEVELS))
-    for kind, rs in sorted(group_by(ok, "kind").items(), key=lambda kv: kind_order[kv[0][0]]):
+    add("| kind | n | expected | " + " | ".join(LEVELS) + " |")
+    add("|---|---|---|" + "---|" * len(LEVELS))
+    for (kind, n), rs in sorted(group_by(ok, "kind", "n").items(), key=lambda kv: (kind_order[kv[0][0]], kv[0][1])):
         levels = Counter(r["level"] for r in rs)
-        add(f"| {kind[0]} | {EXPECTED_LEVEL[kind[0]]} | " + " | ".join(str(levels[lv]) for lv in LEVELS) + " |")
+        add(f"| {kind} | {n} | {EXPECTED_LEVEL[kind]} | " + " | ".join(str(levels[lv]) for lv in LEVELS) + " |")
     add("")
+    add_several_parents_section(add, ok)
+    add_hidden_cause_section(add, ok)
 
     # ---- flags
     add("### Flags: hit rate where the scenario should raise them, false-alarm rate where it should not")
@@ -1101,7 +1163,7 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
         "gaussian-noise": ("adjacent true edges", "gaussian (not counted: mixed, nonlinear)"),
         "nonlinear": ("adjacent true edges", "nonlinear"),
         "heteroscedastic": ("adjacent true edges", "heteroscedastic, the edge from the parent that scales the noise (other edges there not counted)"),
-        "confounding-suspected": ("the hidden pair / adjacent pairs", "hidden-confounder, the confounded pair (other pairs there, and heteroscedastic, not counted)"),
+        "confounding-suspected": ("the hidden pair / adjacent pairs", "hidden-confounder and hidden-cause-non-adjacent, the confounded pair (clean: the other adjacent pairs of hidden-cause-non-adjacent, whose hidden pair no directed path joins; not counted: the other pairs of hidden-confounder, and heteroscedastic)"),
         "no-association": ("every pair / true edges", "independent (clean: true edges of every other kind)"),
         "discrete": ("variables", "discrete"),
         "autocorrelated": ("variables", "autocorrelated"),
@@ -1133,7 +1195,7 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
     add("| kind | shape | n | replicates | correct level | levels reached | false orientation (all edges) | missed | flag hits | flag false alarms |")
     add("|---|---|---|---|---|---|---|---|---|---|")
     for (kind, shape, n), rs in sorted(group_by(records, "kind", "shape", "n").items(),
-                                       key=lambda kv: (kind_order[kv[0][0]], SHAPES.index(kv[0][1]), kv[0][2])):
+                                       key=lambda kv: (kind_order[kv[0][0]], ALL_SHAPES.index(kv[0][1]), kv[0][2])):
         s = summarise(rs)
         levels = ", ".join(f"{lv}: {c}" for lv, c in sorted(s["levels"].items()))
         hits = "; ".join(f"{f} {_flag_cell(v, 'hit')}" for f, v in s["flags"].items() if v[1])
@@ -1216,6 +1278,77 @@ def markdown(records: list[dict], grid_text: str, calibration: list[dict], curve
     return "\n".join(lines).rstrip() + "\n"
 
 
+def add_several_parents_section(add, ok: list[dict]) -> None:
+    """Figures by kind and n for the random DAGs with several parents per child and wide noise."""
+    chosen = [r for r in ok if r["spec"]["shape"] == "several-parents"]
+    if not chosen:
+        return
+    kind_order = {k: i for i, k in enumerate(_all_kinds())}
+    add("### Several parents per child, wide noise families and weights: by kind and n")
+    add("")
+    add("Random DAGs of 5 to 15 variables, one to four parents per child, columns in random order, each "
+        "variable's noise family drawn from the wide list. *False alarms* count a flag raised on an adjacent "
+        "true edge (for `confounding-suspected` on adjacent true edges only, whatever the kind; a heteroscedastic "
+        "or confounded table may raise it legitimately there, so read that column on the clean kinds).")
+    add("")
+    add("| kind | n | replicates | correct level | concluded linear-non-gaussian | false orientation (true edges) | "
+        "identifiable edges reversed | false orientation (spurious edges) | missed orientation | skeleton recall | "
+        "`confounding-suspected` on true edges | `nonlinear` false alarms | `heteroscedastic` false alarms | "
+        "`gaussian-noise` false alarms | mean check time |")
+    add("|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|")
+    for (kind, n), rs in sorted(group_by(chosen, "kind", "n").items(), key=lambda kv: (kind_order[kv[0][0]], kv[0][1])):
+        s = summarise(rs)
+        c = s["counts"]
+        f = s["flags"]
+        add(f"| {kind} | {n} | {_replicates(s)} | {_frac(s['correct_level'])} | {_frac(s['lingam_level'])} | "
+            f"{_frac(s['false_true'])} | {_frac(s['reversed'])} | {_frac(s['false_spurious'])} | {_frac(s['missed'])} | "
+            f"{_frac(s['skeleton_recall'])} | {_frac((c['confounding_on_true_edges'], c['adjacent_true']))} | "
+            f"{_flag_cell(f['nonlinear'], 'alarm')} | {_flag_cell(f['heteroscedastic'], 'alarm')} | "
+            f"{_flag_cell(f['gaussian-noise'], 'alarm')} | {s['seconds']:.1f} s |")
+    add("")
+
+
+def add_hidden_cause_section(add, ok: list[dict]) -> None:
+    """The confounded pair of the hidden-cause kinds: found adjacent, flagged, and the flag elsewhere, by n."""
+    chosen = [r for r in ok if r["spec"]["kind"] in HIDDEN_CAUSE_KINDS]
+    if not chosen:
+        return
+    add("### Hidden common causes: the confounded pair, by kind, shape and n")
+    add("")
+    add("*Hit*: the hidden pair carries `confounding-suspected`. *Elsewhere*: `confounding-suspected` on the "
+        "other adjacent pairs, counted as false alarms for `hidden-cause-non-adjacent` (no directed path joins its "
+        "hidden pair, so no other pair is confounded) and not counted for `hidden-confounder` (its hidden pair may "
+        "be joined by a path). On the pair shape the two variables are linked by the hidden cause alone.")
+    add("")
+    add("| kind | shape | n | replicates | hidden pair adjacent in the report | hit | elsewhere (false alarms) | "
+        "correct level | concluded linear-non-gaussian |")
+    add("|---|---|---|---|---|---|---|---|---|")
+    groups = group_by(chosen, "kind", "shape", "n")
+    for (kind, shape, n), rs in sorted(groups.items(), key=lambda kv: (HIDDEN_CAUSE_KINDS.index(kv[0][0]),
+                                                                        ALL_SHAPES.index(kv[0][1]), kv[0][2])):
+        s = summarise(rs)
+        c = s["counts"]
+        values = s["flags"]["confounding-suspected"]
+        elsewhere = _flag_cell(values, "alarm") if kind == "hidden-cause-non-adjacent" else "not counted"
+        add(f"| {kind} | {shape} | {n} | {_replicates(s)} | {_frac((c['hidden_adjacent'], c['hidden_pairs']))} | "
+            f"{_frac((c['hidden_flagged'], c['hidden_pairs']))} | {elsewhere} | {_frac(s['correct_level'])} | "
+            f"{_frac(s['lingam_level'])} |")
+    add("")
+    add("The same, shapes pooled:")
+    add("")
+    add("| kind | n | replicates | hidden pair adjacent | hit | elsewhere (false alarms) |")
+    add("|---|---|---|---|---|---|")
+    for (kind, n), rs in sorted(group_by(chosen, "kind", "n").items(),
+                                key=lambda kv: (HIDDEN_CAUSE_KINDS.index(kv[0][0]), kv[0][1])):
+        s = summarise(rs)
+        c = s["counts"]
+        values = s["flags"]["confounding-suspected"]
+        elsewhere = _flag_cell(values, "alarm") if kind == "hidden-cause-non-adjacent" else "not counted"
+        add(f"| {kind} | {n} | {_replicates(s)} | {_frac((c['hidden_adjacent'], c['hidden_pairs']))} | "
+            f"{_frac((c['hidden_flagged'], c['hidden_pairs']))} | {elsewhere} |")
+    add("")
+
+
 def replace_section(path: Path, body: str) -> None:
     """Write ``body`` between the validity markers, leaving every other byte of the file alone."""
     text = path.read_text() if path.exists() else ""
@@ -1275,8 +1408,13 @@ def parse_args(argv=None):
                         help="replicates per null (default 500; 100 with --quick)")
     parser.add_argument("--power-replicates", type=int, default=None,
                         help="replicates per power point (default 200; 40 with --quick)")
-    parser.add_argument("--kinds", default=None, help="comma-separated subset of kinds")
-    parser.add_argument("--ns", default=None, help="comma-separated sample sizes (overrides the grid's)")
+    parser.add_argument("--kinds", default=None,
+                        help="comma-separated kinds (default: every kind but hidden-cause-non-adjacent)")
+    parser.add_argument("--shapes", default=None,
+                        help="comma-separated shapes (default chain,fork,collider,random; also pair, several-parents)")
+    parser.add_argument("--ns", default=None,
+                        help="comma-separated sample sizes, each optionally n:replicates (e.g. 1000,20000:4,100000:1); "
+                             "overrides the grid's")
     parser.add_argument("--budget-minutes", type=float, default=None,
                         help="start no new scenario replicate after this many minutes (serial runs); the ones left are listed as not run")
     parser.add_argument("--only-recorded", action="store_true",
@@ -1297,18 +1435,60 @@ def parse_args(argv=None):
     return parser.parse_args(argv)
 
 
+def default_replicates(n: int, replicates: int) -> int:
+    """Replicates at an n the grid does not name: half the base count, fewer for the costly large tables."""
+    if n <= 20000:
+        return max(1, replicates // 2)
+    if n <= 50000:
+        return max(1, replicates // 8)
+    return max(1, replicates // 16)
+
+
+def grid_from_options(grid: Grid, kinds: str | None, shapes: str | None, ns: str | None, replicates: int) -> Grid:
+    """The grid narrowed or widened by --kinds, --shapes and --ns; ValueError names the first bad item."""
+    from preflight.scenarios import KINDS
+
+    if kinds:
+        chosen = tuple(k.strip() for k in kinds.split(",") if k.strip())
+        unknown = [k for k in chosen if k not in KINDS]
+        if unknown or not chosen:
+            raise ValueError(f"unknown kind {unknown[0] if unknown else kinds!r}; known: {', '.join(KINDS)}")
+        grid = replace(grid, kinds=chosen)
+    if shapes:
+        chosen = tuple(s.strip() for s in shapes.split(",") if s.strip())
+        unknown = [s for s in chosen if s not in ALL_SHAPES]
+        if unknown or not chosen:
+            raise ValueError(f"unknown shape {unknown[0] if unknown else shapes!r}; known: {', '.join(ALL_SHAPES)}")
+        grid = replace(grid, shapes=chosen)
+    if ns:
+        sizes, reps = [], {}
+        for item in (v.strip() for v in ns.split(",") if v.strip()):
+            size_text, _, count_text = item.partition(":")
+            try:
+                size = int(size_text.replace("_", ""))
+                count = int(count_text) if count_text else grid.replicates.get(size, default_replicates(size, replicates))
+            except ValueError:
+                raise ValueError(f"--ns item {item!r} is not n or n:replicates") from None
+            if size < 20 or count < 1:
+                raise ValueError(f"--ns item {item!r}: n must be at least 20 and replicates at least 1")
+            sizes.append(size)
+            reps[size] = count
+        if not sizes:
+            raise ValueError("--ns names no sample size")
+        grid = replace(grid, ns=tuple(dict.fromkeys(sizes)), replicates=reps)
+    return grid
+
+
 def main(argv=None) -> int:
     args = parse_args(argv)
     command = "python benchmarks/validity.py " + " ".join(shlex.quote(a) for a in (argv if argv is not None else sys.argv[1:]))
     wall0 = time.perf_counter()
     grid = quick_grid() if args.quick else full_grid(args.replicates)
-    if args.kinds:
-        kinds = tuple(k.strip() for k in args.kinds.split(","))
-        grid = replace(grid, kinds=kinds)
-    if args.ns:
-        ns = tuple(int(v) for v in args.ns.split(","))
-        reps = {n: grid.replicates.get(n, max(1, args.replicates // 2)) for n in ns}
-        grid = replace(grid, ns=ns, replicates=reps)
+    try:
+        grid = grid_from_options(grid, args.kinds, args.shapes, args.ns, args.replicates)
+    except ValueError as error:
+        print(f"validity.py: {error}", file=sys.stderr)
+        return 2
     cal_reps = args.calibration_replicates or (100 if args.quick else 500)
     power_reps = args.power_replicates or (40 if args.quick else 200)
 

@@ -327,6 +327,10 @@ def _read_frame(source, sep: str | None):
         frame = source.copy(deep=False)
         frame.columns = [str(c) for c in frame.columns]
         return frame, label, "<DataFrame>", None
+    if not isinstance(source, (str, os.PathLike)):
+        hint = "; pandas.DataFrame(data) makes one from a dict of columns" if isinstance(source, dict) else ""
+        raise InputError(f"data must be a file path, '-' for standard input, or a pandas DataFrame, "
+                         f"not a {type(source).__name__}{hint}")
     path = str(source)
     label = "standard input" if path == "-" else path
     raw = _read_source_bytes(path)

@@ -15,6 +15,7 @@ from typing import Any, cast
 
 import numpy as np
 
+from preflight import equation_stage
 from preflight._version import __version__
 from preflight.battery import (
     PairBattery,
@@ -24,6 +25,7 @@ from preflight.battery import (
     judge_pair,
     nongaussian_under,
     run_pair_battery,
+    separation_given_spline,
     with_noise_dependence,
 )
 from preflight.evidence import Tagged, adjust_named_groups, significant
@@ -214,7 +216,16 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("skeleton", 0, 1)
     skeleton = _adjacency(X, names, policy, graph)
     progress("skeleton", 1, 1)
+    # A hypothesised graph states the parents; otherwise the structural view's pruned parents stand in.
+    parents = equation_stage.graph_parents(graph.matrix(names)) if graph is not None else structure.parents
+    equations = equation_stage.equation_tests(X, names, parents, policy)
+    if graph is None and equation_stage.CANDIDATE_EDGES_FROM_PARENTS:
+        children = (equation_stage.trusted(equations, len(names), policy)
+                    if equation_stage.ONLY_TRUSTED_PARENT_EDGES else None)
+        skeleton = replace(skeleton, estimated=equation_stage.with_parent_edges(skeleton.estimated, parents,
+                                                                                children))
     noise_pairs = tuple(ij for ij in table.pairs if skeleton.estimated[ij])
+    edge_futures = _submit_edge_tasks(pool, parents, noise_pairs, policy)
     # The noise HSICs need nothing the pairs need: with workers they run in
     # the one the whole-table screens left idle while this process shares
     # the association checks.
@@ -230,8 +241,30 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("whole-table screens", 0, 1)
     whole_table = whole.result() if whole is not None else _whole_table_screens(X, policy)
     progress("whole-table screens", 1, 1)
+    edges = _edge_tests(table, parents, noise_pairs, edge_futures, progress)
     return Computed(structure=structure, skeleton=skeleton, plan=plan, batteries=tuple(batteries),
-                    noise_dependence=noise_dependence, whole_table=whole_table)
+                    noise_dependence=noise_dependence, whole_table=whole_table, edge_tests=edges,
+                    equation_checks=equations)
+
+
+def _submit_edge_tasks(pool, parents, pairs, policy: Policy) -> list | None:
+    """The adjacent pairs' tests inside their equations, queued in the workers to run beside the batteries."""
+    if pool is None or len(pairs) < 2:
+        return None
+    task = functools.partial(_edge_task_in_worker, parents=parents, policy=policy)
+    return [pool.submit(task, ij) for ij in pairs]
+
+
+def _edge_tests(table: Table, parents, pairs, futures: list | None, progress: Progress) -> dict:
+    """Per adjacent pair, its tagged tests inside the equations (:func:`equation_stage.edge_task`), in pair order."""
+    out = {}
+    for done, ij in enumerate(pairs):
+        progress("edges in their equations", done, len(pairs))
+        out[ij] = (futures[done].result() if futures is not None
+                   else equation_stage.edge_task(table.values, table.names, parents, ij, table.policy))
+    if pairs:
+        progress("edges in their equations", len(pairs), len(pairs))
+    return out
 
 
 def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, progress: Progress,
@@ -396,6 +429,10 @@ def _pair_battery_in_worker(task: PairTask, policy: Policy, plot_rows: np.ndarra
     return _pair_battery(_WORKER["X"], _WORKER["names"], task, policy, plot_rows)
 
 
+def _edge_task_in_worker(pair: tuple[int, int], parents, policy: Policy):
+    return equation_stage.edge_task(_WORKER["X"], _WORKER["names"], parents, pair, policy)
+
+
 def _init_worker(X, names, parent_pid: int):
     from preflight.interruption import bind_worker_to_parent
 
@@ -546,8 +583,14 @@ def _adjust(table: Table, screen: Screen, computed: Computed, batteries: Sequenc
     groups[("global", "table")] = (list(screen.global_checks)
                                    + [Tagged(None, "global", c) for c in computed.whole_table.checks]
                                    + list(structure.global_checks if structure is not None else ()))
+    for ij, tests in computed.edge_tests.items():
+        groups[("edge", ij)] = list(tests)
+    for j, tests in computed.equation_checks.items():
+        groups[("equation", j)] = list(tests)
     adjusted = adjust_named_groups(groups, table.policy.correction)
     return Evidence(
+        edge_checks={ij: adjusted[("edge", ij)] for ij in computed.edge_tests},
+        equation_checks={j: adjusted[("equation", j)] for j in computed.equation_checks},
         batteries=tuple(batteries),
         pair_checks={ij: adjusted[("pair", ij)] for ij, _ in zip(table.pairs, batteries)},
         noise_dependence={ij: adjusted[("noise", ij)][0].result for ij in table.pairs
@@ -638,9 +681,11 @@ def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence:
             tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], name, policy))]
         flags = list(screen.variable_flags[name])
         judged = []
-        for t in tagged:
+        for t in tagged + evidence.equation_checks.get(j, []):
             r = t.result
-            if t.family == "noise normality":
+            if t.family in equation_stage.EQUATION_FAMILIES:
+                r = replace(r, passed=not any(equation_stage.departs([t], policy)))
+            elif t.family == "noise normality":
                 r = replace(r, passed=None if r.p_value is None else significant(r, policy.alpha))
             elif t.family == "autocorrelation":
                 r = replace(r, passed="autocorrelated" not in flags)
@@ -665,6 +710,15 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
     judged = [judge_pair(replace(battery, adjacent=False), evidence.pair_checks[ij], policy)
               if ij in skeleton.dropped else f
               for ij, battery, f in zip(table.pairs, evidence.batteries, evidence.judged)]
+    if computed.structure is not None:
+        judged = [equation_stage.judge_in_equations(f, ij, evidence.edge_checks.get(ij), evidence.equation_checks,
+                                                    policy)
+                  if ij not in skeleton.dropped else f for ij, f in zip(table.pairs, judged)]
+    separation = _separated_given_splines(table, skeleton, judged, evidence)
+    if separation:
+        skeleton = skeleton.without(ij for ij, checks in separation.items() if any(c.passed is False for c in checks))
+        judged = [_tested_for_separation(f, battery, separation.get(ij, ()), evidence.pair_checks[ij], policy)
+                  for ij, f, battery in zip(table.pairs, judged, evidence.batteries)]
     misspecified = {name for f in judged if f.adjacent and "nonlinear" in f.flags for name in (f.x, f.y)}
     final = []
     for ij, f in zip(table.pairs, judged):
@@ -678,6 +732,62 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
         else:
             final.append(with_noise_dependence(f, noise, policy))
     return Findings(pairs=tuple(final), skeleton=skeleton)
+
+
+def _separated_given_splines(table: Table, skeleton: Skeleton, judged: Sequence[PairFindings],
+                             evidence: Evidence) -> dict[Pair, tuple[CheckResult, ...]]:
+    """The separation checks of each adjacent pair with a common neighbour in a relation judged nonlinear.
+
+    The skeleton's Fisher-z tests condition linearly, so a chain through a
+    saturating curve (a -> k -> b with k -> b bent) keeps a - b partially
+    correlated and the skeleton keeps a spurious edge, which the noise-based
+    tests may then orient.  Each such pair is tested again with both ends
+    regressed on a spline of the neighbour (:func:`separation_given_spline`);
+    the tests are adjusted together as one family.  The returned checks of a
+    pair that the spline separates (no test significant for one neighbour)
+    are marked ``passed=False``; the pipeline drops that edge.
+    """
+    policy, names, X = table.policy, table.names, table.values
+    bent = sorted({v for ij, f in zip(table.pairs, judged) if f.adjacent and "nonlinear" in f.flags for v in ij})
+    if not bent:
+        return {}
+    position = {name: k for k, name in enumerate(names)}
+
+    def linked(a: int, b: int) -> bool:
+        return skeleton.adjacent((min(a, b), max(a, b)))
+
+    groups: dict[tuple[Pair, int], list[Tagged]] = {}
+    for ij, battery in zip(table.pairs, evidence.batteries):
+        i, j = ij
+        if not skeleton.adjacent(ij):
+            continue
+        for k in bent:
+            if k in ij or not (linked(i, k) and linked(j, k)):
+                continue
+            kept = [position[c] for c in battery.conditioning if position[c] != k]
+            seed = derived_seed(policy.seed, "separation given a spline", names[i], names[j], names[k])
+            groups[(ij, k)] = separation_given_spline(X[:, i], X[:, j], names[i], names[j], X[:, k], names[k],
+                                                      X[:, kept] if kept else None, policy, seed)
+    if not groups:
+        return {}
+    adjusted = adjust_named_groups(groups, policy.correction)
+    separating = {ij for (ij, _), tests in adjusted.items()
+                  if not any(significant(t.result, policy.alpha) for t in tests)}
+    out: dict[Pair, tuple[CheckResult, ...]] = {}
+    for (ij, _), tests in adjusted.items():
+        out[ij] = out.get(ij, ()) + tuple(replace(t.result, passed=False if ij in separating else None)
+                                          for t in tests)
+    return out
+
+
+def _tested_for_separation(findings: PairFindings, battery: PairBattery, checks: tuple[CheckResult, ...],
+                           battery_checks: list[Tagged], policy: Policy) -> PairFindings:
+    """A pair's findings with its separation checks; a pair a spline separated becomes non-adjacent."""
+    if not any(check.passed is False for check in checks):
+        return replace(findings, checks=findings.checks + checks)
+    apart = judge_pair(replace(battery, adjacent=False), battery_checks, policy)
+    return replace(apart, flags=("no-association",), facts=frozenset({"not-adjacent", "no-association"}),
+                   checks=apart.checks + checks)
 
 
 # ---------------------------------------------------------------- rules, verdicts, gate

@@ -109,6 +109,8 @@ BOUNDS: dict[str, Bounds] = {
     "spline_max_df": Bounds(4, 30, low_why="a cubic spline needs 4", high_why=_WORK),
     "heteroscedastic_min_r2": _SHARE,
     "confounding_spread_min_r2": _SHARE,
+    "dependence_min_hsic": _SHARE,
+    "equation_precedence_min_rows": Bounds(1),
     "hsic_exact_max_n": Bounds(1, 5000, high_why=_WORK),
     "hsic_max_n": Bounds(6, 100_000, low_why="HSIC needs at least 6 rows", high_why=_WORK),
     "hsic_features": Bounds(1, 256, high_why=_WORK),
@@ -236,6 +238,32 @@ class Policy:
     direction reached 0.0044.  The margin is narrow at 2,000 rows; it widens
     with n, since a real spread change keeps its R-squared while a chance
     one shrinks like 1/n."""
+
+    dependence_min_hsic: float = 0.002
+    """Normalised HSIC at or above which a significant dependence of an equation's residual counts.
+
+    Normalised HSIC (Gaussian kernels, median bandwidths) is free of n and
+    grows roughly like the squared correlation: Gaussian pairs at 4,000 rows
+    give about 0.0005 at r = 0, 0.002 at r = 0.05 and 0.005 at r = 0.1.  So
+    0.002 asks for dependence at least as strong as a correlation of about
+    0.05; below a few thousand rows the test's own noise is larger than
+    that and the floor changes nothing, above it a chance-sized rejection
+    can no longer remove an orientation or raise ``confounding-suspected``.
+    A hidden common cause of two variables at 2,000 rows gave 0.002 to 0.008
+    in the less dependent direction, and the spread tests
+    (``confounding_spread_min_r2``) count as dependence as well."""
+
+    equation_precedence_min_rows: int = 1000
+    """From this many rows an edge judged inside structural equations that hold up takes precedence: its
+    orientation is kept against a direction compelled by the class (a caution instead of a contested edge),
+    and an edge independent both ways limits only itself (``direction-too-faint``).
+
+    Below it, the residual bootstrap has too little power for either to be
+    read as evidence, and a conflict with the class is more often a hidden
+    common cause: on the validity study's 200-row hidden-confounder tables,
+    8 of 96 reached ``linear-non-gaussian`` through these two rules without
+    the threshold; on its several-parents tables at 1,000 and 2,000 rows
+    they lifted the correct rung from 0 of 16 to 12 of 16."""
 
     # --- independence
     hsic_exact_max_n: int = 2000

@@ -15,12 +15,16 @@ from dataclasses import dataclass, field, replace
 
 SCOPES = ("variable", "pair", "global")
 
+STRUCTURAL_EQUATION = "structural equation"
+"""Variant of a check computed on a structural equation (a variable on all its parents at once)."""
 SPLINE_RESIDUAL = "spline residual"
 """Variant of a check computed on the residual of the regression spline rather than of the straight line."""
 NOISE_ESTIMATE = "noise estimate"
 """Variant of a check computed on a variable's structural noise estimate."""
 NOISE_ESTIMATES = "noise estimates"
 """Variant of a pair check computed on the two variables' structural noise estimates."""
+GIVEN_A_SPLINE = "given a spline"
+"""Variant of an association check of two variables both regressed on a cubic spline of a common neighbour."""
 
 
 @dataclass(frozen=True)

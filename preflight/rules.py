@@ -21,7 +21,8 @@ KINDS = ("limit", "caution")
 
 PAIR_FINDINGS = ("adjacent", "not-adjacent", "lingam-oriented", "lingam-undetermined", "anm-oriented",
                  "anm-undetermined", "orientation-conflict", "residuals-dependent-both-ways",
-                 "noise-estimates-dependent")
+                 "noise-estimates-dependent", "no-independent-noise-model", "independent-both-ways",
+                 "oriented-in-equations")
 """Facts about a pair besides its flags (``battery.judge_pair``; ``orientation-conflict`` from the pipeline)."""
 GLOBAL_FINDINGS = ("any-nonlinear",)
 """Facts about the table besides its flags: ``any-nonlinear`` when some adjacent pair is ``nonlinear``."""
@@ -208,7 +209,10 @@ def rules_table_text() -> str:
     """The table as plain text for ``preflight rules``."""
     lines = []
     for rule in load_rules():
-        out = ", ".join(rule.rules_out) if rule.rules_out else "nothing (caution)"
+        if rule.rules_out:
+            out = ", ".join(rule.rules_out)
+        else:
+            out = "nothing for the table" if rule.edge_rules_out else "nothing (caution)"
         reach = "" if rule.scope == "pair" else f"; edges affected: {rule.edges}"
         lines.append(f"{rule.id}  [{rule.scope}{reach}]")
         lines.append(f"  when:      {' and '.join(rule.when)}")

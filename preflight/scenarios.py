@@ -13,7 +13,25 @@ from dataclasses import dataclass
 import numpy as np
 
 NOISE_FAMILIES = ("uniform", "laplace", "exponential", "student-t5", "gaussian")
-SHAPES = ("pair", "chain", "fork", "collider", "random")
+WIDE_NOISE_FAMILIES = (
+    "signed-lognormal",
+    "gamma-2",
+    "bimodal-mixture",
+    "arcsine",
+    "chi-square-1",
+    "gumbel",
+    "skewed-t5",
+)
+"""Non-Gaussian families the package's own tests do not draw from, so the validity study does not
+only confirm the generator the code was tuned on (each centred and scaled to unit variance):
+random sign times log-normal(0, 0.75); gamma with shape 2; an equal mixture of N(-1, 0.5^2) and
+N(1, 0.5^2); beta(0.5, 0.5) (the arcsine law); chi-square with 1 df; Gumbel; noncentral Student-t
+with 5 df and noncentrality 1 (right-skewed, heavy-tailed)."""
+WIDE_PER_VARIABLE = "wide-per-variable"
+"""Noise name meaning: draw each variable's family on its own from WIDE_NOISE_FAMILIES."""
+SKEWED_FAMILIES = ("exponential", "gamma-2", "chi-square-1", "gumbel", "skewed-t5")
+"""Families the hidden cause of ``hidden-cause-non-adjacent`` draws from (one per replicate)."""
+SHAPES = ("pair", "chain", "fork", "collider", "random", "several-parents")
 KINDS = (
     "linear-non-gaussian",
     "gaussian",
@@ -24,6 +42,7 @@ KINDS = (
     "discrete",
     "autocorrelated",
     "independent",
+    "hidden-cause-non-adjacent",
 )
 
 EXPECTED_LEVEL = {
@@ -36,8 +55,12 @@ EXPECTED_LEVEL = {
     "discrete": "equivalence-class",
     "autocorrelated": "equivalence-class",
     "independent": "linear-non-gaussian",
+    "hidden-cause-non-adjacent": "latent-equivalence-class",
 }
 """The rung a careful analyst should reach; `independent` has no edges to orient."""
+
+PATH_FREE_KINDS = ("hidden-cause-non-adjacent",)
+"""Kinds that need two variables with no directed path between them (a chain has none)."""
 
 
 @dataclass(frozen=True)
@@ -55,6 +78,10 @@ class Scenario:
     expected_level: str
     hidden: tuple[tuple[int, int], ...] = ()
     """Pairs of observed columns that share a hidden common cause."""
+    families: tuple[str, ...] = ()
+    """Noise family of each observed column (column order)."""
+    latent_noise: str | None = None
+    """Noise family of the hidden common cause, when there is one."""
 
     def true_edges(self) -> list[tuple[str, str]]:
         return [(self.names[i], self.names[j]) for i, j in zip(*np.nonzero(self.dag))]
@@ -72,6 +99,26 @@ def _noise(rng: np.random.Generator, family: str, n: int) -> np.ndarray:
         return rng.standard_t(5, n) / np.sqrt(5 / 3)
     if family == "gaussian":
         return rng.normal(size=n)
+    # The wider families; moments are exact (stated beside each), not estimated from the draw.
+    if family == "signed-lognormal":
+        sigma = 0.75  # E[X^2] = exp(2 sigma^2); kurtosis exp(4 sigma^2), about 9.5
+        return rng.choice([-1.0, 1.0], size=n) * rng.lognormal(0.0, sigma, n) / np.exp(sigma ** 2)
+    if family == "gamma-2":
+        return (rng.gamma(2.0, 1.0, n) - 2.0) / np.sqrt(2.0)
+    if family == "bimodal-mixture":
+        # modes at -1 and 1, each with spread 0.5: variance 1 + 0.25
+        return (rng.choice([-1.0, 1.0], size=n) + 0.5 * rng.normal(size=n)) / np.sqrt(1.25)
+    if family == "arcsine":
+        return (rng.beta(0.5, 0.5, n) - 0.5) / np.sqrt(0.125)  # beta(a, b) variance ab / ((a+b)^2 (a+b+1))
+    if family == "chi-square-1":
+        return (rng.chisquare(1.0, n) - 1.0) / np.sqrt(2.0)
+    if family == "gumbel":
+        return (rng.gumbel(0.0, 1.0, n) - np.euler_gamma) / (np.pi / np.sqrt(6.0))
+    if family == "skewed-t5":
+        from scipy import stats
+
+        law = stats.nct(5, 1.0)
+        return (law.rvs(size=n, random_state=rng) - law.mean()) / law.std()
     raise ValueError(f"unknown noise family {family!r}")
 
 
@@ -93,9 +140,48 @@ def dag_of_shape(shape: str, p: int, rng: np.random.Generator, density: float = 
             if not upper[:j, j].any():
                 upper[rng.integers(0, j), j] = True
         dag = upper.astype(np.int8)
+    elif shape == "several-parents":
+        # one exogenous variable (two from 8 variables on), then one to four parents per child, most with two
+        # or more: what process tables look like, and where a pair's marginal regression leaves parents out
+        roots = 1 if p < 8 else 2
+        for j in range(roots, p):
+            count = min(j, int(rng.choice([1, 2, 3, 4], p=[0.15, 0.35, 0.3, 0.2])))
+            dag[rng.choice(j, size=count, replace=False), j] = 1
     else:
         raise ValueError(f"unknown shape {shape!r}")
     return dag
+
+
+def _wide_weights(rng: np.random.Generator, p: int) -> np.ndarray:
+    """Edge weights on standardised parents: magnitude in [0.3, 1.5], one in five weak (in [0.1, 0.3]),
+    random sign."""
+    weak = rng.uniform(size=(p, p)) < 0.2
+    magnitude = np.where(weak, rng.uniform(0.1, 0.3, size=(p, p)), rng.uniform(0.3, 1.5, size=(p, p)))
+    return magnitude * rng.choice([-1.0, 1.0], size=(p, p))
+
+
+def reachable(dag: np.ndarray) -> np.ndarray:
+    """reachable[i, j] = True when a directed path of one or more edges leads from i to j."""
+    step = np.asarray(dag, dtype=bool)
+    closure = step.copy()
+    for _ in range(step.shape[0]):
+        grown = closure | ((closure.astype(np.int64) @ step.astype(np.int64)) > 0)
+        if np.array_equal(grown, closure):
+            break
+        closure = grown
+    return closure
+
+
+def path_free_pairs(dag: np.ndarray) -> list[tuple[int, int]]:
+    """Pairs (i < j) with no directed path between them either way (so not adjacent either)."""
+    linked = reachable(dag)
+    p = linked.shape[0]
+    return [(i, j) for i in range(p) for j in range(i + 1, p) if not linked[i, j] and not linked[j, i]]
+
+
+def shape_allows(kind: str, shape: str) -> bool:
+    """False when the kind cannot be drawn on the shape (a chain has no two variables without a path)."""
+    return not (kind in PATH_FREE_KINDS and shape == "chain")
 
 
 def _compelled(dag: np.ndarray) -> np.ndarray:
@@ -115,27 +201,52 @@ def simulate(kind: str, shape: str = "chain", p: int = 4, n: int = 2000, noise: 
     """
     if kind not in KINDS:
         raise ValueError(f"unknown kind {kind!r}")
+    if not shape_allows(kind, shape):
+        raise ValueError(f"kind {kind!r} needs two variables without a directed path; shape {shape!r} has none")
     rng = np.random.default_rng(seed)
     p = 2 if shape == "pair" else p
     dag = dag_of_shape(shape, p, rng, density=density)
-    if kind == "independent":
-        dag = np.zeros_like(dag)
-    weights = rng.uniform(0.5, 1.0, size=(p, p)) * rng.choice([-1.0, 1.0], size=(p, p)) * dag
+    if kind == "hidden-cause-non-adjacent" and shape != "pair":
+        for _ in range(200):  # a random DAG may order every pair; draw again (new kind: old seeds unaffected)
+            if path_free_pairs(dag):
+                break
+            dag = dag_of_shape(shape, p, rng, density=density)
+        else:
+            raise ValueError(f"no DAG of shape {shape!r} with {p} variables has two variables without a directed path")
+    if kind == "independent" or (kind == "hidden-cause-non-adjacent" and shape == "pair"):
+        dag = np.zeros_like(dag)  # the pair: two variables driven by the hidden cause alone
+    if shape == "several-parents":
+        weights = _wide_weights(rng, p) * dag
+    else:
+        weights = rng.uniform(0.5, 1.0, size=(p, p)) * rng.choice([-1.0, 1.0], size=(p, p)) * dag
     families = [noise] * p
+    if noise == WIDE_PER_VARIABLE:
+        families = [str(f) for f in rng.choice(WIDE_NOISE_FAMILIES, size=p)]
     if kind == "gaussian":
         families = ["gaussian"] * p
     elif kind == "mixed":
-        families = ["gaussian", "gaussian"] + [noise] * (p - 2)
-    elif kind in ("nonlinear", "heteroscedastic"):
-        families = ["gaussian" if kind == "nonlinear" else noise] * p
+        families = ["gaussian", "gaussian"] + families[2:]
+    elif kind == "nonlinear":
+        families = ["gaussian"] * p
     hidden: list[tuple[int, int]] = []
     latent = None
+    latent_family = None
+    loadings: dict[int, float] = {}
     if kind == "hidden-confounder":
         latent = _noise(rng, noise, n)
+        latent_family = noise
         # the confounded pair: the two earliest variables that are not already adjacent
         pairs = [(i, j) for i in range(p) for j in range(i + 1, p) if not dag[i, j]]
         i, j = pairs[0] if pairs else (0, 1)
         hidden.append((i, j))
+        loadings = {i: 1.2, j: 1.2}
+    elif kind == "hidden-cause-non-adjacent":
+        latent_family = SKEWED_FAMILIES[int(rng.integers(len(SKEWED_FAMILIES)))]
+        latent = _noise(rng, latent_family, n)
+        pairs = path_free_pairs(dag)
+        i, j = pairs[int(rng.integers(len(pairs)))]
+        hidden.append((i, j))
+        loadings = {k: float(rng.uniform(0.8, 1.5) * rng.choice([-1.0, 1.0])) for k in (i, j)}
     X = np.zeros((n, p))
     for j in range(p):
         e = _noise(rng, families[j], n)
@@ -157,8 +268,8 @@ def simulate(kind: str, shape: str = "chain", p: int = 4, n: int = 2000, noise: 
             e = e * spread
         scale = 0.6 if kind == "nonlinear" else 1.0
         X[:, j] = total + scale * e
-        if latent is not None and any(j in h for h in hidden):
-            X[:, j] += 1.2 * latent
+        if latent is not None and j in loadings:
+            X[:, j] += loadings[j] * latent
     if kind == "discrete":
         X = np.round(X / X.std(axis=0) * 1.2)
     scales = rng.uniform(0.5, 20.0, size=p)
@@ -182,7 +293,8 @@ def simulate(kind: str, shape: str = "chain", p: int = 4, n: int = 2000, noise: 
     names = tuple(f"v{k}" for k in range(p))
     return Scenario(kind=kind, shape=shape, noise=noise if kind != "gaussian" else "gaussian", n=n, data=X,
                     names=names, dag=dag_perm, identifiable=identifiable,
-                    expected_level=EXPECTED_LEVEL[kind], hidden=hidden_perm)
+                    expected_level=EXPECTED_LEVEL[kind], hidden=hidden_perm,
+                    families=tuple(families[k] for k in perm), latent_noise=latent_family)
 
 
 def to_frame(scenario: Scenario):

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import functools
 import itertools
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -172,6 +172,12 @@ class Computed:
     noise_dependence: dict[Pair, Tagged]
     """HSIC between the noise estimates of each adjacent pair."""
     whole_table: WholeTable
+    edge_tests: dict[Pair, tuple[Tagged, ...]] = field(default_factory=dict)
+    """Per adjacent pair, the edge judged inside its structural equations (:func:`preflight.equations.judge_edge`):
+    the forward and the reverse residual independence (family ``equation residual independence``) and the
+    likelihood ratio on the partial residuals."""
+    equation_checks: dict[int, tuple[Tagged, ...]] = field(default_factory=dict)
+    """Per variable with parents, the checks of its structural equation on all its parents at once."""
 
 
 @dataclass(frozen=True)
@@ -190,6 +196,10 @@ class Evidence:
     variable_checks: dict[str, list[Tagged]]
     global_checks: tuple[Tagged, ...]
     judged: tuple[PairFindings, ...] = ()
+    edge_checks: dict[Pair, list[Tagged]] = field(default_factory=dict)
+    """Per adjacent pair, ``Computed.edge_tests`` adjusted."""
+    equation_checks: dict[int, list[Tagged]] = field(default_factory=dict)
+    """Per variable with parents, ``Computed.equation_checks`` adjusted."""
 
 
 @dataclass(frozen=True)

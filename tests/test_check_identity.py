@@ -189,6 +189,8 @@ def test_renaming_every_check_changes_no_decision(monkeypatch, report):
     for before, after in zip(report.pairs, scrambled.pairs):
         for regressor, response in ((before["x"], before["y"]), (before["y"], before["x"])):
             found, again = direction_hsic(before, regressor, response), direction_hsic(after, regressor, response)
-            assert (found is None) == (again is None) == (not before["adjacent"])
+            # An edge dropped after its battery ran (no association, or separated given a spline) keeps its checks.
+            assert (found is None) == (again is None)
+            assert found is not None or not before["adjacent"]
             if found is not None:
                 assert found["p_adjusted"] == again["p_adjusted"]

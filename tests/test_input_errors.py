@@ -5,6 +5,8 @@ import hashlib
 import numpy as np
 import pytest
 
+import preflight
+
 from conftest import run_cli
 
 
@@ -98,3 +100,13 @@ def test_unknown_policy_key_in_file(tmp_path, linear_uniform_csv):
 def test_unwritable_report_folder(tmp_path, linear_uniform_csv):
     code, out, err = run_cli("check", linear_uniform_csv, "--json", str(tmp_path / "no" / "such" / "r.json"))
     _one_line_error(code, out, err, "does not exist")
+
+
+@pytest.mark.parametrize("data", [{"a": [1.0, 2.0], "b": [3.0, 4.0]}, [[1.0, 2.0]], 3.5, None])
+def test_data_that_is_neither_a_path_nor_a_dataframe_is_refused_in_one_sentence(data):
+    from preflight.errors import InputError
+
+    with pytest.raises(InputError, match="file path, '-' for standard input, or a pandas DataFrame") as caught:
+        preflight.check(data)
+    assert "\n" not in str(caught.value)
+    assert ("pandas.DataFrame(data)" in str(caught.value)) == isinstance(data, dict)

@@ -90,6 +90,22 @@ def _policy(key, value) -> Policy:
     return dataclasses.replace(DEFAULT, **({} if key is None else {key: value}))
 
 
+def _edge_dependence_counts(key, value):
+    """Whether a clear (p = 1e-6) residual dependence of normalised HSIC 0.01 inside an equation counts."""
+    from preflight import equation_stage
+    from preflight.evidence import Tagged
+    from preflight.results import CheckResult
+
+    check = CheckResult(name="hsic", statistic=1.0, p_value=1e-6, effect=0.01, n=1000)
+    return equation_stage._counts(Tagged(equation_stage.EDGE_FAMILY, "forward", check), _policy(key, value))
+
+
+def _equations_take_precedence_at_2000_rows(key, value):
+    from preflight import equation_stage
+
+    return equation_stage.has_precedence(2000, _policy(key, value))
+
+
 # --------------------------------------------------------------------------- screens built for one key
 
 
@@ -211,6 +227,8 @@ PROBES = {
                                                     if "spline" in c["name"]])),
     "heteroscedastic_min_r2": (0.9, _full("spreading", lambda r: r.data["pairs"][0]["flags"])),
     "confounding_spread_min_r2": (0.05, _full("hidden cause", lambda r: r.data["pairs"][0]["flags"])),
+    "dependence_min_hsic": (0.9, _edge_dependence_counts),
+    "equation_precedence_min_rows": (5000, _equations_take_precedence_at_2000_rows),
     "hsic_exact_max_n": (100, _ica(UNIFORM_SOURCES, _dependence_p)),
     "hsic_max_n": (300, _ica(UNIFORM_SOURCES, _dependence_p)),
     "hsic_features": (8, _ica(LARGE, _dependence_p)),

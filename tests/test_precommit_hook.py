@@ -49,8 +49,8 @@ def test_hook_definition_selects_data_files():
 
 def test_hook_exits_with_the_worst_code_and_passes_options_on(tmp_path):
     rng = np.random.default_rng(3)
-    x = rng.uniform(-1, 1, 400)
-    good = write_csv(tmp_path / "uniform.csv", {"x": x, "y": 0.8 * x + 0.6 * rng.uniform(-1, 1, 400)})
+    x = rng.uniform(-1, 1, 1000)  # see conftest.linear_uniform_csv for why not fewer rows
+    good = write_csv(tmp_path / "uniform.csv", {"x": x, "y": 0.8 * x + 0.6 * rng.uniform(-1, 1, 1000)})
     g = rng.normal(size=400)
     gaussian = write_csv(tmp_path / "gaussian.csv", {"x": g, "y": 0.7 * g + 0.7 * rng.normal(size=400)})
 

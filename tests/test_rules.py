@@ -60,3 +60,27 @@ def test_every_flag_is_a_fact_of_its_scope():
 
     for scope, flags in (("global", GLOBAL_FLAGS), ("variable", VARIABLE_FLAGS), ("pair", PAIR_FLAGS)):
         assert set(flags) <= set(FACTS[scope])
+
+
+def test_an_orientation_made_inside_the_equations_outweighs_the_class_and_is_shown_as_a_caution():
+    oriented = frozenset({"adjacent", "lingam-oriented", "anm-undetermined"})
+    inside = {("a", "b"): oriented | {"orientation-conflict", "oriented-in-equations"}, ("a", "c"): oriented}
+    outcome = evaluate(frozenset(), {}, inside, {})
+    assert outcome.level == "linear-non-gaussian"
+    assert [f.rule.id for f in outcome.fired] == ["class-disagrees-with-equations"]
+    assert outcome.edge_ruled_out[("a", "b")] == frozenset()
+    from_battery = {("a", "b"): oriented | {"orientation-conflict"}, ("a", "c"): oriented}
+    outcome = evaluate(frozenset(), {}, from_battery, {})
+    assert outcome.level == "equivalence-class"
+    assert "equivalence-class" in outcome.edge_ruled_out[("a", "b")]
+
+
+def test_an_edge_too_faint_to_read_limits_itself_and_not_the_table():
+    oriented = frozenset({"adjacent", "lingam-oriented", "anm-undetermined"})
+    faint = frozenset({"adjacent", "lingam-undetermined", "anm-undetermined", "independent-both-ways"})
+    outcome = evaluate(frozenset(), {}, {("a", "b"): faint, ("a", "c"): oriented}, {})
+    assert outcome.level == "linear-non-gaussian"
+    assert outcome.edge_ruled_out[("a", "b")] == {"linear-non-gaussian", "additive-noise"}
+    assert outcome.edge_ruled_out[("a", "c")] == frozenset()
+    unresolved = faint - {"independent-both-ways"}
+    assert evaluate(frozenset(), {}, {("a", "b"): unresolved, ("a", "c"): oriented}, {}).level == "additive-noise"

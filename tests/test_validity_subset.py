@@ -159,3 +159,97 @@ def test_target_check_rejects_rates_well_above_two_percent():
     assert not validity.consistent_with_target(40, 1000)
     assert validity.consistent_with_target(20, 1000)
     assert np.isclose(validity.TARGET, 0.02)
+
+
+def test_grid_options_take_the_new_shapes_and_kinds_and_large_tables():
+    from preflight.scenarios import WIDE_PER_VARIABLE
+
+    grid = validity.grid_from_options(validity.full_grid(16), "linear-non-gaussian,hidden-cause-non-adjacent",
+                                      "chain,pair,several-parents", "1000,2000:3,100000", 16)
+    assert grid.ns == (1000, 2000, 100000)
+    assert grid.replicates == {1000: 16, 2000: 3, 100000: 1}
+    specs = validity.make_specs(grid, SEED)
+    combos = {(s.kind, s.shape) for s in specs}
+    # a chain has no two variables without a directed path: that combination is not drawn
+    assert ("hidden-cause-non-adjacent", "chain") not in combos
+    assert ("hidden-cause-non-adjacent", "pair") in combos and ("linear-non-gaussian", "chain") in combos
+    several = [s for s in specs if s.shape == "several-parents"]
+    assert {s.noise for s in several} == {WIDE_PER_VARIABLE}
+    assert {s.p for s in several} == set(range(5, 16))  # 16 replicates at n = 1000 span 5 to 15 variables
+    assert {s.p for s in specs if s.shape == "pair"} == {2}
+    # the default grid keeps its kinds and shapes, so its seeds and figures are unchanged
+    assert "hidden-cause-non-adjacent" not in validity.full_grid(16).kinds
+    assert validity.full_grid(16).shapes == ("chain", "fork", "collider", "random")
+    for kinds, shapes, ns in (("no-such-kind", None, None), (None, "ring", None), (None, None, "1000:x"),
+                              (None, None, "10"), (None, None, "1000:0")):
+        with pytest.raises(ValueError):
+            validity.grid_from_options(validity.full_grid(16), kinds, shapes, ns, 16)
+
+
+def test_bad_option_exits_2_with_one_line(capsys):
+    assert validity.main(["--kinds", "no-such-kind", "--skip-calibration", "--no-write"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "no-such-kind" in err[0]
+
+
+def _hidden_cause_record():
+    from dataclasses import asdict
+
+    from preflight.scenarios import simulate
+
+    spec = validity.Spec("hidden-cause-non-adjacent", "fork", "uniform", 4, 60, 0, 3)
+    scenario = simulate(spec.kind, spec.shape, spec.p, spec.n, spec.noise, spec.seed)
+    names = scenario.names
+    edges = {frozenset(scenario.names.index(v) for v in e) for e in scenario.true_edges()}
+    hidden = frozenset(scenario.hidden[0])
+    first_edge = sorted(tuple(sorted(e)) for e in edges)[0]
+    pairs = []
+    for i, j in combinations(range(4), 2):
+        key = frozenset((i, j))
+        flags = ["confounding-suspected"] if key == hidden or (i, j) == first_edge else []
+        pairs.append({"x": names[i], "y": names[j], "adjacent": key in edges or key == hidden,
+                      "orientation": "undetermined", "flags": flags})
+    report = {"conclusion": {"level": "latent-equivalence-class", "rules_fired": []}, "pairs": pairs,
+              "variables": [{"name": v, "flags": []} for v in names], "global": {"flags": []}}
+    return spec, {"spec": asdict(spec), "check_seconds": 0.1, **validity.score(scenario, spec, report)}, len(edges)
+
+
+def test_hidden_cause_of_non_adjacent_pair_is_scored_as_hit_there_and_false_alarm_elsewhere():
+    _, record, true_edges = _hidden_cause_record()
+    assert true_edges == 3  # a fork of four variables
+    hits, expected, alarms, clean = record["flags"]["confounding-suspected"]
+    assert (hits, expected) == (1, 1)
+    assert (alarms, clean) == (1, true_edges)  # the other adjacent pairs are the true edges, one flagged
+    assert record["counts"]["hidden_flagged"] == 1 and record["counts"]["hidden_adjacent"] == 1
+    assert record["counts"]["confounding_on_true_edges"] == 1
+    assert record["correct_level"]
+
+
+def test_markdown_gives_the_hidden_pair_and_several_parents_figures_by_n():
+    from dataclasses import asdict
+
+    from preflight.scenarios import WIDE_PER_VARIABLE, simulate
+
+    _, hidden_record, _ = _hidden_cause_record()
+    spec = validity.Spec("linear-non-gaussian", "several-parents", WIDE_PER_VARIABLE, 5, 80, 0, 9)
+    scenario = simulate(spec.kind, spec.shape, spec.p, spec.n, spec.noise, spec.seed)
+    dag = scenario.dag
+
+    def pair(i, j):  # the truth itself, as a report would give it
+        orientation = "x->y" if dag[i, j] else ("y->x" if dag[j, i] else "undetermined")
+        return {"x": scenario.names[i], "y": scenario.names[j], "adjacent": bool(dag[i, j] or dag[j, i]),
+                "orientation": orientation, "flags": []}
+
+    report = {"conclusion": {"level": "linear-non-gaussian", "rules_fired": []},
+              "pairs": [pair(i, j) for i, j in combinations(range(5), 2)],
+              "variables": [{"name": v, "flags": []} for v in scenario.names], "global": {"flags": []}}
+    several = {"spec": asdict(spec), "check_seconds": 0.2, **validity.score(scenario, spec, report)}
+    meta = {"command": "x", "machine": "m", "date": "d", "wall": "w", "version": "v", "commit": "c", "timing": ""}
+    text = validity.markdown([hidden_record, several], "grid", [], [], [], meta, ROOT)
+    edges = int(scenario.dag.sum())
+    assert "### Hidden common causes: the confounded pair, by kind, shape and n" in text
+    assert "| hidden-cause-non-adjacent | fork | 60 | 1 | 100.0 % (1/1) | 100.0 % (1/1) | 33.3 % (1/3) |" in text
+    assert "| hidden-cause-non-adjacent | 60 | 1 | 100.0 % (1/1) | 100.0 % (1/1) | 33.3 % (1/3) |" in text
+    assert "### Several parents per child, wide noise families and weights: by kind and n" in text
+    assert (f"| linear-non-gaussian | 80 | 1 | 100.0 % (1/1) | 100.0 % (1/1) | 0.0 % (0/{edges}) | "
+            f"0.0 % (0/{edges}) |") in text

@@ -21,7 +21,15 @@ from __future__ import annotations
 from collections.abc import Iterator, Sequence
 from typing import Any
 
-from preflight.results import NOISE_ESTIMATE, NOISE_ESTIMATES, SPLINE_RESIDUAL, CheckIdentity, test_id
+from preflight.results import (
+    GIVEN_A_SPLINE,
+    NOISE_ESTIMATE,
+    NOISE_ESTIMATES,
+    SPLINE_RESIDUAL,
+    STRUCTURAL_EQUATION,
+    CheckIdentity,
+    test_id,
+)
 
 _DIRECTION_FAMILY = {
     "shapiro-wilk": "noise normality", "anderson-darling": "noise normality", "jarque-bera": "noise normality",
@@ -95,6 +103,8 @@ def decode(check: dict[str, Any], scope: str, names: Sequence[str] = ()) -> Chec
 
 
 def _hsic_null(note: str) -> str | None:
+    if "residual-bootstrap refits" in note:
+        return "residual bootstrap"
     if "random-Fourier-feature" in note:
         return "random features"
     if "permutation null" in note:
@@ -104,9 +114,28 @@ def _hsic_null(note: str) -> str | None:
     return None  # a constant column: no test run
 
 
+_EQUATION_FAMILY = {"ramsey-reset": "equation linearity", "additive-spline-f-test": "equation linearity",
+                    "breusch-pagan": "equation variance", "white": "equation variance"}
+"""Family of each check of a whole structural equation (equation_stage.py)."""
+_IN_EQUATION_FAMILY = {"hsic": "equation residual independence", "white": "equation residual spread",
+                       "breusch-pagan": "equation residual spread"}
+"""Family of each test of one edge inside its equations (equation_stage.edge_task)."""
+
+
 def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
     pair = tuple(sorted((a, b)))
     for first, second in ((a, b), (b, a)):
+        if name == f"pairwise likelihood ratio in the equations ({first} -> {second} if > 0)":
+            return CheckIdentity("pairwise-likelihood-ratio", None, "pair", pair, variant=STRUCTURAL_EQUATION)
+        suffix = f" in the equation ({first} on {second} and its other parents)"
+        if name.endswith(suffix):
+            test = test_id(name[: -len(suffix)])
+            return CheckIdentity(test, _IN_EQUATION_FAMILY.get(test), "pair", pair, (first, second),
+                                 STRUCTURAL_EQUATION)
+        marker = f" ({first}, {second}) given a spline of "
+        if marker in name:
+            return CheckIdentity(test_id(name[: name.index(marker)]), "separation given a spline", "pair", pair,
+                                 variant=GIVEN_A_SPLINE)
         if name == f"noise dependence (hsic) ({first}, {second})":
             return CheckIdentity("hsic", "noise dependence", "pair", pair, variant=NOISE_ESTIMATES)
         if name == f"pairwise likelihood ratio ({first} -> {second} if > 0)":
@@ -129,6 +158,9 @@ def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
 
 
 def _decode_variable(name: str, variable: str) -> CheckIdentity:
+    if name.endswith(")") and f" (equation: {variable} on " in name:
+        test = test_id(name[: name.rindex(f" (equation: {variable} on ")])
+        return CheckIdentity(test, _EQUATION_FAMILY.get(test), "variable", (variable,), variant=STRUCTURAL_EQUATION)
     suffix = f" (noise of {variable})"
     if name.endswith(suffix):
         test = test_id(name[: -len(suffix)])

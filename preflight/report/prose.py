@@ -18,7 +18,7 @@ from typing import Any
 
 from preflight.report.identity import checks_with_identity, variable_check
 from preflight.report.text import FLAG_MEANING, LEVEL_WORDS, WHAT_STILL_FITS
-from preflight.results import SPLINE_RESIDUAL, CheckIdentity
+from preflight.results import GIVEN_A_SPLINE, SPLINE_RESIDUAL, STRUCTURAL_EQUATION, CheckIdentity
 
 CHECK_HEADER = ("check", "statistic", "p", "adjusted p", "effect", "n", "result", "note")
 """Columns of every table of checks."""
@@ -248,6 +248,8 @@ REFERENCES = {
                     "Journal of Psychology 15(1), 72-101.",
     "stephens1974": "Stephens, M. A. (1974). EDF statistics for goodness of fit and some comparisons. Journal of "
                     "the American Statistical Association 69(347), 730-737.",
+    "sen2014": "Sen, A. and Sen, B. (2014). Testing independence and goodness-of-fit in linear models. "
+               "Biometrika 101(4), 927-942.",
     "szekely2007": "Sz\u00e9kely, G. J., Rizzo, M. L. and Bakirov, N. K. (2007). Measuring and testing dependence by "
                    "correlation of distances. Annals of Statistics 35(6), 2769-2794.",
     "white1980": "White, H. (1980). A heteroskedasticity-consistent covariance matrix estimator and a direct test "
@@ -272,6 +274,10 @@ class Method:
 
 def _tests(*tests: str) -> Callable[[CheckIdentity], bool]:
     return lambda identity: identity.test in tests
+
+
+def _in_equation(identity: CheckIdentity) -> bool:
+    return identity.variant == STRUCTURAL_EQUATION and identity.test in ("hsic", "white") and identity.scope == "pair"
 
 
 def _spline_hsic(identity: CheckIdentity) -> bool:
@@ -310,6 +316,9 @@ METHODS: tuple[Method, ...] = (
            ("ramsey1969",), _tests("ramsey-reset")),
     Method("spline-f", "linearity", "a nested-model F-test of a cubic regression spline (B-spline basis with "
            "knots at quantiles; de Boor 1978) against the straight line", ("deboor1978",), _tests("spline-f-test")),
+    Method("additive-spline-f", "linearity", "a nested-model F-test of each structural equation (a variable on "
+           "all its estimated parents) with every parent entered as a cubic regression spline against the linear "
+           "equation (de Boor 1978)", ("deboor1978",), _tests("additive-spline-f-test")),
     Method("breusch-pagan", "variance", "the Breusch-Pagan test (Breusch and Pagan 1979) in Koenker's "
            "studentized form (Koenker 1981)", ("breusch1979", "koenker1981"), _tests("breusch-pagan")),
     Method("white", "variance", "White's test (White 1980)", ("white1980",), _tests("white")),
@@ -319,6 +328,16 @@ METHODS: tuple[Method, ...] = (
     Method("hsic-rff", "independence", "random Fourier features for HSIC on large samples (Rahimi and Recht 2007; "
            "Zhang et al. 2018)", ("rahimi2007", "zhang2018"),
            lambda identity: identity.test == "hsic" and identity.null == "random features"),
+    Method("residual-bootstrap", "independence", "HSIC between the residual of each structural equation and the "
+           "partial residual of the parent under test, the other parents of both variables partialled out, with "
+           "its null simulated by the residual bootstrap with refitted coefficients (Sen and Sen 2014); the same "
+           "bootstrap calibrates White's auxiliary R-squared of the residual's spread (White 1980)",
+           ("sen2014", "white1980"), _in_equation),
+    Method("spline-separation", "independence", "for an edge with a common neighbour in a relation judged "
+           "nonlinear, Pearson, Spearman and HSIC between the two variables once both are regressed on a cubic "
+           "regression spline of that neighbour (de Boor 1978): a linear partial correlation does not separate "
+           "the ends of a chain through a curve", ("deboor1978",),
+           lambda identity: identity.variant == GIVEN_A_SPLINE),
     Method("distance-correlation", "independence", "distance correlation (Sz\u00e9kely et al. 2007)",
            ("szekely2007",), _tests("distance-correlation")),
     Method("pearson", "independence", "Pearson's correlation with Fisher's z transform, adjusted for the size "

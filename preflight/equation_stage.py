@@ -1,0 +1,225 @@
+"""Edges judged inside their structural equations.
+
+The pair battery regresses y on x alone, so a child's other parents stay in
+its residual and read as nonlinearity, changing spread and confounding.
+Here each variable is fitted on all its estimated parents at once
+(:mod:`preflight.equations`), and each adjacent pair is judged inside those
+equations: the orientation, the ``confounding-suspected`` signal from
+residual dependence in both directions, and the ``nonlinear`` and
+``heteroscedastic`` flags of the child's equation replace the battery's.
+
+The raw tests are computed by :func:`edge_tests` and
+:func:`equation_tests`; the evidence layer adjusts them with everything
+else (:func:`preflight.evidence.adjust_named_groups`), and
+:func:`judge_in_equations` turns one pair's adjusted tests into its findings.
+"""
+
+from __future__ import annotations
+
+from dataclasses import replace
+
+import numpy as np
+
+from preflight.battery import PairFindings, _material_departure
+from preflight.evidence import Tagged, significant
+from preflight.policy import Policy
+from preflight.results import STRUCTURAL_EQUATION, CheckIdentity, CheckResult
+from preflight.seeds import derived_seed
+
+EDGE_FAMILY = "equation residual independence"
+SPREAD_FAMILY = "equation residual spread"
+LINEARITY_FAMILY = "equation linearity"
+VARIANCE_FAMILY = "equation variance"
+EQUATION_FAMILIES = (LINEARITY_FAMILY, VARIANCE_FAMILY)
+RESIDUAL_BOOTSTRAP = "residual bootstrap"
+"""The null of an HSIC inside an equation: simulated by the residual bootstrap (Sen and Sen 2014)."""
+
+CANDIDATE_EDGES_FROM_PARENTS = True
+"""Measurement switch for ``benchmarks/equations_wiring.py`` (not a policy key): add the pruned parent edges
+to the PC-stable skeleton, which leaves out weak edges (a third of the true edges at 2,000 rows in
+benchmarks/EQUATIONS_WIRING.md)."""
+
+ONLY_TRUSTED_PARENT_EDGES = True
+"""Measurement switch for ``benchmarks/equations_wiring.py``: add only the parent edges of equations that
+hold up (linear and homoscedastic, see :func:`trusted`); a departing equation is a sign of a scrambled causal
+order, whose parent sets are not edges.
+With every parent edge, the kiln demo's reversed chain adds gas_flow - wall_temp (oriented) and
+gas_flow - glaze_gloss."""
+
+BOOTSTRAP_REPLICATES = 200
+"""Residual-bootstrap refits per edge test.  The decision uses the smooth p-value (a gamma matched to the
+bootstrap), which resolves the tail a Holm correction over many edges needs; the counted p-value cannot go
+below 1 / (1 + B)."""
+
+
+def trusted(equations: dict[int, tuple[Tagged, ...]], p: int, policy: Policy) -> frozenset[int]:
+    """The variables whose equation holds up: no parents, or linear and homoscedastic (adjusted as the
+    evidence layer will adjust them: the equation families hold nothing else)."""
+    from preflight.evidence import adjust_named_groups
+
+    adjusted = adjust_named_groups({j: list(tests) for j, tests in equations.items()}, policy.correction)
+    return frozenset(j for j in range(p) if j not in adjusted or not any(departs(adjusted[j], policy)))
+
+
+def graph_parents(dag: np.ndarray) -> tuple[tuple[int, ...], ...]:
+    """Each column's parents in a DAG's int adjacency matrix (``dag[i, j]`` = 1 for i -> j)."""
+    return tuple(tuple(int(i) for i in np.flatnonzero(dag[:, j])) for j in range(dag.shape[0]))
+
+
+def with_parent_edges(estimated: np.ndarray, parents, children=None) -> np.ndarray:
+    """The skeleton's adjacency with every edge of the pruned parent sets added.
+
+    PC-stable's Fisher-z tests leave out weak edges the DirectLiNGAM pruning
+    keeps (a fifth to a third of true edges in the equations probe); an edge
+    that is never adjacent is never judged.
+    """
+    out = estimated.copy()
+    for child, ps in enumerate(parents):
+        if children is not None and child not in children:
+            continue
+        for parent in ps:
+            out[child, parent] = out[parent, child] = True
+    return out
+
+
+def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Policy) -> tuple[Tagged, ...]:
+    """One adjacent pair (i, j) inside its equations: the forward (j on i and the other parents) and reverse
+    residual HSIC, each residual's spread against the partial regressor, and the likelihood ratio.
+
+    A pure function of its arguments (seeded from the column names), so the
+    pairs can run in any process in any order.
+    """
+    from preflight.equations import judge_edge
+
+    i, j = pair
+    judgement = judge_edge(X, i, j, parents, alpha=policy.alpha, calibration="bootstrap",
+                           replicates=BOOTSTRAP_REPLICATES, n_features=policy.hsic_features,
+                           exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
+                           seed=derived_seed(policy.seed, "edge in its equations", names[i], names[j]))
+    given = ", ".join(names[c] for c in judgement.conditioning) or "nothing"
+    variables = tuple(sorted((names[i], names[j])))
+    tagged = []
+    for role, result, spread, response, regressor in (
+            ("forward", judgement.forward, judgement.forward_spread, names[j], names[i]),
+            ("reverse", judgement.backward, judgement.backward_spread, names[i], names[j])):
+        decision_p = result.smooth_p_value if result.smooth_p_value is not None else result.p_value
+        label = f"{response} on {regressor} and its other parents"
+        check = CheckResult(
+            name=f"hsic in the equation ({label})",
+            statistic=result.statistic, p_value=float(decision_p), effect=result.effect,
+            effect_name="normalised HSIC", n=result.n,
+            note=(f"{result.note}; smooth p-value (gamma matched to the bootstrap), counted "
+                  f"p = {result.p_value:.4g}; other parents partialled out: {given}"),
+            identity=CheckIdentity("hsic", scope="pair", null=RESIDUAL_BOOTSTRAP))
+        tagged.append(Tagged(EDGE_FAMILY, role, check.identified(
+            scope="pair", family=EDGE_FAMILY, variables=variables, direction=(response, regressor),
+            variant=STRUCTURAL_EQUATION)))
+        for test, spread_check in zip(("white",) if len(spread) == 1 else ("breusch-pagan", "white"), spread):
+            spread_check = replace(spread_check, note=f"{spread_check.note}; against {regressor} with {given} "
+                                                      "partialled out")
+            tagged.append(Tagged(SPREAD_FAMILY, role, spread_check.identified(
+                scope="pair", family=SPREAD_FAMILY, variables=variables, direction=(response, regressor),
+                test=test, variant=STRUCTURAL_EQUATION, name=f"{spread_check.name} in the equation ({label})")))
+    ratio = CheckResult(name=f"pairwise likelihood ratio in the equations ({names[i]} -> {names[j]} if > 0)",
+                        statistic=judgement.likelihood_ratio, p_value=None, n=judgement.n,
+                        note=f"on the partial residuals given {given}")
+    tagged.append(Tagged(None, "pair", ratio.identified(
+        scope="pair", variables=variables, test="pairwise-likelihood-ratio", variant=STRUCTURAL_EQUATION)))
+    return tuple(tagged)
+
+
+def equation_tests(X: np.ndarray, names, parents, policy: Policy) -> dict[int, tuple[Tagged, ...]]:
+    """Per variable with parents: RESET and the additive spline F-test on its equation, Breusch-Pagan and White."""
+    from preflight.equations import equation_checks
+
+    out = {}
+    for j, ps in enumerate(parents):
+        if not ps:
+            continue
+        results = equation_checks(X, j, ps, max_df=policy.spline_max_df,
+                                  seed=derived_seed(policy.seed, "equation", names[j]))[-4:]
+        label = f"{names[j]} on {', '.join(names[c] for c in ps)}"
+        out[j] = tuple(Tagged(family, "variable", r.identified(
+            scope="variable", family=family, variables=(names[j],), variant=STRUCTURAL_EQUATION,
+            name=f"{r.name.replace(' (equation)', '')} (equation: {label})"))
+            for r, family in zip(results, (LINEARITY_FAMILY, LINEARITY_FAMILY, VARIANCE_FAMILY, VARIANCE_FAMILY)))
+    return out
+
+
+def departs(equation: list[Tagged], policy: Policy) -> tuple[bool, bool]:
+    """(nonlinear, heteroscedastic): a significant departure with at least the policy's effect floor."""
+    alpha = policy.alpha
+    return (_material_departure([t.result for t in equation if t.family == LINEARITY_FAMILY], alpha,
+                                policy.nonlinear_min_r2_gain),
+            _material_departure([t.result for t in equation if t.family == VARIANCE_FAMILY], alpha,
+                                policy.heteroscedastic_min_r2))
+
+
+def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list[Tagged] | None,
+                       equations: dict[int, list[Tagged]], policy: Policy) -> PairFindings:
+    """The pair's findings with orientation, confounding and mechanism flags judged inside its equations.
+
+    Only where both variables' equations hold up (each linear and
+    homoscedastic on its estimated parents, or without parents): a
+    nonlinear or changing-spread equation means the linear causal order
+    behind the parent sets is not trusted there (a saturating curve reads as
+    a cause of its own cause and reverses a chain), so such a pair keeps the
+    battery's findings.  Otherwise: oriented i -> j when the residual of j
+    on i and the other parents is independent of i's partial residual, the
+    reverse is not (adjusted p, decided on the smooth bootstrap p-value) and
+    the likelihood ratio agrees; not when the battery found both
+    directions' residuals Gaussian.  Dependent in both directions:
+    ``confounding-suspected``.  The battery's ``nonlinear``,
+    ``heteroscedastic`` and ``confounding-suspected`` flags and its
+    additive-noise orientation are dropped: they rest on marginal
+    regressions that the child's other parents bend.
+    """
+    if not findings.adjacent or edge is None:
+        return findings
+    if any(any(departs(list(equations.get(v, [])), policy)) for v in pair):
+        return findings
+    dependent = {role: _dependent([t for t in edge if t.role == role], policy) for role in ("forward", "reverse")}
+    (ratio,) = [t for t in edge if t.role == "pair"]
+    gaussian = "gaussian-noise" in findings.flags
+    lr = float(ratio.result.statistic)
+    lingam = "undetermined"
+    if not gaussian:
+        if not dependent["forward"] and dependent["reverse"] and lr > 0:
+            lingam = "x->y"
+        elif not dependent["reverse"] and dependent["forward"] and lr < 0:
+            lingam = "y->x"
+    flags = [f for f in findings.flags if f not in ("nonlinear", "heteroscedastic", "confounding-suspected")]
+    powered = has_precedence(ratio.result.n, policy)
+    facts = {"adjacent", "anm-undetermined"} | (
+        {"lingam-oriented"} | ({"oriented-in-equations"} if powered else set()) if lingam != "undetermined"
+        else {"lingam-undetermined"})
+    if dependent["forward"] and dependent["reverse"] and not gaussian:
+        flags.append("confounding-suspected")
+        facts.add("residuals-dependent-both-ways")
+    elif powered and not (dependent["forward"] or dependent["reverse"] or gaussian):
+        facts.add("independent-both-ways")
+    judged = tuple(replace(t.result, passed=None if _explained_by(t.role, lingam) else not _counts(t, policy))
+                   for t in edge if t.family is not None) + (ratio.result,)
+    return replace(findings, lingam_orientation=lingam, anm_orientation="undetermined", flags=tuple(flags),
+                   facts=frozenset(facts | set(flags)), checks=findings.checks + judged)
+
+
+def has_precedence(n: int, policy: Policy) -> bool:
+    """Whether an edge judged inside its equations on ``n`` rows outweighs the class and limits only itself."""
+    return n >= policy.equation_precedence_min_rows
+
+
+def _counts(test: Tagged, policy: Policy) -> bool:
+    """A significant departure with at least its floor: normalised HSIC, or the auxiliary R-squared of a
+    spread test (``confounding_spread_min_r2``: a hidden common cause leaves a faint spread change)."""
+    floor = policy.dependence_min_hsic if test.family == EDGE_FAMILY else policy.confounding_spread_min_r2
+    return significant(test.result, policy.alpha) and (test.result.effect or 0.0) >= floor
+
+
+def _dependent(tests: list[Tagged], policy: Policy) -> bool:
+    return any(_counts(t, policy) for t in tests)
+
+
+def _explained_by(role: str, orientation: str) -> bool:
+    """The reverse regression's residual is expected to depend on its regressor once x -> y is found."""
+    return (role == "reverse" and orientation == "x->y") or (role == "forward" and orientation == "y->x")

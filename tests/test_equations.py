@@ -1,0 +1,196 @@
+"""Structural equations, calibrated residual independence and edge judgement (preflight.equations)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import statsmodels.api as sm
+from scipy import stats
+
+from preflight.checks.independence import hsic_rff
+from preflight.equations import equation_checks, fit_equations, judge_edge, residual_independence
+from preflight.errors import InputError
+from preflight.fit import ols
+
+
+@pytest.fixture(autouse=True)
+def _single_threaded_blas():
+    # As inside preflight.check (api.py): threaded BLAS spins on these many small products.
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=1, user_api="blas"):
+        yield
+
+
+def _skewed(rng, n):
+    return stats.gamma(a=0.5).rvs(size=n, random_state=rng) - 0.5
+
+
+def _arcsine(rng, n):
+    return stats.arcsine.rvs(size=n, random_state=rng) - 0.5
+
+
+def test_fit_equations_matches_statsmodels_ols():
+    rng = np.random.default_rng(0)
+    n = 400
+    a = _skewed(rng, n)
+    b = 0.7 * a + _arcsine(rng, n)
+    c = -1.2 * a + 0.4 * b + _skewed(rng, n)
+    X = np.column_stack([a, b, c])
+    equations = fit_equations(X, [(), (0,), (0, 1)])
+    reference = sm.OLS(c, sm.add_constant(np.column_stack([a, b]))).fit()
+    np.testing.assert_allclose(equations[2].coef, reference.params, rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(equations[2].residuals, reference.resid, rtol=1e-8, atol=1e-10)
+    assert equations[2].r_squared == pytest.approx(reference.rsquared, rel=1e-10)
+    np.testing.assert_allclose(equations[0].residuals, a - a.mean(), atol=1e-12)
+    assert equations[1].parents == (0,) and equations[2].n == n
+
+
+@pytest.mark.parametrize("parents", [[(), (1,), ()], [(), (0,)], [(), (0, 0), ()], [(), (5,), ()]])
+def test_fit_equations_refuses_invalid_parent_sets(parents):
+    X = np.random.default_rng(1).normal(size=(20, 3))
+    with pytest.raises(InputError):
+        fit_equations(X, parents)
+
+
+def test_bootstrap_statistic_is_the_random_feature_hsic():
+    rng = np.random.default_rng(2)
+    n = 1500
+    x = _skewed(rng, n)
+    y = 0.8 * x + _skewed(rng, n)
+    result = residual_independence(y, x, replicates=20, seed=5)
+    reference = hsic_rff(x, ols(x, y).residuals, seed=5)
+    assert result.column_statistics[0] == pytest.approx(reference.statistic, rel=1e-4)
+    assert result.effect == pytest.approx(reference.effect, rel=1e-4)
+    assert result.n == n and result.replicates == 20 and result.calibration == "bootstrap"
+
+
+def test_bootstrap_is_reproducible_and_a_valid_p_value():
+    rng = np.random.default_rng(3)
+    X = rng.standard_exponential(size=(600, 2))
+    y = X @ [0.5, -1.0] + _arcsine(rng, 600)
+    first = residual_independence(y, X, replicates=49, seed=11)
+    again = residual_independence(y, X, replicates=49, seed=11)
+    assert first == again or (first.p_value == again.p_value and first.statistic == again.statistic)
+    assert len(first.column_p_values) == 2
+    for p in (first.p_value, *first.column_p_values):
+        assert 1 / 50 <= p <= 1.0 and (p * 50) == pytest.approx(round(p * 50))
+
+
+def test_bootstrap_false_alarms_are_nominal_with_skewed_noise_and_correlated_parents():
+    # Sen and Sen (2014): with skewed noise the plain HSIC null is too liberal
+    # for a fitted residual; the bootstrap must hold alpha.
+    replicates, rejections = 100, 0
+    for r in range(replicates):
+        rng = np.random.default_rng([7, r])
+        a = _skewed(rng, 250)
+        b = 0.8 * a + _skewed(rng, 250)
+        y = 1.0 * a - 0.7 * b + 2.0 * _skewed(rng, 250)
+        rejections += residual_independence(y, np.column_stack([a, b]), replicates=59, seed=r).p_value < 0.05
+    low, high = stats.binom.ppf([0.005, 0.995], replicates, 0.05)
+    assert low <= rejections <= high
+
+
+def test_bootstrap_detects_noise_whose_spread_follows_the_regressor():
+    rng = np.random.default_rng(4)
+    x = _skewed(rng, 1500)
+    y = x + (0.3 + np.abs(x)) * _arcsine(rng, 1500)
+    result = residual_independence(y, x, replicates=99, seed=0)
+    assert result.p_value < 0.05
+    # The gamma matched to the bootstrap reaches below the 1 / (1 + B) floor of the counted p-value.
+    assert result.smooth_p_value is not None and result.smooth_p_value < 1 / 100
+
+
+@pytest.mark.parametrize("calibration", ["none", "first-order"])
+def test_gamma_calibrations_combine_columns_by_bonferroni(calibration):
+    rng = np.random.default_rng(5)
+    X = rng.standard_exponential(size=(500, 3))
+    y = X @ [1.0, 0.5, -0.5] + _arcsine(rng, 500)
+    result = residual_independence(y, X, calibration=calibration)
+    assert result.p_value == pytest.approx(min(1.0, 3 * min(result.column_p_values)))
+    assert result.calibration == calibration and len(result.column_effects) == 3
+    assert result.smooth_p_value is None
+
+
+def test_residual_independence_refuses_bad_input():
+    rng = np.random.default_rng(6)
+    x, y = rng.normal(size=50), rng.normal(size=50)
+    with pytest.raises(InputError):
+        residual_independence(y, x, calibration="permutation")
+    with pytest.raises(InputError):
+        residual_independence(y, x, replicates=0)
+    with pytest.raises(InputError):
+        residual_independence(y[:40], x)
+    with pytest.raises(InputError):
+        residual_independence(y, np.column_stack([x, x * np.nan]))
+
+
+def _three_variable_table(seed: int, n: int = 1500):
+    # a -> b, a -> c, b -> c: the edge b - c has a as the other parent of both.
+    rng = np.random.default_rng(seed)
+    a = _arcsine(rng, n) / 0.35
+    b = 0.9 * a + _skewed(rng, n) / 0.7
+    c = 0.6 * a - 0.8 * b + _arcsine(rng, n) / 0.35
+    return np.column_stack([a, b, c]), [(), (0,), (0, 1)]
+
+
+def test_judge_edge_orients_a_non_gaussian_edge_inside_its_equations():
+    X, parents = _three_variable_table(8)
+    forward = judge_edge(X, 1, 2, parents, replicates=59)
+    assert forward.orientation == "i->j" and forward.conditioning == (0,)
+    assert forward.forward.p_value >= 0.05 > forward.backward.p_value and forward.likelihood_ratio > 0
+    swapped = judge_edge(X, 2, 1, parents, replicates=59)
+    assert swapped.orientation == "j->i" and swapped.likelihood_ratio < 0
+
+
+def test_judge_edge_leaves_a_gaussian_edge_undetermined():
+    rng = np.random.default_rng(9)
+    a = rng.normal(size=2000)
+    b = 0.8 * a + rng.normal(size=2000)
+    judgement = judge_edge(np.column_stack([a, b]), 0, 1, [(), (0,)], replicates=59)
+    assert judgement.orientation == "undetermined"
+
+
+def test_judge_edge_needs_a_material_effect_when_asked():
+    X, parents = _three_variable_table(10)
+    judgement = judge_edge(X, 1, 2, parents, replicates=49, min_effect=0.99)
+    assert judgement.orientation == "undetermined"
+    with pytest.raises(InputError):
+        judge_edge(X, 1, 1, parents)
+    with pytest.raises(InputError):
+        judge_edge(X, 1, 2, parents, alpha=1.5)
+
+
+def test_equation_checks_match_statsmodels_on_a_two_parent_equation():
+    from statsmodels.stats.diagnostic import het_breuschpagan, het_white, linear_reset
+
+    rng = np.random.default_rng(12)
+    n = 500
+    a = _skewed(rng, n)
+    b = 0.5 * a + _arcsine(rng, n)
+    c = 0.8 * a - 0.6 * b + 0.3 * a**2 + (0.5 + np.abs(b)) * _arcsine(rng, n)
+    X = np.column_stack([a, b, c])
+    checks = {r.name: r for r in equation_checks(X, 2, (0, 1))}
+    design = sm.add_constant(np.column_stack([a, b]))
+    fit = sm.OLS(c, design).fit()
+    reset = linear_reset(fit, power=3, use_f=True)
+    assert checks["ramsey reset (equation)"].statistic == pytest.approx(float(reset.fvalue), rel=1e-7)
+    assert checks["ramsey reset (equation)"].p_value == pytest.approx(float(reset.pvalue), rel=1e-6)
+    lm, lm_p, _, _ = het_breuschpagan(fit.resid, design)
+    assert checks["breusch-pagan"].statistic == pytest.approx(lm, rel=1e-7)
+    white_lm, white_p, _, _ = het_white(fit.resid, design)
+    assert checks["white"].statistic == pytest.approx(white_lm, rel=1e-7)
+    # The curvature in a and the spread in b are there to be found.
+    assert checks["additive spline f-test (equation)"].p_value < 0.01
+    assert checks["breusch-pagan"].p_value < 0.01
+    assert len(equation_checks(X, 0, ())) == 5
+
+
+def test_residual_independence_does_not_depend_on_units():
+    rng = np.random.default_rng(13)
+    X = rng.standard_exponential(size=(400, 2))
+    y = X @ [0.7, 0.4] + _skewed(rng, 400)
+    base = residual_independence(y, X, replicates=39, seed=2)
+    scaled = residual_independence(1e6 * y - 3.0, X * [1e-3, 250.0] + 7.0, replicates=39, seed=2)
+    assert scaled.p_value == base.p_value and scaled.column_p_values == base.column_p_values
+    assert scaled.statistic == pytest.approx(base.statistic, rel=1e-6)
