@@ -1448,18 +1448,17 @@ def grid_from_options(grid: Grid, kinds: str | None, shapes: str | None, ns: str
     """The grid narrowed or widened by --kinds, --shapes and --ns; ValueError names the first bad item."""
     from preflight.scenarios import KINDS
 
+    def chosen(text: str, known, what: str) -> tuple[str, ...]:
+        items = tuple(v.strip() for v in text.split(",") if v.strip())
+        unknown = [v for v in items if v not in known]
+        if unknown or not items:
+            raise ValueError(f"unknown {what} {unknown[0] if unknown else text!r}; known: {', '.join(known)}")
+        return items
+
     if kinds:
-        chosen = tuple(k.strip() for k in kinds.split(",") if k.strip())
-        unknown = [k for k in chosen if k not in KINDS]
-        if unknown or not chosen:
-            raise ValueError(f"unknown kind {unknown[0] if unknown else kinds!r}; known: {', '.join(KINDS)}")
-        grid = replace(grid, kinds=chosen)
+        grid = replace(grid, kinds=chosen(kinds, KINDS, "kind"))
     if shapes:
-        chosen = tuple(s.strip() for s in shapes.split(",") if s.strip())
-        unknown = [s for s in chosen if s not in ALL_SHAPES]
-        if unknown or not chosen:
-            raise ValueError(f"unknown shape {unknown[0] if unknown else shapes!r}; known: {', '.join(ALL_SHAPES)}")
-        grid = replace(grid, shapes=chosen)
+        grid = replace(grid, shapes=chosen(shapes, ALL_SHAPES, "shape"))
     if ns:
         sizes, reps = [], {}
         for item in (v.strip() for v in ns.split(",") if v.strip()):
