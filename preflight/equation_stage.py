@@ -190,9 +190,11 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
             lingam = "y->x"
     flags = [f for f in findings.flags if f not in ("nonlinear", "heteroscedastic", "confounding-suspected")]
     powered = has_precedence(ratio.result.n, policy)
-    facts = {"adjacent", "anm-undetermined"} | (
-        {"lingam-oriented"} | ({"oriented-in-equations"} if powered else set()) if lingam != "undetermined"
-        else {"lingam-undetermined"})
+    facts = {"adjacent", "anm-undetermined"}
+    if lingam == "undetermined":
+        facts.add("lingam-undetermined")
+    else:
+        facts |= {"lingam-oriented", "oriented-in-equations"} if powered else {"lingam-oriented"}
     if dependent["forward"] and dependent["reverse"] and not gaussian:
         flags.append("confounding-suspected")
         facts.add("residuals-dependent-both-ways")

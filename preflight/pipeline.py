@@ -714,10 +714,11 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
         judged = [equation_stage.judge_in_equations(f, ij, evidence.edge_checks.get(ij), evidence.equation_checks,
                                                     policy)
                   if ij not in skeleton.dropped else f for ij, f in zip(table.pairs, judged)]
-    separation = _separated_given_splines(table, skeleton, judged, evidence)
+    separation, separated = _separated_given_splines(table, skeleton, judged, evidence)
     if separation:
-        skeleton = skeleton.without(ij for ij, checks in separation.items() if any(c.passed is False for c in checks))
-        judged = [_tested_for_separation(f, battery, separation.get(ij, ()), evidence.pair_checks[ij], policy)
+        skeleton = skeleton.without(separated)
+        judged = [_tested_for_separation(f, battery, separation.get(ij, ()), ij in separated,
+                                         evidence.pair_checks[ij], policy)
                   for ij, f, battery in zip(table.pairs, judged, evidence.batteries)]
     misspecified = {name for f in judged if f.adjacent and "nonlinear" in f.flags for name in (f.x, f.y)}
     final = []
@@ -735,22 +736,23 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
 
 
 def _separated_given_splines(table: Table, skeleton: Skeleton, judged: Sequence[PairFindings],
-                             evidence: Evidence) -> dict[Pair, tuple[CheckResult, ...]]:
-    """The separation checks of each adjacent pair with a common neighbour in a relation judged nonlinear.
+                             evidence: Evidence) -> tuple[dict[Pair, tuple[CheckResult, ...]], frozenset[Pair]]:
+    """The separation checks of each adjacent pair with a common neighbour in a relation judged nonlinear,
+    and the pairs a spline separated.
 
     The skeleton's Fisher-z tests condition linearly, so a chain through a
     saturating curve (a -> k -> b with k -> b bent) keeps a - b partially
     correlated and the skeleton keeps a spurious edge, which the noise-based
     tests may then orient.  Each such pair is tested again with both ends
     regressed on a spline of the neighbour (:func:`separation_given_spline`);
-    the tests are adjusted together as one family.  The returned checks of a
-    pair that the spline separates (no test significant for one neighbour)
-    are marked ``passed=False``; the pipeline drops that edge.
+    the tests are adjusted together as one family.  A pair is separated when
+    no test is significant for one neighbour; its checks are marked
+    ``passed=False`` and the pipeline drops that edge.
     """
     policy, names, X = table.policy, table.names, table.values
     bent = sorted({v for ij, f in zip(table.pairs, judged) if f.adjacent and "nonlinear" in f.flags for v in ij})
     if not bent:
-        return {}
+        return {}, frozenset()
     position = {name: k for k, name in enumerate(names)}
 
     def linked(a: int, b: int) -> bool:
@@ -769,21 +771,21 @@ def _separated_given_splines(table: Table, skeleton: Skeleton, judged: Sequence[
             groups[(ij, k)] = separation_given_spline(X[:, i], X[:, j], names[i], names[j], X[:, k], names[k],
                                                       X[:, kept] if kept else None, policy, seed)
     if not groups:
-        return {}
+        return {}, frozenset()
     adjusted = adjust_named_groups(groups, policy.correction)
-    separating = {ij for (ij, _), tests in adjusted.items()
-                  if not any(significant(t.result, policy.alpha) for t in tests)}
+    separated = frozenset(ij for (ij, _), tests in adjusted.items()
+                          if not any(significant(t.result, policy.alpha) for t in tests))
     out: dict[Pair, tuple[CheckResult, ...]] = {}
     for (ij, _), tests in adjusted.items():
-        out[ij] = out.get(ij, ()) + tuple(replace(t.result, passed=False if ij in separating else None)
+        out[ij] = out.get(ij, ()) + tuple(replace(t.result, passed=False if ij in separated else None)
                                           for t in tests)
-    return out
+    return out, separated
 
 
 def _tested_for_separation(findings: PairFindings, battery: PairBattery, checks: tuple[CheckResult, ...],
-                           battery_checks: list[Tagged], policy: Policy) -> PairFindings:
+                           separated: bool, battery_checks: list[Tagged], policy: Policy) -> PairFindings:
     """A pair's findings with its separation checks; a pair a spline separated becomes non-adjacent."""
-    if not any(check.passed is False for check in checks):
+    if not separated:
         return replace(findings, checks=findings.checks + checks)
     apart = judge_pair(replace(battery, adjacent=False), battery_checks, policy)
     return replace(apart, flags=("no-association",), facts=frozenset({"not-adjacent", "no-association"}),
