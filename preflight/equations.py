@@ -120,11 +120,13 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
     fitted = y - linear.residuals
     spread = float(fitted.std())
     s = (fitted - fitted.mean()) / (spread if spread > 0 else 1.0)
-    larger = [(np.column_stack([P, s**2, s**3]), "ramsey reset (equation)", "powers 2, 3 of the fitted values"),
-              (np.column_stack([bspline_basis(P[:, c], spline_df(n, max_df))[:, 1:] for c in range(P.shape[1])]),
-               "additive spline f-test (equation)", f"cubic B-spline with {spline_df(n, max_df)} columns per parent")]
-    for design, name, what in larger:
-        fit = ols(full_rank_columns(design), y)
+    # Built one at a time: at a million rows a design of several parents' splines is hundreds of MB.
+    df = spline_df(n, max_df)
+    larger = [(lambda: np.column_stack([P, s**2, s**3]), "ramsey reset (equation)", "powers 2, 3 of the fitted values"),
+              (lambda: np.column_stack([bspline_basis(P[:, c], df)[:, 1:] for c in range(P.shape[1])]),
+               "additive spline f-test (equation)", f"cubic B-spline with {df} columns per parent")]
+    for build, name, what in larger:
+        fit = ols(full_rank_columns(build()), y)
         f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, fit.rss, fit.rank, n)
         out.append(CheckResult(name=name, statistic=f_stat, p_value=p_value, effect=fit.r_squared - linear.r_squared,
                                effect_name="gain in R-squared", n=n, note=f"{what}; F({df_num}, {df_den})"))
