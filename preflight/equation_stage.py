@@ -51,6 +51,10 @@ BOOTSTRAP_REPLICATES = 200
 bootstrap), which resolves the tail a Holm correction over many edges needs; the counted p-value cannot go
 below 1 / (1 + B)."""
 
+BOOTSTRAP_FIRST_REPLICATES = 50
+"""Refits after which a test whose decision is already settled stops (:class:`preflight.equations.EarlyStop`):
+an effect below its floor, or a gamma-tail p-value far from any threshold."""
+
 
 def trusted(equations: dict[int, tuple[Tagged, ...]], p: int, policy: Policy) -> frozenset[int]:
     """The variables whose equation holds up: no parents, or linear and homoscedastic (adjusted as the
@@ -89,13 +93,16 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
     A pure function of its arguments (seeded from the column names), so the
     pairs can run in any process in any order.
     """
-    from preflight.equations import judge_edge
+    from preflight.equations import EarlyStop, judge_edge
 
     i, j = pair
+    early_stop = EarlyStop(first=BOOTSTRAP_FIRST_REPLICATES, hsic_floor=policy.dependence_min_hsic,
+                           spread_floor=policy.confounding_spread_min_r2, clear_above=min(1.0, 5 * policy.alpha))
     judgement = judge_edge(X, i, j, parents, alpha=policy.alpha, calibration="bootstrap",
                            replicates=BOOTSTRAP_REPLICATES, n_features=policy.hsic_features,
                            exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
-                           seed=derived_seed(policy.seed, "edge in its equations", names[i], names[j]))
+                           seed=derived_seed(policy.seed, "edge in its equations", names[i], names[j]),
+                           early_stop=early_stop)
     given = ", ".join(names[c] for c in judgement.conditioning) or "nothing"
     variables = tuple(sorted((names[i], names[j])))
     tagged = []

@@ -1,4 +1,4 @@
-"""Structural equations as the unit of judgement (groundwork for issue #17; nothing calls this yet).
+"""Structural equations as the unit of judgement (the equation stage, :mod:`preflight.equation_stage`).
 
 Each variable is regressed on all its parents at once; its residual is its
 noise estimate.  Three pure functions build on that:
@@ -120,11 +120,13 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
     fitted = y - linear.residuals
     spread = float(fitted.std())
     s = (fitted - fitted.mean()) / (spread if spread > 0 else 1.0)
-    larger = [(np.column_stack([P, s**2, s**3]), "ramsey reset (equation)", "powers 2, 3 of the fitted values"),
-              (np.column_stack([bspline_basis(P[:, c], spline_df(n, max_df))[:, 1:] for c in range(P.shape[1])]),
-               "additive spline f-test (equation)", f"cubic B-spline with {spline_df(n, max_df)} columns per parent")]
-    for design, name, what in larger:
-        fit = ols(full_rank_columns(design), y)
+    # Built one at a time: at a million rows a design of several parents' splines is hundreds of MB.
+    df = spline_df(n, max_df)
+    larger = [(lambda: np.column_stack([P, s**2, s**3]), "ramsey reset (equation)", "powers 2, 3 of the fitted values"),
+              (lambda: np.column_stack([bspline_basis(P[:, c], df)[:, 1:] for c in range(P.shape[1])]),
+               "additive spline f-test (equation)", f"cubic B-spline with {df} columns per parent")]
+    for build, name, what in larger:
+        fit = ols(full_rank_columns(build()), y)
         f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, fit.rss, fit.rank, n)
         out.append(CheckResult(name=name, statistic=f_stat, p_value=p_value, effect=fit.r_squared - linear.r_squared,
                                effect_name="gain in R-squared", n=n, note=f"{what}; F({df_num}, {df_den})"))
@@ -133,6 +135,38 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
 
 
 # --------------------------------------------------------------------------- residual independence
+
+
+@dataclass(frozen=True)
+class EarlyStop:
+    """When a residual bootstrap may stop after its first ``first`` refits: the decision it feeds is settled.
+
+    A sequential Monte Carlo test stops as soon as more simulation cannot
+    change its answer (Besag and Clifford 1991, Biometrika 78: 301-304).
+    Here the answer is "a significant dependence with a material effect",
+    for the HSIC and for the spread change alike; each is settled when its
+    observed effect is below the floor that would make it count
+    (``hsic_floor``, ``spread_floor``: it cannot count at any p-value), or
+    when its gamma-tail p-value from the first refits is below
+    ``clear_below`` (significant after a correction over fewer than 10^5
+    tests at any allowed alpha, with two orders of magnitude to spare for
+    the error of a gamma fitted to ``first`` draws) or above ``clear_above``
+    (the default is five times alpha = 0.05; the caller passes its own).
+    The remaining refits run only when one of the two is not settled.
+    When both observed effects are below their floors before any refit, the
+    decision is settled already and only ``negligible`` refits run, for the
+    reported p-values.
+    """
+
+    first: int = 50
+    negligible: int = 20
+    hsic_floor: float = 0.0
+    spread_floor: float = 0.0
+    clear_below: float = 1e-8
+    clear_above: float = 0.25
+
+    def settled(self, effect: float, p_value: float | None, floor: float) -> bool:
+        return effect < floor or p_value is None or p_value < self.clear_below or p_value > self.clear_above
 
 
 @dataclass(frozen=True)
@@ -198,7 +232,7 @@ def _check_whole(label: str, value, least: int) -> int:
 
 def residual_independence(y, design, tested=None, calibration: str = "bootstrap", replicates: int = 200,
                           n_features: int = 40, exact_max_n: int = 2000, max_n: int = 20000,
-                          seed: int = 0) -> ResidualIndependence:
+                          seed: int = 0, early_stop: EarlyStop | None = None) -> ResidualIndependence:
     """Is the least-squares residual of y on [1, design] independent of the tested columns?
 
     H0: y = c + design b + e with e independent of the design (then of any
@@ -226,7 +260,9 @@ def residual_independence(y, design, tested=None, calibration: str = "bootstrap"
       p = (1 + #{T* >= T}) / (1 + B); ``smooth_p_value`` is the tail of a
       gamma matched to the mean and variance of the B joint statistics,
       for decisions after a correction over many tests, where 1 / (1 + B)
-      is too coarse.
+      is too coarse.  With ``early_stop``, the refits stop after the
+      first batch once the decision they feed is settled (see
+      :class:`EarlyStop`); ``replicates`` then records how many ran.
     * ``"first-order"``: per column,
       ``hsic(..., residual_design=design)``, the gamma null corrected by a
       first-order expansion; joint p-value by Bonferroni over the columns.
@@ -249,7 +285,7 @@ def residual_independence(y, design, tested=None, calibration: str = "bootstrap"
     residual = ols(D, yv).residuals
     if calibration != "bootstrap":
         return _gamma_calibrated(residual, D, T, calibration, n_features, exact_max_n, max_n, seed)
-    return _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed)
+    return _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed, early_stop)
 
 
 def _gamma_calibrated(residual, D, T, calibration, n_features, exact_max_n, max_n, seed) -> ResidualIndependence:
@@ -277,7 +313,8 @@ def _standardised_columns(V: np.ndarray) -> np.ndarray:
     return centred / np.where(sd > 0, sd, 1.0)
 
 
-def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed) -> ResidualIndependence:
+def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
+                          early_stop: EarlyStop | None = None) -> ResidualIndependence:
     from preflight.checks.independence import (
         _features_and_derivative_mean,
         _median_bandwidth,
@@ -303,7 +340,7 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed) -
     phis = [_features_and_derivative_mean(c, w)[0] for c, w in zip(columns, omegas)]
     psi = _features_and_derivative_mean(ys, omega_y)[0]
     k = len(phis)
-    phi_all = np.concatenate(phis, axis=1)
+    phi_all = _reduced_features(phis)
     observed = _column_statistics(phi_all, _raw_features(ys[:, None], omega_y), k, m)[:, 0]
     norms_x = [float(np.einsum("ij,ij->", c, c)) for c in ((f.T @ f).astype(np.float64) / m for f in phis)]
     c_yy = (psi.T @ psi).astype(np.float64) / m
@@ -317,14 +354,26 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed) -
     spread_boot = np.empty(replicates)
     boot = np.empty((k, replicates))
     chunk = max(1, min(replicates, int(4e6 // (m * 2 * n_features))))
-    for start in range(0, replicates, chunk):
-        b = min(chunk, replicates - start)
+    pause = replicates
+    if early_stop is not None:
+        negligible = max(effects) < early_stop.hsic_floor and spread_observed < early_stop.spread_floor
+        pause = min(replicates, early_stop.negligible if negligible else early_stop.first)
+        if negligible:
+            replicates = pause
+    done = 0
+    while done < replicates:
+        b = min(chunk, replicates - done, pause - done if done < pause else replicates)
         draws = centred[rng.integers(0, n, size=(n, b))]
         draws -= draws.mean(axis=0)
         draws -= basis @ (basis.T @ draws)
-        boot[:, start:start + b] = _column_statistics(phi_all, _raw_features(
+        boot[:, done:done + b] = _column_statistics(phi_all, _raw_features(
             _standardised_columns(draws[rows]), omega_y), k, m)
-        spread_boot[start:start + b] = _spread_r2(draws[rows], squares_basis)
+        spread_boot[done:done + b] = _spread_r2(draws[rows], squares_basis)
+        done += b
+        if done == pause and early_stop is not None and _settled(
+                early_stop, observed, boot[:, :done], max(effects), spread_observed, spread_boot[:done]):
+            break
+    boot, spread_boot, replicates = boot[:, :done], spread_boot[:done], done
     means = boot.mean(axis=1)
     means = np.where(means > 0, means, 1.0)
     joint, joint_boot = float((observed / means).sum()), (boot / means[:, None]).sum(axis=0)
@@ -343,8 +392,40 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed) -
         column_p_values=column_p, column_effects=effects, calibration="bootstrap", replicates=replicates,
         smooth_p_value=smooth, spread=spread,
         note=(f"random-Fourier-feature HSIC ({n_features} frequencies) per tested column on {m} of {n} rows; "
-              f"null from {replicates} residual-bootstrap refits on all rows (Sen and Sen 2014)"),
+              f"null from {replicates} residual-bootstrap refits on all rows (Sen and Sen 2014)"
+              + ("" if early_stop is None or replicates > early_stop.first else
+                 ", stopped once the decision was settled")),
     )
+
+
+def _settled(stop: EarlyStop, observed, boot, effect, spread_observed, spread_boot) -> bool:
+    """Whether neither the joint HSIC nor the spread change can change its decision with more refits."""
+    means = boot.mean(axis=1)
+    means = np.where(means > 0, means, 1.0)
+    joint_p = _gamma_tail(float((observed / means).sum()), (boot / means[:, None]).sum(axis=0))
+    spread_p = _gamma_tail(spread_observed, spread_boot)
+    return (stop.settled(effect, joint_p, stop.hsic_floor)
+            and stop.settled(spread_observed, spread_p, stop.spread_floor))
+
+
+def _reduced_features(phis: list[np.ndarray]) -> np.ndarray:
+    """Each tested column's centred features on their numerical column space, side by side (m, k * r).
+
+    The statistic is m * ||phi^T psi / m||_F^2; with phi^T phi = V L V^T it
+    equals the same with phi replaced by phi V (rotation), and the
+    directions whose eigenvalue is below 1e-10 of the largest add less than
+    that share of it, below float32 round-off.  Features of one column span
+    about 20 directions of their 2F, which makes every bootstrap product
+    that much cheaper.  Columns are padded with zeros to a common width.
+    """
+    reduced = []
+    for phi in phis:
+        values, vectors = np.linalg.eigh((phi.T @ phi).astype(np.float64))
+        keep = values > 1e-10 * max(float(values[-1]), 0.0)
+        keep[-1] = True
+        reduced.append(phi @ vectors[:, keep].astype(np.float32))
+    width = max(r.shape[1] for r in reduced)
+    return np.concatenate([np.pad(r, ((0, 0), (0, width - r.shape[1]))) for r in reduced], axis=1)
 
 
 def _gamma_tail(observed: float, draws: np.ndarray) -> float | None:
@@ -443,7 +524,7 @@ def _spread_checks(test: ResidualIndependence, residual: np.ndarray, regressor: 
 def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float = 0.05, min_effect: float = 0.0,
                calibration: str = "bootstrap", replicates: int = 200, n_features: int = 40,
                exact_max_n: int = 2000, max_n: int = 20000, seed: int = 0,
-               min_spread_effect: float | None = None) -> EdgeJudgement:
+               min_spread_effect: float | None = None, early_stop: EarlyStop | None = None) -> EdgeJudgement:
     """Orient the adjacent pair i - j from their structural equations.
 
     Z = (parents(i) | parents(j)) minus {i, j}: the other parents of either
@@ -456,7 +537,8 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
     (p < ``alpha`` and effect >= ``min_effect``), and the Hyvärinen-Smith
     likelihood ratio of (u_i, u_j) is positive; the mirror for j -> i;
     undetermined otherwise.  No multiplicity correction here: the caller's
-    evidence layer owns it.
+    evidence layer owns it.  ``early_stop`` (bootstrap only) lets each
+    test stop its refits once its decision is settled.
 
     References: Hyvärinen and Smith (2013), JMLR 14 (likelihood ratio);
     Shimizu et al. (2006) (identifiability); Sen and Sen (2014)
@@ -479,7 +561,8 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
 
     def test(y: np.ndarray, design: np.ndarray, tested: np.ndarray, test_seed: int) -> ResidualIndependence:
         return residual_independence(y, design, tested=tested, calibration=calibration, replicates=replicates,
-                                     n_features=n_features, exact_max_n=exact_max_n, max_n=max_n, seed=test_seed)
+                                     n_features=n_features, exact_max_n=exact_max_n, max_n=max_n, seed=test_seed,
+                                     early_stop=early_stop)
 
     forward = test(X[:, j], X[:, [i, *Z]], u_i, seed)
     backward = test(X[:, i], X[:, [j, *Z]], u_j, seed + 1)

@@ -56,22 +56,27 @@ def ols(X: np.ndarray, y: np.ndarray, intercept: bool = True) -> LinearFit:
     if intercept:
         x_mean = X.mean(axis=0)
         y_mean = y.mean()
-        Xc = X - x_mean
         yc = y - y_mean
     else:
         x_mean = np.zeros(X.shape[1])
         y_mean = 0.0
-        Xc, yc = X, y
-    scale = np.sqrt((Xc**2).sum(axis=0))
-    scale[scale == 0] = 1.0
-    if Xc.shape[1]:
+        yc = y
+    if X.shape[1]:
         from scipy.linalg import lstsq
 
+        # One centred, column-scaled copy (LAPACK takes another): a tall design is not held four times.
+        scaled = np.empty(X.shape, order="F")
+        np.subtract(X, x_mean, out=scaled)
+        scale = np.sqrt(np.einsum("ij,ij->j", scaled, scaled))
+        scale[scale == 0] = 1.0
+        scaled /= scale
         # A relative cutoff so exact collinearity (a binary column and its
         # square) is seen as rank deficiency instead of fitted through round-off.
-        beta_scaled, _, rank, _ = lstsq(Xc / scale, yc, cond=1e-10, lapack_driver="gelsy", check_finite=False)
+        beta_scaled, _, rank, _ = lstsq(scaled, yc, cond=1e-10, lapack_driver="gelsy", check_finite=False,
+                                        overwrite_a=True)
+        del scaled
         beta = beta_scaled / scale
-        fitted_c = Xc @ beta
+        fitted_c = _centred_product(X, x_mean, beta)
     else:
         beta = np.zeros(0)
         rank = 0
@@ -87,6 +92,20 @@ def ols(X: np.ndarray, y: np.ndarray, intercept: bool = True) -> LinearFit:
         tss = float(y @ y)
     rss = float(residuals @ residuals)
     return LinearFit(coef=coef, residuals=residuals, rss=rss, tss=tss, n=n, rank=int(rank))
+
+
+_PRODUCT_ROWS = 65536
+"""Rows per block of :func:`_centred_product`."""
+
+
+def _centred_product(X: np.ndarray, x_mean: np.ndarray, beta: np.ndarray) -> np.ndarray:
+    """(X - x_mean) @ beta in blocks of rows: the centred design is never held whole, and centring before the
+    product keeps the digits that X @ beta - x_mean @ beta would cancel (NIST Longley)."""
+    out = np.empty(X.shape[0])
+    for start in range(0, X.shape[0], _PRODUCT_ROWS):
+        block = slice(start, start + _PRODUCT_ROWS)
+        out[block] = (X[block] - x_mean) @ beta
+    return out
 
 
 def coefficient_standard_errors(X: np.ndarray, fit: LinearFit, intercept: bool = True) -> np.ndarray:
@@ -166,15 +185,22 @@ def full_rank_columns(X: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
     X = np.asarray(X, dtype=np.float64)
     if X.ndim == 1:
         X = X[:, None]
-    centred = X - X.mean(axis=0)
-    norms = np.sqrt((centred**2).sum(axis=0))
+    # Centred and scaled in one column-major array that the QR overwrites, so a tall design is held twice at
+    # most (the caller's and this one), not four times.
+    unit = np.empty(X.shape, order="F")
+    np.subtract(X, X.mean(axis=0), out=unit)
+    norms = np.sqrt(np.einsum("ij,ij->j", unit, unit))
     scale = norms.max() if norms.size else 0.0
     candidates = np.flatnonzero(norms > tolerance * max(scale, np.finfo(float).tiny))
     if candidates.size == 0:
         return X[:, :0]
+    if candidates.size < X.shape[1]:
+        unit = np.asfortranarray(unit[:, candidates])
+    unit /= norms[candidates]
     # mode="raw" runs the same pivoted factorisation as "economic" and
     # returns the same R and pivots, without forming the unused Q.
-    _, r, pivots = qr(centred[:, candidates] / norms[candidates], mode="raw", pivoting=True)
+    _, r, pivots = qr(unit, mode="raw", pivoting=True, overwrite_a=True)
+    del unit
     diagonal = np.abs(np.diag(r))
     kept = pivots[: int(np.sum(diagonal > tolerance * diagonal[0]))]
     return X[:, np.sort(candidates[kept])]

@@ -172,8 +172,10 @@ def _full_rank_columns_with_q(X, tolerance=1e-10):
     """The selection as first written: pivoted QR in "economic" mode, which also forms Q."""
     from scipy.linalg import qr
 
-    centred = X - X.mean(axis=0)
-    norms = np.sqrt((centred**2).sum(axis=0))
+    # The norms summed as full_rank_columns sums them (column-major): a near-tie such as z and z + 1e-12 noise
+    # is then broken the same way, and the comparison is of the two factorisation modes alone.
+    centred = np.asfortranarray(X - X.mean(axis=0))
+    norms = np.sqrt(np.einsum("ij,ij->j", centred, centred))
     candidates = np.flatnonzero(norms > tolerance * max(norms.max(), np.finfo(float).tiny))
     if candidates.size == 0:
         return X[:, :0]

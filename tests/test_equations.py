@@ -8,7 +8,7 @@ import statsmodels.api as sm
 from scipy import stats
 
 from preflight.checks.independence import hsic_rff
-from preflight.equations import equation_checks, fit_equations, judge_edge, residual_independence
+from preflight.equations import EarlyStop, equation_checks, fit_equations, judge_edge, residual_independence
 from preflight.errors import InputError
 from preflight.fit import ols
 
@@ -99,6 +99,54 @@ def test_bootstrap_detects_noise_whose_spread_follows_the_regressor():
     assert result.p_value < 0.05
     # The gamma matched to the bootstrap reaches below the 1 / (1 + B) floor of the counted p-value.
     assert result.smooth_p_value is not None and result.smooth_p_value < 1 / 100
+
+
+def test_reduced_features_leave_every_column_statistic_unchanged():
+    # The bootstrap products use each column's features rotated onto their numerical column space;
+    # m * ||phi^T psi / m||^2 must be the same number as with the full features, column by column.
+    from preflight.checks.independence import _features_and_derivative_mean
+    from preflight.equations import _column_statistics, _raw_features, _reduced_features
+
+    rng = np.random.default_rng(12)
+    m = 3000
+    columns = [_skewed(rng, m), _arcsine(rng, m), rng.standard_normal(m)]
+    columns = [(c - c.mean()) / c.std() for c in columns]
+    phis = [_features_and_derivative_mean(c, rng.standard_normal(40))[0] for c in columns]
+    residuals = np.column_stack([columns[0] ** 2 + rng.standard_normal(m), rng.standard_normal(m)])
+    features = _raw_features(residuals, rng.standard_normal(40))
+    full = _column_statistics(np.concatenate(phis, axis=1), features, 3, m)
+    reduced_phi = _reduced_features(phis)
+    assert reduced_phi.shape[1] < 3 * 80
+    np.testing.assert_allclose(_column_statistics(reduced_phi, features, 3, m), full, rtol=1e-4)
+    assert full[0, 0] > 10 * full[0, 1]  # the dependent residual is seen through the reduced features too
+
+
+def test_early_stop_keeps_the_decision_and_runs_fewer_refits():
+    rng = np.random.default_rng(13)
+    n = 2000
+    x = _skewed(rng, n)
+    independent = 0.8 * x + _skewed(rng, n)
+    stop = EarlyStop(hsic_floor=0.002, spread_floor=0.005)
+    # The causal direction: no material effect, so only the refits for the reported p-value run.
+    forward = residual_independence(independent, x, replicates=200, seed=1, early_stop=stop)
+    assert forward.effect < 0.002 and forward.replicates == stop.negligible
+    assert "settled" in forward.note
+    # The anti-causal direction: a clear dependence, settled after the first look.
+    backward = residual_independence(x, independent, replicates=200, seed=1, early_stop=stop)
+    full = residual_independence(x, independent, replicates=200, seed=1)
+    assert backward.replicates == stop.first and full.replicates == 200
+    assert backward.smooth_p_value < stop.clear_below and full.smooth_p_value < 1e-6
+    assert backward.column_statistics == full.column_statistics  # the observed statistic does not depend on B
+
+
+def test_early_stop_runs_every_refit_when_the_answer_is_close():
+    # An effect above its floor with a p-value in the undecided band cannot stop early.
+    stop = EarlyStop(first=50, hsic_floor=0.0, spread_floor=0.0, clear_below=0.0, clear_above=1.0)
+    rng = np.random.default_rng(14)
+    x = _skewed(rng, 800)
+    y = 0.5 * x + _arcsine(rng, 800)
+    result = residual_independence(y, x, replicates=120, seed=2, early_stop=stop)
+    assert result.replicates == 120
 
 
 @pytest.mark.parametrize("calibration", ["none", "first-order"])
