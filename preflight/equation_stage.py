@@ -51,10 +51,6 @@ BOOTSTRAP_REPLICATES = 200
 bootstrap), which resolves the tail a Holm correction over many edges needs; the counted p-value cannot go
 below 1 / (1 + B)."""
 
-BOOTSTRAP_FIRST_REPLICATES = 50
-"""Refits after which a test whose decision is already settled stops (:class:`preflight.equations.EarlyStop`):
-an effect below its floor, or a gamma-tail p-value far from any threshold."""
-
 
 def trusted(equations: dict[int, tuple[Tagged, ...]], p: int, policy: Policy) -> frozenset[int]:
     """The variables whose equation holds up: no parents, or linear and homoscedastic (adjusted as the
@@ -96,8 +92,9 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
     from preflight.equations import EarlyStop, judge_edge
 
     i, j = pair
-    early_stop = EarlyStop(first=BOOTSTRAP_FIRST_REPLICATES, hsic_floor=policy.dependence_min_hsic,
-                           spread_floor=policy.confounding_spread_min_r2, clear_above=min(1.0, 5 * policy.alpha))
+    # The refits of each test stop once its decision is settled (the looks at 20 and 50 refits: EarlyStop).
+    early_stop = EarlyStop(hsic_floor=policy.dependence_min_hsic, spread_floor=policy.confounding_spread_min_r2,
+                           clear_above=min(1.0, 5 * policy.alpha))
     judgement = judge_edge(X, i, j, parents, alpha=policy.alpha, calibration="bootstrap",
                            replicates=BOOTSTRAP_REPLICATES, n_features=policy.hsic_features,
                            exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,

@@ -165,6 +165,11 @@ class EarlyStop:
     clear_below: float = 1e-8
     clear_above: float = 0.25
 
+    def first_look(self, hsic_effect: float, spread_effect: float, replicates: int) -> int:
+        """Refits to run before deciding whether to go on."""
+        negligible = hsic_effect < self.hsic_floor and spread_effect < self.spread_floor
+        return min(replicates, self.negligible if negligible else self.first)
+
     def settled(self, effect: float, p_value: float | None, floor: float) -> bool:
         return effect < floor or p_value is None or p_value < self.clear_below or p_value > self.clear_above
 
@@ -354,29 +359,26 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
     spread_boot = np.empty(replicates)
     boot = np.empty((k, replicates))
     chunk = max(1, min(replicates, int(4e6 // (m * 2 * n_features))))
-    pause = replicates
-    if early_stop is not None:
-        negligible = max(effects) < early_stop.hsic_floor and spread_observed < early_stop.spread_floor
-        pause = min(replicates, early_stop.negligible if negligible else early_stop.first)
-        if negligible:
-            replicates = pause
-    done = 0
-    while done < replicates:
-        b = min(chunk, replicates - done, pause - done if done < pause else replicates)
-        draws = centred[rng.integers(0, n, size=(n, b))]
-        draws -= draws.mean(axis=0)
-        draws -= basis @ (basis.T @ draws)
-        boot[:, done:done + b] = _column_statistics(phi_all, _raw_features(
-            _standardised_columns(draws[rows]), omega_y), k, m)
-        spread_boot[done:done + b] = _spread_r2(draws[rows], squares_basis)
-        done += b
-        if done == pause and early_stop is not None and _settled(
-                early_stop, observed, boot[:, :done], max(effects), spread_observed, spread_boot[:done]):
-            break
-    boot, spread_boot, replicates = boot[:, :done], spread_boot[:done], done
-    means = boot.mean(axis=1)
-    means = np.where(means > 0, means, 1.0)
-    joint, joint_boot = float((observed / means).sum()), (boot / means[:, None]).sum(axis=0)
+
+    def refit(start: int, stop: int) -> None:
+        for low in range(start, stop, chunk):
+            b = min(chunk, stop - low)
+            draws = centred[rng.integers(0, n, size=(n, b))]
+            draws -= draws.mean(axis=0)
+            draws -= basis @ (basis.T @ draws)
+            boot[:, low:low + b] = _column_statistics(phi_all, _raw_features(
+                _standardised_columns(draws[rows]), omega_y), k, m)
+            spread_boot[low:low + b] = _spread_r2(draws[rows], squares_basis)
+
+    first_look = replicates if early_stop is None else early_stop.first_look(max(effects), spread_observed, replicates)
+    refit(0, first_look)
+    stopped = first_look < replicates and early_stop is not None and _settled(
+        early_stop, observed, boot[:, :first_look], max(effects), spread_observed, spread_boot[:first_look])
+    if stopped:
+        boot, spread_boot, replicates = boot[:, :first_look], spread_boot[:first_look], first_look
+    else:
+        refit(first_look, replicates)
+    joint, joint_boot = _joint(observed, boot)
     column_p = tuple(float((1 + np.count_nonzero(boot[c] >= observed[c])) / (1 + replicates)) for c in range(k))
     smooth = _gamma_tail(joint, joint_boot)
     spread_p = _gamma_tail(spread_observed, spread_boot)
@@ -393,19 +395,24 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
         smooth_p_value=smooth, spread=spread,
         note=(f"random-Fourier-feature HSIC ({n_features} frequencies) per tested column on {m} of {n} rows; "
               f"null from {replicates} residual-bootstrap refits on all rows (Sen and Sen 2014)"
-              + ("" if early_stop is None or replicates > early_stop.first else
-                 ", stopped once the decision was settled")),
+              + (", stopped once the decision was settled" if stopped else "")),
     )
 
 
 def _settled(stop: EarlyStop, observed, boot, effect, spread_observed, spread_boot) -> bool:
     """Whether neither the joint HSIC nor the spread change can change its decision with more refits."""
-    means = boot.mean(axis=1)
-    means = np.where(means > 0, means, 1.0)
-    joint_p = _gamma_tail(float((observed / means).sum()), (boot / means[:, None]).sum(axis=0))
+    joint_p = _gamma_tail(*_joint(observed, boot))
     spread_p = _gamma_tail(spread_observed, spread_boot)
     return (stop.settled(effect, joint_p, stop.hsic_floor)
             and stop.settled(spread_observed, spread_p, stop.spread_floor))
+
+
+def _joint(observed: np.ndarray, boot: np.ndarray) -> tuple[float, np.ndarray]:
+    """The joint statistic and its bootstrap draws: each column's statistic divided by its bootstrap mean,
+    summed over the tested columns."""
+    means = boot.mean(axis=1)
+    means = np.where(means > 0, means, 1.0)
+    return float((observed / means).sum()), (boot / means[:, None]).sum(axis=0)
 
 
 def _reduced_features(phis: list[np.ndarray]) -> np.ndarray:

@@ -65,9 +65,7 @@ def ols(X: np.ndarray, y: np.ndarray, intercept: bool = True) -> LinearFit:
         from scipy.linalg import lstsq
 
         # One centred, column-scaled copy (LAPACK takes another): a tall design is not held four times.
-        scaled = np.empty(X.shape, order="F")
-        np.subtract(X, x_mean, out=scaled)
-        scale = np.sqrt(np.einsum("ij,ij->j", scaled, scaled))
+        scaled, scale = _centred_columns(X, x_mean)
         scale[scale == 0] = 1.0
         scaled /= scale
         # A relative cutoff so exact collinearity (a binary column and its
@@ -92,6 +90,14 @@ def ols(X: np.ndarray, y: np.ndarray, intercept: bool = True) -> LinearFit:
         tss = float(y @ y)
     rss = float(residuals @ residuals)
     return LinearFit(coef=coef, residuals=residuals, rss=rss, tss=tss, n=n, rank=int(rank))
+
+
+def _centred_columns(X: np.ndarray, mean: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """X - mean as a new column-major array (for LAPACK to overwrite without a copy of its own) and the norms
+    of its columns."""
+    centred = np.empty(X.shape, order="F")
+    np.subtract(X, mean, out=centred)
+    return centred, np.sqrt(np.einsum("ij,ij->j", centred, centred))
 
 
 _PRODUCT_ROWS = 65536
@@ -187,9 +193,7 @@ def full_rank_columns(X: np.ndarray, tolerance: float = 1e-10) -> np.ndarray:
         X = X[:, None]
     # Centred and scaled in one column-major array that the QR overwrites, so a tall design is held twice at
     # most (the caller's and this one), not four times.
-    unit = np.empty(X.shape, order="F")
-    np.subtract(X, X.mean(axis=0), out=unit)
-    norms = np.sqrt(np.einsum("ij,ij->j", unit, unit))
+    unit, norms = _centred_columns(X, X.mean(axis=0))
     scale = norms.max() if norms.size else 0.0
     candidates = np.flatnonzero(norms > tolerance * max(scale, np.finfo(float).tiny))
     if candidates.size == 0:
