@@ -425,8 +425,9 @@ _WORKER: dict[str, Any] = {}
 """The table of a worker process, set once by :func:`_init_worker`; the main process never writes it."""
 
 
-def _pair_battery_in_worker(task: PairTask, policy: Policy, plot_rows: np.ndarray | None) -> PairBattery:
-    return _pair_battery(_WORKER["X"], _WORKER["names"], task, policy, plot_rows)
+def _pair_batteries_in_worker(tasks: list[PairTask], policy: Policy,
+                              plot_rows: np.ndarray | None) -> list[PairBattery]:
+    return [_pair_battery(_WORKER["X"], _WORKER["names"], task, policy, plot_rows) for task in tasks]
 
 
 def _edge_task_in_worker(pair: tuple[int, int], parents, policy: Policy):
@@ -552,11 +553,18 @@ def _run_batteries(table: Table, tasks: Sequence[PairTask], progress: Progress, 
             progress("pair battery", done, len(heavy))
         return cast("list[PairBattery]", results)  # every slot is filled by now
     chunk = max(1, len(heavy) // (8 * jobs))
-    in_worker = functools.partial(_pair_battery_in_worker, policy=policy, plot_rows=rows)
-    for k, result in zip(heavy, pool.map(in_worker, [tasks[k] for k in heavy], chunksize=chunk)):
-        results[k] = result
-        done += 1
-        progress("pair battery", done, len(heavy))
+    # Submitted in chunks rather than through Executor.map: map cancels its
+    # pending futures when an interruption unwinds it, and the executor's
+    # manager thread (CPython 3.11) then fails on those cancelled futures
+    # while the stopped pool is torn down, printing a traceback.
+    in_worker = functools.partial(_pair_batteries_in_worker, policy=policy, plot_rows=rows)
+    chunks = [heavy[start:start + chunk] for start in range(0, len(heavy), chunk)]
+    futures = [pool.submit(in_worker, [tasks[k] for k in ks]) for ks in chunks]
+    for ks, future in zip(chunks, futures):
+        for k, result in zip(ks, future.result()):
+            results[k] = result
+            done += 1
+            progress("pair battery", done, len(heavy))
     return cast("list[PairBattery]", results)  # every slot is filled by now
 
 

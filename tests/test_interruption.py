@@ -256,3 +256,30 @@ def test_an_interruption_swallowed_by_python_is_sent_again():
     proc = subprocess.run([sys.executable, "-c", script], capture_output=True, env=_env(), timeout=60)
     assert proc.stdout.decode().splitlines() == ["swallowed", "sent again: SIGTERM"]
     assert proc.stderr == b""
+
+
+def test_interruption_during_the_pooled_pair_batteries_prints_nothing_from_the_pool(tmp_path, slow_table):
+    # The interruption lands deterministically while most pair batteries are
+    # still queued in the workers: the caller's progress callback raises it
+    # when the first result comes back.  Stopping the pool must not leave the
+    # executor's own thread failing on cancelled work (a traceback on stderr).
+    if (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1) < 2:
+        pytest.skip("needs two cores for a process pool")
+    script = textwrap.dedent(f"""
+        import preflight
+
+        def interrupt_after_first_battery(stage, done, total):
+            if stage == "pair battery" and done >= 1 and total > 8:
+                raise KeyboardInterrupt
+
+        try:
+            preflight.check({slow_table!r}, jobs=2, keep_samples=False, progress=interrupt_after_first_battery)
+        except KeyboardInterrupt:
+            print("caught")
+        else:
+            print("not interrupted")
+    """)
+    proc = subprocess.run([sys.executable, "-c", script], capture_output=True, env=_env(), cwd=str(tmp_path),
+                          timeout=EXIT_TIMEOUT + 120)
+    assert proc.stdout.decode().strip() == "caught", proc.stderr.decode()
+    assert proc.stderr.decode() == ""
