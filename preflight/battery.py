@@ -458,7 +458,8 @@ def _orientations(battery: PairBattery, checks: list[Tagged], gaussian: dict[str
     (HSIC, and no material change of spread): the same standard under which
     two dependent directions raise ``confounding-suspected``, so a hidden
     common cause whose only trace in one direction is a changing spread is
-    not read as a curve.
+    not read as a curve.  The other direction must still be rejected by
+    HSIC: a spread change alone there does not make an orientation.
     """
     lr = battery.likelihood_ratio or 0.0
     lingam = "undetermined"
@@ -470,10 +471,11 @@ def _orientations(battery: PairBattery, checks: list[Tagged], gaussian: dict[str
     anm = "undetermined"
     anm_checks = {role: _of(checks, "additive-noise independence", role) for role in ("forward", "reverse")}
     if anm_checks["forward"] and anm_checks["reverse"]:
-        anm_indep = {role: not _spline_residual_dependent(checks, role, policy) for role in anm_checks}
-        if anm_indep["forward"] and not anm_indep["reverse"]:
+        clean = {role: not _spline_residual_dependent(checks, role, policy) for role in anm_checks}
+        rejected = {role: any(significant(r, policy.alpha) for r in anm_checks[role]) for role in anm_checks}
+        if clean["forward"] and rejected["reverse"]:
             anm = "x->y"
-        elif anm_indep["reverse"] and not anm_indep["forward"]:
+        elif clean["reverse"] and rejected["forward"]:
             anm = "y->x"
     return lingam, anm
 
