@@ -450,8 +450,17 @@ def with_noise_dependence(findings: PairFindings, noise_dependence: CheckResult,
 
 
 def _orientations(battery: PairBattery, checks: list[Tagged], gaussian: dict[str, bool],
-                  indep: dict[str, bool], alpha: float) -> tuple[str, str]:
-    """(linear non-Gaussian orientation, additive-noise orientation), each ``x->y``, ``y->x`` or undetermined."""
+                  indep: dict[str, bool], policy: Policy) -> tuple[str, str]:
+    """(linear non-Gaussian orientation, additive-noise orientation), each ``x->y``, ``y->x`` or undetermined.
+
+    An additive-noise direction needs a spline residual that is independent
+    of its regressor by both standards of :func:`_spline_residual_dependent`
+    (HSIC, and no material change of spread): the same standard under which
+    two dependent directions raise ``confounding-suspected``, so a hidden
+    common cause whose only trace in one direction is a changing spread is
+    not read as a curve.  The other direction must still be rejected by
+    HSIC: a spread change alone there does not make an orientation.
+    """
     lr = battery.likelihood_ratio or 0.0
     lingam = "undetermined"
     if not (gaussian["forward"] and gaussian["reverse"]):
@@ -462,10 +471,11 @@ def _orientations(battery: PairBattery, checks: list[Tagged], gaussian: dict[str
     anm = "undetermined"
     anm_checks = {role: _of(checks, "additive-noise independence", role) for role in ("forward", "reverse")}
     if anm_checks["forward"] and anm_checks["reverse"]:
-        anm_indep = {role: not any(significant(r, alpha) for r in anm_checks[role]) for role in anm_checks}
-        if anm_indep["forward"] and not anm_indep["reverse"]:
+        clean = {role: not _spline_residual_dependent(checks, role, policy) for role in anm_checks}
+        rejected = {role: any(significant(r, policy.alpha) for r in anm_checks[role]) for role in anm_checks}
+        if clean["forward"] and rejected["reverse"]:
             anm = "x->y"
-        elif anm_indep["reverse"] and not anm_indep["forward"]:
+        elif clean["reverse"] and rejected["forward"]:
             anm = "y->x"
     return lingam, anm
 
@@ -479,7 +489,7 @@ def _judge_adjacent(battery: PairBattery, checks: list[Tagged], policy: Policy,
              for role in ("forward", "reverse")}
     gaussian = {role: not nongaussian_under(_of(checks, "noise normality", role), policy)
                 for role in ("forward", "reverse")}
-    lingam, anm = _orientations(battery, checks, gaussian, indep, alpha)
+    lingam, anm = _orientations(battery, checks, gaussian, indep, policy)
 
     # The favoured direction is the one whose residual the evidence says is
     # the noise: the orientation if there is one, else the one that looks
@@ -537,12 +547,17 @@ def _judge_adjacent(battery: PairBattery, checks: list[Tagged], policy: Policy,
 
 
 def _no_additive_noise_model(checks: list[Tagged], policy: Policy) -> bool:
-    """Both spline residuals depend on their regressors: HSIC, or a material change of spread."""
-    def dependent(role: str) -> bool:
-        anm = _of(checks, "additive-noise independence", role)
-        return bool(anm) and (any(significant(r, policy.alpha) for r in anm) or _material_departure(
-            _spread(checks, role, spline=True), policy.alpha, policy.confounding_spread_min_r2))
-    return dependent("forward") and dependent("reverse")
+    """Both spline residuals depend on their regressors."""
+    return _spline_residual_dependent(checks, "forward", policy) and _spline_residual_dependent(
+        checks, "reverse", policy)
+
+
+def _spline_residual_dependent(checks: list[Tagged], role: str, policy: Policy) -> bool:
+    """The spline residual of one direction depends on its regressor: HSIC, or a material change of spread
+    (``confounding_spread_min_r2``).  False when the direction has no additive-noise checks."""
+    anm = _of(checks, "additive-noise independence", role)
+    return bool(anm) and (any(significant(r, policy.alpha) for r in anm) or _material_departure(
+        _spread(checks, role, spline=True), policy.alpha, policy.confounding_spread_min_r2))
 
 
 def _judged_checks(checks: list[Tagged], policy: Policy, favoured: str, spread_role: str,
