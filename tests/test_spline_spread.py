@@ -75,3 +75,41 @@ def test_tanh_pair_with_changing_spread_raises_heteroscedastic():
     replicates = 40
     results = _pool_map(_flags, [(5000 + k, "changing") for k in range(replicates)])
     assert sum("nonlinear" in flags and "heteroscedastic" in flags for flags in results) >= 0.90 * replicates, results
+
+
+def _hidden_cause_pair(seed: int, n: int = 2000):
+    """Two variables linked only by a skewed hidden cause, each with its own Gaussian noise."""
+    from preflight.scenarios import SKEWED_FAMILIES, _noise
+
+    rng = np.random.default_rng(seed)
+    hidden = _noise(rng, SKEWED_FAMILIES[seed % len(SKEWED_FAMILIES)], n)
+    a, b = rng.uniform(0.8, 1.5, 2) * rng.choice([-1.0, 1.0], 2)
+    return a * hidden + rng.standard_normal(n), b * hidden + rng.standard_normal(n)
+
+
+@pytest.mark.parametrize("seed, spline_direction", [(2, "x on y"), (17, "y on x")])
+def test_a_spline_residual_whose_spread_changes_does_not_orient_a_hidden_cause_pair(seed, spline_direction):
+    # Ground truth: neither variable causes the other, so any orientation is
+    # wrong.  In these draws the spline residual of one direction passes HSIC
+    # but its spread changes materially (the hidden cause's conditional spread
+    # given the regressor); counted as dependence, it leaves no additive-noise
+    # model in either direction, which is the confounding signal.
+    policy = Policy()
+    findings = judged_pair(*_hidden_cause_pair(seed))
+    spread = [r for r in findings.checks
+              if r.identity is not None and r.identity.variant == SPLINE_RESIDUAL
+              and r.identity.family == "variance" and r.name.endswith(f"({spline_direction})")]
+    hsic = [r for r in findings.checks if r.name == f"hsic of spline residual ({spline_direction})"]
+    assert hsic and all(r.p_adjusted >= policy.alpha for r in hsic), hsic
+    assert any(r.p_adjusted < policy.alpha and r.effect >= policy.confounding_spread_min_r2 for r in spread), spread
+    assert findings.anm_orientation == "undetermined"
+    assert "confounding-suspected" in findings.flags
+
+
+@pytest.mark.parametrize("seed", [7001, 7022, 7023, 7038])
+def test_a_curve_with_constant_spread_keeps_its_additive_noise_orientation(seed):
+    rng = np.random.default_rng(seed)
+    x = rng.uniform(-np.sqrt(3), np.sqrt(3), 1000)
+    findings = judged_pair(x, np.tanh(2 * x) + 0.3 * rng.normal(size=1000))
+    assert findings.anm_orientation == "x->y"
+    assert "confounding-suspected" not in findings.flags
