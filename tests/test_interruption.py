@@ -21,6 +21,8 @@ import time
 import numpy as np
 import pytest
 
+from preflight.pipeline import cores_available
+
 from conftest import ROOT
 
 pytestmark = pytest.mark.skipif(not os.path.isdir("/proc/self/task"), reason="observes processes through /proc")
@@ -29,6 +31,8 @@ START_TIMEOUT = 90.0  # seconds for the workers to appear, generous on a busy ma
 EXIT_TIMEOUT = 30.0   # seconds for the main process to exit after the signal
 GONE_TIMEOUT = 10.0   # seconds for every worker to be gone after that
 SHUTDOWN_LIMIT = 10.0  # seconds from SIGINT / SIGTERM to exit (about 0.5 s on a quiet machine)
+
+needs_two_cores = pytest.mark.skipif(cores_available() < 2, reason="needs two cores for a process pool")
 
 
 def _stat(pid: int) -> tuple[str, int] | None:
@@ -108,8 +112,7 @@ def _digest(path: str) -> str:
         return hashlib.sha256(handle.read()).hexdigest()
 
 
-@pytest.mark.skipif((len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1) < 2,
-                    reason="needs two cores for a process pool")
+@needs_two_cores
 @pytest.mark.parametrize("signame, whole_group, expected", [
     ("SIGINT", True, 130),    # Ctrl-C in a terminal: the whole process group gets it
     ("SIGINT", False, 130),
@@ -162,11 +165,10 @@ def test_interrupted_check_stops_its_workers_and_leaves_nothing(tmp_path, slow_t
     assert _digest(slow_table) == before
 
 
+@needs_two_cores
 def test_api_check_leaves_no_worker_on_keyboard_interrupt(tmp_path, slow_table):
     # preflight.check() from Python: the caller's own KeyboardInterrupt unwinds the
     # run, the pool is stopped before it reaches the caller, workers print nothing.
-    if (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1) < 2:
-        pytest.skip("needs two cores for a process pool")
     script = textwrap.dedent(f"""
         import os, sys
         import preflight
@@ -258,13 +260,12 @@ def test_an_interruption_swallowed_by_python_is_sent_again():
     assert proc.stderr == b""
 
 
+@needs_two_cores
 def test_interruption_during_the_pooled_pair_batteries_prints_nothing_from_the_pool(tmp_path, slow_table):
     # The interruption lands deterministically while most pair batteries are
     # still queued in the workers: the caller's progress callback raises it
     # when the first result comes back.  Stopping the pool must not leave the
     # executor's own thread failing on cancelled work (a traceback on stderr).
-    if (len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1) < 2:
-        pytest.skip("needs two cores for a process pool")
     script = textwrap.dedent(f"""
         import preflight
 
