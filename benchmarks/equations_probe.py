@@ -20,12 +20,18 @@ on one core; run under ``nice -n 19`` on a shared machine):
                 m-spacing entropy estimator.
   confounding   noise dependence between two equations' residuals for a pair
                 with a hidden common cause against clean pairs.
+  tail-model    the smooth p-value's tail: the residual bootstrap's draws of the
+                joint HSIC and of the spread change under a true linear model,
+                fitted by a gamma (what the package uses), a log-normal and a
+                Pearson type III; rejection rates at small levels, on the
+                observed statistics and leaving one draw out.
 
 Usage:
   python benchmarks/equations_probe.py calibration --n 1000 5000 --replicates 200
   python benchmarks/equations_probe.py edges --n 2000 --tables 12
   python benchmarks/equations_probe.py equation-flags --n 2000 10000 50000 --tables 20
   python benchmarks/equations_probe.py confounding --n 2000 10000 --replicates 100
+  python benchmarks/equations_probe.py tail-model --n 1000 2000 --replicates 200
 """
 
 from __future__ import annotations
@@ -387,9 +393,131 @@ def likelihood_ratio_table(ns, replicates: int, seed: int) -> str:
     return "\n".join(lines)
 
 
+# --------------------------------------------------------------------------- tail model of the smooth p-value
+
+TAIL_LEVELS = (0.05, 0.01, 0.005, 0.002, 0.001)
+
+
+def _tail_models() -> dict:
+    """Tail probability of an observed statistic under a distribution fitted to bootstrap draws (scipy's)."""
+    from scipy import stats
+
+    def gamma(t, d):
+        mean, var = d.mean(), d.var()
+        return stats.gamma.sf(t, mean * mean / var, scale=var / mean)
+
+    def log_normal(t, d):
+        logs = np.log(d)
+        return stats.lognorm.sf(t, logs.std(), scale=np.exp(logs.mean()))
+
+    def pearson_iii(t, d):
+        return stats.pearson3.sf(t, stats.skew(d), loc=d.mean(), scale=d.std())
+
+    return {"gamma (package)": gamma, "log-normal": log_normal, "Pearson III": pearson_iii}
+
+
+def _bootstrap_draws(y: np.ndarray, design: np.ndarray, tested: np.ndarray, bootstrap_replicates: int,
+                     seed: int) -> dict:
+    """The observed statistic and the bootstrap draws behind the joint HSIC and the spread change of one test,
+    as :func:`residual_independence` passes them to its tail fit (recorded on the way)."""
+    from unittest import mock
+
+    import preflight.equations as equations
+
+    seen: list = []
+    real = equations._gamma_tail
+
+    def recording(observed, draws):
+        seen.append((float(observed), np.array(draws, dtype=float)))
+        return real(observed, draws)
+
+    with mock.patch.object(equations, "_gamma_tail", recording):
+        residual_independence(y, design, tested=tested, replicates=bootstrap_replicates, seed=seed)
+    (joint, joint_draws), (spread, spread_draws) = seen[-2:]
+    return {"joint HSIC": (joint, joint_draws), "spread change": (spread, spread_draws)}
+
+
+def _tail_cases(n: int, replicates: int, bootstrap_replicates: int, seed: int):
+    """Null cases from two generators: this script's own (1-3 correlated parents, the families of
+    ``FAMILIES``) and the validity study's several-parents tables (every true edge's forward test with the
+    true parents, noise families drawn per variable)."""
+    from preflight.fit import residualize
+    from preflight.scenarios import simulate
+
+    for r in range(replicates):
+        rng = np.random.default_rng([seed, n, r])
+        if r % 2 == 0:
+            k = 1 + r % 3
+            parents = np.empty((n, k))
+            for c in range(k):
+                parents[:, c] = noise(rng, FAMILIES[(r + c + 1) % len(FAMILIES)], n) + (
+                    0.8 * parents[:, c - 1] if c else 0.0)
+            y = parents @ np.array([weight(rng) for _ in range(k)]) + noise(rng, FAMILIES[r % len(FAMILIES)], n)
+            yield "own generator", _bootstrap_draws(y, parents, parents[:, :1], bootstrap_replicates, r)
+        else:
+            s = simulate("linear-non-gaussian", "several-parents", 5 + r % 7, n, "wide-per-variable",
+                         seed=int(rng.integers(2**31)))
+            dag = s.dag.astype(bool)
+            edges = [(i, j) for i in range(dag.shape[0]) for j in range(dag.shape[0]) if dag[i, j]]
+            i, j = edges[int(rng.integers(len(edges)))]
+            others = [c for c in np.flatnonzero(dag[:, j]) if c != i]
+            partial = residualize(s.data[:, i], s.data[:, others] if others else None)
+            yield "validity tables", _bootstrap_draws(s.data[:, j], s.data[:, [i, *others]], partial,
+                                                       bootstrap_replicates, r)
+
+
+def tail_model_table(ns, replicates: int, bootstrap_replicates: int, seed: int) -> list[dict]:
+    models = _tail_models()
+    rows = []
+    for n in ns:
+        started = time.time()
+        counts: Counter = Counter()
+        totals: Counter = Counter()
+        rng = np.random.default_rng([seed, n, 99])
+        for generator, statistics in _tail_cases(n, replicates, bootstrap_replicates, seed):
+            for statistic, (observed, draws) in statistics.items():
+                left_out = rng.choice(draws.shape[0], 25, replace=False)
+                for model, tail in models.items():
+                    p_observed = tail(observed, draws)
+                    p_left_out = [tail(draws[q], np.delete(draws, q)) for q in left_out]
+                    p_fifty = [tail(draws[q], rng.choice(np.delete(draws, q), 50, replace=False)) for q in left_out]
+                    for level in TAIL_LEVELS:
+                        for group in (generator, "all"):
+                            key = f"{statistic}|{model}|{group}|{level}"
+                            counts["observed|" + key] += int(p_observed < level)
+                            counts["left out|" + key] += sum(int(p < level) for p in p_left_out)
+                            counts["left out, 50 draws|" + key] += sum(int(p < level) for p in p_fifty)
+                for group in (generator, "all"):
+                    totals[f"observed|{statistic}|{group}"] += 1
+                    totals[f"left out|{statistic}|{group}"] += len(left_out)
+        rows.append({"n": n, "replicates": replicates, "seconds": round(time.time() - started, 1),
+                     "counts": dict(counts), "totals": dict(totals)})
+        print(json.dumps({"n": n, "seconds": rows[-1]["seconds"]}), file=sys.stderr, flush=True)
+    return rows
+
+
+def tail_model_markdown(rows: list[dict]) -> str:
+    levels = " | ".join(f"< {level}" for level in TAIL_LEVELS)
+    lines = [f"| n | statistic | tail model | p-values | {levels} |",
+             "|---|---|---|---|" + "---|" * len(TAIL_LEVELS)]
+    for row in rows:
+        c, t = row["counts"], row["totals"]
+        for statistic in ("joint HSIC", "spread change"):
+            for model in _tail_models():
+                for kind, total_key in (("observed", "observed"), ("left out", "left out"),
+                                        ("left out, 50 draws", "left out")):
+                    total = t.get(f"{total_key}|{statistic}|all", 0)
+                    cells = [f"{100 * c.get(f'{kind}|{statistic}|{model}|all|{level}', 0) / max(total, 1):.2f} %"
+                             for level in TAIL_LEVELS]
+                    lines.append(f"| {row['n']} | {statistic} | {model} | {kind} ({total}) | "
+                                 + " | ".join(cells) + " |")
+    return "\n".join(lines)
+
+
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("part", choices=("calibration", "edges", "equation-flags", "confounding", "likelihood-ratio"))
+    parser.add_argument("part", choices=("calibration", "edges", "equation-flags", "confounding", "likelihood-ratio",
+                                                   "tail-model"))
     parser.add_argument("--n", type=int, nargs="+", default=[1000])
     parser.add_argument("--replicates", type=int, default=200)
     parser.add_argument("--bootstrap", type=int, default=200, help="residual-bootstrap replicates per test")
@@ -411,6 +539,9 @@ def main(argv=None) -> int:
     elif args.part == "equation-flags":
         result = equation_flags_table(args.n, args.tables, args.seed)
         print(equation_flags_markdown(result))
+    elif args.part == "tail-model":
+        result = tail_model_table(args.n, args.replicates, args.bootstrap, args.seed)
+        print(tail_model_markdown(result))
     elif args.part == "likelihood-ratio":
         result = likelihood_ratio_table(args.n, args.replicates, args.seed)
         print(result)
