@@ -30,6 +30,8 @@ EDGE_FAMILY = "equation residual independence"
 SPREAD_FAMILY = "equation residual spread"
 LINEARITY_FAMILY = "equation linearity"
 VARIANCE_FAMILY = "equation variance"
+PARTIAL_FAMILY = "equation partial correlation"
+"""The partial correlation of an adjacent pair given the other parents of both, one test per adjacent pair."""
 EQUATION_FAMILIES = (LINEARITY_FAMILY, VARIANCE_FAMILY)
 RESIDUAL_BOOTSTRAP = "residual bootstrap"
 """The null of an HSIC inside an equation: simulated by the residual bootstrap (Sen and Sen 2014)."""
@@ -129,6 +131,11 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
                         note=f"on the partial residuals given {given}")
     tagged.append(Tagged(None, "pair", ratio.identified(
         scope="pair", variables=variables, test="pairwise-likelihood-ratio", variant=STRUCTURAL_EQUATION)))
+    if judgement.partial_correlation is not None and judgement.partial_correlation.p_value is not None:
+        partial = replace(judgement.partial_correlation, note=f"of the partial residuals given {given}")
+        tagged.append(Tagged(PARTIAL_FAMILY, "pair", partial.identified(
+            scope="pair", family=PARTIAL_FAMILY, variables=variables, test="pearson", variant=STRUCTURAL_EQUATION,
+            name=f"partial correlation in the equations ({names[i]}, {names[j]} given their other parents)")))
     return tuple(tagged)
 
 
@@ -183,7 +190,8 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     if any(any(departs(list(equations.get(v, [])), policy)) for v in pair):
         return findings
     dependent = {role: _dependent([t for t in edge if t.role == role], policy) for role in ("forward", "reverse")}
-    (ratio,) = [t for t in edge if t.role == "pair"]
+    (ratio,) = [t for t in edge if t.role == "pair" and t.family is None]
+    partial = [t for t in edge if t.family == PARTIAL_FAMILY]
     gaussian = "gaussian-noise" in findings.flags
     lr = float(ratio.result.statistic)
     lingam = "undetermined"
@@ -204,8 +212,11 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
         facts.add("residuals-dependent-both-ways")
     elif powered and not (dependent["forward"] or dependent["reverse"] or gaussian):
         facts.add("independent-both-ways")
+    if partial and not significant(partial[0].result, policy.alpha):
+        facts.add("no-partial-correlation")
     judged = tuple(replace(t.result, passed=None if _explained_by(t.role, lingam) else not _counts(t, policy))
-                   for t in edge if t.family is not None) + (ratio.result,)
+                   for t in edge if t.family not in (None, PARTIAL_FAMILY)) + (ratio.result,)
+    judged += tuple(t.result for t in partial)
     return replace(findings, lingam_orientation=lingam, anm_orientation="undetermined", flags=tuple(flags),
                    facts=frozenset(facts | set(flags)), checks=findings.checks + judged)
 

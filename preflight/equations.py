@@ -25,11 +25,15 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from preflight.checks._validate import as_matrix, as_vector, same_length
 from preflight.errors import InputError
+
+if TYPE_CHECKING:
+    from preflight.results import CheckResult
 
 CALIBRATIONS = ("bootstrap", "first-order", "none")
 
@@ -503,6 +507,9 @@ class EdgeJudgement:
     :func:`_spread_checks`)."""
     backward_spread: tuple = ()
     """The same for the backward residual against j's partial residual."""
+    partial_correlation: CheckResult | None = None
+    """Fisher z test of the correlation of the partial residuals u_i and u_j (the partial correlation of i
+    and j given the other parents; a ``CheckResult``), or None when the rows are too few for it."""
 
 
 def _rejects(result, alpha: float, min_effect: float) -> bool:
@@ -545,12 +552,18 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
     likelihood ratio of (u_i, u_j) is positive; the mirror for j -> i;
     undetermined otherwise.  No multiplicity correction here: the caller's
     evidence layer owns it.  ``early_stop`` (bootstrap only) lets each
-    test stop its refits once its decision is settled.
+    test stop its refits once its decision is settled.  Beside the
+    orientation, ``partial_correlation`` tests whether u_i and u_j are
+    correlated at all (H0: the partial correlation of i and j given Z is
+    zero; Fisher z with |Z| degrees of freedom spent): an adjacency that the
+    skeleton search kept but that shows no partial correlation inside the
+    equations has no support there.
 
     References: Hyvärinen and Smith (2013), JMLR 14 (likelihood ratio);
     Shimizu et al. (2006) (identifiability); Sen and Sen (2014)
-    (calibration).
+    (calibration); Fisher (1924) (partial correlation).
     """
+    from preflight.checks.association import pearson_fisher_z
     from preflight.checks.direction import pairwise_likelihood_ratio
     from preflight.fit import residualize
 
@@ -590,6 +603,8 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
         orientation, reason = "undetermined", "residual independent in both directions"
     else:
         orientation, reason = "undetermined", "likelihood ratio disagrees with residual independence"
+    partial = pearson_fisher_z(u_i, u_j, n_conditioning=len(Z)) if X.shape[0] - 3 - len(Z) >= 1 else None
     return EdgeJudgement(orientation=orientation, forward=forward, backward=backward,
                          likelihood_ratio=float(ratio), conditioning=Z, n=X.shape[0], reason=reason,
-                         forward_spread=forward_spread, backward_spread=backward_spread)
+                         forward_spread=forward_spread, backward_spread=backward_spread,
+                         partial_correlation=partial)

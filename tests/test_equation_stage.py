@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 
 import preflight
+from preflight.report.identity import decode
 
 
 def _pair(report) -> dict:
@@ -73,3 +74,32 @@ def test_edge_tests_do_not_depend_on_the_worker_count(monkeypatch):
         report.pop("generated_at")
         report["settings"].pop("jobs")
     assert one == two
+
+
+def test_an_edge_of_a_hypothesised_graph_that_the_equations_do_not_support_is_left_undetermined(tmp_path):
+    # a -> b -> d and a -> c: c and d are correlated through a and b but not given them.  The graph adds
+    # c -> d; the pair battery partials out only the parents c and d share (none) and keeps the association,
+    # while inside the equations (given a and b) the two are uncorrelated, so no rung orients the edge,
+    # not even the class.  The other edges keep their orientation.
+    rng = np.random.default_rng(11)
+    n = 3000
+    a = rng.exponential(size=n) - 1.0
+    b = 0.8 * a + 0.6 * rng.laplace(size=n)
+    c = 0.9 * a + 0.5 * (rng.exponential(size=n) - 1.0)
+    d = 0.7 * b + rng.uniform(-1.2, 1.2, n)
+    graph = tmp_path / "graph.txt"
+    graph.write_text("a -> b\na -> c\nb -> d\nc -> d\n")
+    report = preflight.check(pd.DataFrame({"a": a, "b": b, "c": c, "d": d}), graph=str(graph), jobs=1,
+                             keep_samples=False)
+    pairs = {(p["x"], p["y"]): p for p in report.data["pairs"]}
+    spurious = pairs[("c", "d")]
+    assert spurious["adjacent"] and spurious["orientation"] == "undetermined" and spurious["basis"] is None
+    (partial,) = [k for k in spurious["checks"] if k["name"].startswith("partial correlation in the equations")]
+    assert partial["p_adjusted"] >= 0.05 and abs(partial["effect"]) < 0.05
+    # A saved report's reader recovers the check's fields from its name.
+    assert decode(dict(partial), "pair", ("c", "d")) == partial.identity
+    assert partial.identity.family == "equation partial correlation"
+    assert "edge-without-support-in-equations" in report.data["conclusion"]["rules_fired"]
+    assert report.data["conclusion"]["level"] == "linear-non-gaussian"
+    for key in (("a", "b"), ("a", "c"), ("b", "d")):
+        assert pairs[key]["orientation"] == "x->y", pairs[key]

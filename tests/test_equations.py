@@ -242,3 +242,25 @@ def test_residual_independence_does_not_depend_on_units():
     scaled = residual_independence(1e6 * y - 3.0, X * [1e-3, 250.0] + 7.0, replicates=39, seed=2)
     assert scaled.p_value == base.p_value and scaled.column_p_values == base.column_p_values
     assert scaled.statistic == pytest.approx(base.statistic, rel=1e-6)
+
+
+def test_the_edge_judgement_carries_the_partial_correlation_of_the_partial_residuals():
+    # Reference: the partial correlation as the correlation of the statsmodels OLS residuals on the other
+    # parents (its definition); Fisher (1924) z = atanh(r) sqrt(n - 3 - |Z|), two-sided normal p.
+    import math
+
+    rng = np.random.default_rng(3)
+    n = 800
+    a = rng.exponential(size=n)
+    b = 0.5 * a + rng.laplace(size=n)
+    c = 0.8 * a - 0.6 * b + rng.uniform(-1, 1, n)
+    X = np.column_stack([a, b, c])
+    judgement = judge_edge(X, 1, 2, parents=[(), (0,), (0, 1)], replicates=20)
+    others = sm.add_constant(a)
+    r = float(np.corrcoef(sm.OLS(b, others).fit().resid, sm.OLS(c, others).fit().resid)[0, 1])
+    z = math.atanh(r) * math.sqrt(n - 3 - 1)
+    result = judgement.partial_correlation
+    assert judgement.conditioning == (0,)
+    assert result.effect == pytest.approx(r, rel=1e-9)
+    assert result.statistic == pytest.approx(z, rel=1e-9)
+    assert result.p_value == pytest.approx(2 * stats.norm.sf(abs(z)), rel=1e-7, abs=1e-300)

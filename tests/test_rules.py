@@ -84,3 +84,18 @@ def test_an_edge_too_faint_to_read_limits_itself_and_not_the_table():
     assert outcome.edge_ruled_out[("a", "c")] == frozenset()
     unresolved = faint - {"independent-both-ways"}
     assert evaluate(frozenset(), {}, {("a", "b"): unresolved, ("a", "c"): oriented}, {}).level == "additive-noise"
+
+
+def test_an_edge_without_support_in_its_equations_is_not_oriented_even_by_the_class():
+    oriented = frozenset({"adjacent", "lingam-oriented", "anm-undetermined"})
+    faint = frozenset({"adjacent", "lingam-undetermined", "anm-undetermined", "independent-both-ways"})
+    unsupported = faint | {"no-partial-correlation"}
+    outcome = evaluate(frozenset(), {}, {("a", "b"): unsupported, ("a", "c"): oriented}, {})
+    assert outcome.level == "linear-non-gaussian"
+    assert [f.rule.id for f in outcome.fired] == ["edge-without-support-in-equations"]
+    assert outcome.edge_ruled_out[("a", "b")] == {"linear-non-gaussian", "additive-noise", "equivalence-class"}
+    assert outcome.edge_ruled_out[("a", "c")] == frozenset()
+    # Without the partial correlation's verdict the edge is only too faint to orient, and the class may orient it.
+    outcome = evaluate(frozenset(), {}, {("a", "b"): faint, ("a", "c"): oriented}, {})
+    assert [f.rule.id for f in outcome.fired] == ["direction-too-faint"]
+    assert "equivalence-class" not in outcome.edge_ruled_out[("a", "b")]

@@ -127,6 +127,9 @@ def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
     for first, second in ((a, b), (b, a)):
         if name == f"pairwise likelihood ratio in the equations ({first} -> {second} if > 0)":
             return CheckIdentity("pairwise-likelihood-ratio", None, "pair", pair, variant=STRUCTURAL_EQUATION)
+        if name == f"partial correlation in the equations ({first}, {second} given their other parents)":
+            return CheckIdentity("pearson", "equation partial correlation", "pair", pair,
+                                 variant=STRUCTURAL_EQUATION)
         suffix = f" in the equation ({first} on {second} and its other parents)"
         if name.endswith(suffix):
             test = test_id(name[: -len(suffix)])
