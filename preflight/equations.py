@@ -112,6 +112,15 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
     sets: list[tuple[int, ...]] = [() for _ in range(X.shape[1])]
     sets[target] = tuple(int(i) for i in parents)
     equation = fit_equations(X, sets)[target]
+    if equation.parents and np.ptp(equation.residuals) == 0:
+        # An exact fit to the last bit (a duplicated or derived column) leaves no noise to test; the
+        # collinearity screen reports the cause.
+        from preflight.checks.normality import NORMALITY_TESTS
+
+        names = (*NORMALITY_TESTS, "ramsey reset (equation)", "additive spline f-test (equation)", "breusch-pagan",
+                 "white")
+        return tuple(CheckResult(name=name, statistic=float("nan"), p_value=None, n=X.shape[0],
+                                 note="not computed: the residual is zero (exact linear relation)") for name in names)
     out = list(normality_checks(equation.residuals, seed=seed))
     if not equation.parents:
         return tuple(out)
@@ -172,6 +181,10 @@ class EarlyStop:
 
     def settled(self, effect: float, p_value: float | None, floor: float) -> bool:
         return effect < floor or p_value is None or p_value < self.clear_below or p_value > self.clear_above
+
+
+class DegenerateResidual(InputError):
+    """A residual or a tested column is constant (an exact linear relation): there is nothing to test."""
 
 
 @dataclass(frozen=True)
@@ -335,7 +348,7 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
     m = rows.shape[0]
     standardised = [_standardise(v) for v in (residual[rows], *T[rows].T)]
     if any(v is None for v in standardised):
-        raise InputError("the residual or a tested column is constant: independence is undefined")
+        raise DegenerateResidual("the residual or a tested column is constant: independence is undefined")
     ys, *columns = [v for v in standardised if v is not None]
     # The draw order matches hsic_rff's for one column, so its statistic is the same number.
     sigmas = [_median_bandwidth(c, rng)[0] for c in columns]

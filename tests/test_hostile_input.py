@@ -510,3 +510,24 @@ def test_renderers_escape_markup_in_fields_of_any_type(tmp_path, data):
 
     assert not re.search(r"(?<!\\)<script", render_markdown(Report.from_dict(report)))
     assert "<script>alert" not in render_junit(report)
+
+
+def test_a_column_that_is_an_exact_multiple_of_another_gets_a_report(tmp_path):
+    """b = 2a with one non-zero row in ten: b's equation on a fits exactly, leaving no noise to test.
+
+    The residual is zero to the last bit, which used to reach the normality
+    checks and exit 2 with "x is constant", a message about no column of the table.
+    """
+    rows = 10
+    a = np.zeros(rows)
+    a[0] = 1.0
+    lines = ["a,b,c"] + [f"{v:g},{2 * v:g},{i}" for i, v in enumerate(a)]
+    path = tmp_path / "in.csv"
+    path.write_text("\n".join(lines) + "\n")
+    code, _, err = run_main("check", path, "--min-rows", "10", "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    validate_report(report)
+    equation = [c for v in report["variables"] for c in v["checks"] if "(equation: b on a)" in c["name"]]
+    assert equation and all(c["p_value"] is None and "exact linear relation" in c["note"] for c in equation)
+
