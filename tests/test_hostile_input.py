@@ -531,3 +531,22 @@ def test_a_column_that_is_an_exact_multiple_of_another_gets_a_report(tmp_path):
     equation = [c for v in report["variables"] for c in v["checks"] if "(equation: b on a)" in c["name"]]
     assert equation and all(c["p_value"] is None and "exact linear relation" in c["note"] for c in equation)
 
+
+def test_a_column_that_is_an_exact_function_of_a_two_valued_one_gets_a_report(tmp_path):
+    """c = 10 b - 2, b two-valued: c's structural noise estimate is zero to the last bit.
+
+    It used to reach the noise-shape checks and exit 2 with "x is constant".
+    """
+    a = np.random.default_rng(30).uniform(size=30)
+    b = (a > np.median(a)).astype(float)
+    c = 10.0 * b - 2
+    path = tmp_path / "in.csv"
+    rows = zip(a.tolist(), b.tolist(), c.tolist())
+    path.write_text("a,b,c\n" + "".join(f"{x!r},{y!r},{z!r}\n" for x, y, z in rows))
+    code, _, err = run_main("check", path, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    validate_report(report)
+    (c_entry,) = [v for v in report["variables"] if v["name"] == "c"]
+    noise = [check for check in c_entry["checks"] if "(noise of c)" in check["name"]]
+    assert noise and all(check["p_value"] is None and "exact linear relation" in check["note"] for check in noise)
