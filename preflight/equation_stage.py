@@ -92,6 +92,10 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
     from preflight.equations import DegenerateResidual, EarlyStop, judge_edge
 
     i, j = pair
+    regressors = 1 + len((set(parents[i]) | set(parents[j])) - {i, j})
+    if X.shape[0] < regressors + 8:
+        # Too few rows for the pair's conditioning set (a dense hypothesised graph): the battery's findings stand.
+        return ()
     # The refits of each test stop once its decision is settled (the looks at 20 and 50 refits: EarlyStop).
     early_stop = EarlyStop(hsic_floor=policy.dependence_min_hsic, spread_floor=policy.confounding_spread_min_r2,
                            clear_above=min(1.0, 5 * policy.alpha))

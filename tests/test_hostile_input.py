@@ -550,3 +550,46 @@ def test_a_column_that_is_an_exact_function_of_a_two_valued_one_gets_a_report(tm
     (c_entry,) = [v for v in report["variables"] if v["name"] == "c"]
     noise = [check for check in c_entry["checks"] if "(noise of c)" in check["name"]]
     assert noise and all(check["p_value"] is None and "exact linear relation" in check["note"] for check in noise)
+
+
+def test_a_graph_with_more_parents_than_white_can_take_gets_a_report(tmp_path):
+    """Seven parents at 30 rows: White's auxiliary regression on 35 columns cannot run, the rest of the equation can.
+
+    It used to exit 2 with "the auxiliary regression on 35 columns needs at
+    least 37 observations", which names nothing the user gave.
+    """
+    rng = np.random.default_rng(3)
+    X = rng.uniform(size=(30, 8))
+    X[:, 0] = X[:, 1:].sum(axis=1) + rng.uniform(size=30)
+    path = tmp_path / "in.csv"
+    path.write_text("v0,v1,v2,v3,v4,v5,v6,v7\n" + "".join(",".join(f"{v:.6f}" for v in row) + "\n" for row in X))
+    graph = tmp_path / "g.txt"
+    graph.write_text("".join(f"v{j} -> v0\n" for j in range(1, 8)))
+    code, _, err = run_main("check", path, "--graph", graph, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    validate_report(report)
+    checks = {c["name"].split(" (equation")[0]: c
+              for c in report["variables"][0]["checks"] if "(equation: v0" in c["name"]}
+    assert checks["white"]["p_value"] is None and "needs at least 37 rows" in checks["white"]["note"]
+    assert checks["breusch-pagan"]["p_value"] is not None
+
+
+@pytest.mark.parametrize("parents", [28, 29])
+def test_a_graph_with_nearly_as_many_parents_as_rows_gets_a_report(tmp_path, parents):
+    """28 parents at 30 rows leave too few rows for White's test and the edge tests ("28 regressors need at least
+    36 rows"), 29 for the equation itself ("column 0 has 29 parents and only 30 rows"): each exited 2 naming no
+    column of the table."""
+    X = np.random.default_rng(3).uniform(size=(30, 30))
+    path = tmp_path / "in.csv"
+    path.write_text(",".join(f"v{j}" for j in range(30)) + "\n"
+                    + "".join(",".join(f"{v:.6f}" for v in row) + "\n" for row in X))
+    graph = tmp_path / "g.txt"
+    graph.write_text("".join(f"v{j} -> v0\n" for j in range(1, parents + 1)))
+    code, _, err = run_main("check", path, "--graph", graph, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    validate_report(report)
+    equation = [c for c in report["variables"][0]["checks"] if "(equation: v0" in c["name"]]
+    assert equation and all(c["p_value"] is None and c["note"].startswith("not computed") for c in equation) == (
+        parents == 29)
