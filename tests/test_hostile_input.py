@@ -153,6 +153,16 @@ def _setup(case, tmp_path, data):
         report["input"]["columns"] = ["a", "a", "b"]
         (tmp_path / "bad.json").write_text(json.dumps(report))
         return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "more than once"
+    if case == "13-report-conditioning-not-names":
+        report = _saved_report(tmp_path, data)
+        report["pairs"][0]["conditioning"] = [1]
+        (tmp_path / "bad.json").write_text(json.dumps(report))
+        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "pairs[0].conditioning"
+    if case == "13-report-order-repeats-a-column":
+        report = _saved_report(tmp_path, data)
+        report["structure"]["order"] = ["a", "a", "c"]
+        (tmp_path / "bad.json").write_text(json.dumps(report))
+        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "structure.order"
     if case == "13-report-nested-too-deeply":
         (tmp_path / "bad.json").write_text("[" * 100_000 + "]" * 100_000)
         return ["compare", str(tmp_path / "bad.json"), str(tmp_path / "bad.json")], "nested too deeply"
@@ -195,7 +205,8 @@ REFUSED = ["1-json-is-input", "1-html-relative-path", "1-markdown-hard-link", "1
            "7-header-only-csv-graph", "11-negative-seed", "11-negative-seed-in-policy-file", "12-folder-missing",
            "12-parent-is-a-file", "13-report-missing-key", "13-report-markup-in-number",
            "13-report-not-an-object", "13-report-pair-names-an-unknown-column", "13-report-repeated-column",
-           "13-report-nested-too-deeply", "14-binary-policy", "14-empty-parquet", "17-empty-json-path",
+           "13-report-nested-too-deeply", "13-report-conditioning-not-names", "13-report-order-repeats-a-column",
+           "14-binary-policy", "14-empty-parquet", "17-empty-json-path",
            "17-two-outputs-to-stdout", "19-two-rows", "19-duplicate-parquet-names", "19-large-alpha",
            "19-semicolons", "19-semicolons-decimal-commas"]
 

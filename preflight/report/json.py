@@ -57,8 +57,9 @@ def first_schema_problem(data: Any) -> str | None:
 
 
 def _first_name_problem(data: dict[str, Any]) -> str | None:
-    """The first variable or pair naming a column that ``input.columns`` does not list once (the renderers look
-    every name up there); None when all agree.  Only called on a report that conforms to the schema."""
+    """The first variable, pair or structure entry naming a column that ``input.columns`` does not list once (the
+    renderers look every name up there); None when all agree.  Only called on a report that conforms to the
+    schema, which leaves ``structure`` and ``pairs[].conditioning`` open."""
     from collections import Counter
 
     columns = data["input"]["columns"]
@@ -73,4 +74,25 @@ def _first_name_problem(data: dict[str, Any]) -> str | None:
         for key in ("x", "y"):
             if pair[key] not in known:
                 return f"pairs[{k}].{key}: {pair[key]!r} is not in input.columns"
+        if "conditioning" in pair and not _names_of(pair["conditioning"], known):
+            return f"pairs[{k}].conditioning: not a list of names from input.columns"
+    structure = data.get("structure")
+    if structure is None:
+        return None
+    if not isinstance(structure, dict):
+        return "structure: not an object"
+    for key in ("order", "gaussian_noises"):
+        if key in structure and not _names_of(structure[key], known, distinct=True):
+            return f"structure.{key}: not a list of distinct names from input.columns"
+    parents = structure.get("parents", {})
+    if not isinstance(parents, dict) or not all(
+            child in known and _names_of(given, known, distinct=True) for child, given in parents.items()):
+        return "structure.parents: not a map from names in input.columns to lists of them"
     return None
+
+
+def _names_of(value: Any, known: set[str], distinct: bool = False) -> bool:
+    """Whether ``value`` is a list of names from ``known`` (each once, when ``distinct``)."""
+    if not isinstance(value, list) or not all(isinstance(name, str) and name in known for name in value):
+        return False
+    return not distinct or len(set(value)) == len(value)
