@@ -447,7 +447,8 @@ def _read_toml(path: str) -> dict[str, Any]:
         import tomli as tomllib
     try:
         with open(path, "rb") as handle:
-            return tomllib.load(handle)
+            # "utf-8-sig": a byte order mark, as Windows editors write, is not a TOML error.
+            return tomllib.loads(handle.read().decode("utf-8-sig"))
     except FileNotFoundError:
         raise InputError(f"policy file not found: {path}") from None
     except OSError as exc:

@@ -618,3 +618,13 @@ def test_a_graph_with_nearly_as_many_parents_as_rows_gets_a_report(tmp_path, par
     equation = [c for c in report["variables"][0]["checks"] if "(equation: v0" in c["name"]]
     assert equation and all(c["p_value"] is None and c["note"].startswith("not computed") for c in equation) == (
         parents == 29)
+
+
+def test_a_policy_file_saved_with_a_byte_order_mark_is_read(tmp_path, data):
+    """Editors on Windows save UTF-8 with a byte order mark; it used to read as 'not valid TOML' at line 1, column 1.
+    Tables and graph files accept the mark already."""
+    policy = tmp_path / "p.toml"
+    policy.write_bytes(b"\xef\xbb\xbfalpha = 0.01\n")
+    code, _, err = run_main("check", data, "--policy", policy, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    assert json.loads((tmp_path / "r.json").read_text())["settings"]["alpha"] == 0.01
