@@ -463,11 +463,13 @@ def build_policy(
     overrides: Mapping[str, Any] | None = None,
     policy_file: str | None = None,
     project_dir: str | None = None,
+    overrides_from: str = "the command line",
 ) -> tuple[Policy, dict[str, str]]:
     """Merge defaults, ``[tool.preflight]``, a policy file and overrides.
 
     Returns the policy and, for each key that differs from the default, where
-    its value came from.
+    its value came from.  ``overrides_from`` names the overrides' source in
+    error messages.
     """
     values: dict[str, Any] = {}
     origin: dict[str, str] = {}
@@ -491,6 +493,6 @@ def build_policy(
     for key, value in (overrides or {}).items():
         if value is None:
             continue
-        values[key] = _coerce(key, value, "the command line")
+        values[key] = _coerce(key, value, overrides_from)
         origin[key] = "command line"
     return Policy(**values), origin

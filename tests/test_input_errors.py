@@ -110,3 +110,12 @@ def test_data_that_is_neither_a_path_nor_a_dataframe_is_refused_in_one_sentence(
         preflight.check(data)
     assert "\n" not in str(caught.value)
     assert ("pandas.DataFrame(data)" in str(caught.value)) == isinstance(data, dict)
+
+
+def test_api_settings_errors_name_the_arguments_not_the_command_line(linear_uniform_csv):
+    from preflight.errors import InputError
+
+    with pytest.raises(InputError, match=r"unknown policy key 'signficance' in the arguments of check\(\)"):
+        preflight.check(linear_uniform_csv, signficance=0.1)
+    with pytest.raises(InputError, match=r"'seed' in the arguments of check\(\) needs a whole number"):
+        preflight.check(linear_uniform_csv, seed=True)
