@@ -119,3 +119,12 @@ def test_api_settings_errors_name_the_arguments_not_the_command_line(linear_unif
         preflight.check(linear_uniform_csv, signficance=0.1)
     with pytest.raises(InputError, match=r"'seed' in the arguments of check\(\) needs a whole number"):
         preflight.check(linear_uniform_csv, seed=True)
+
+
+def test_api_columns_given_as_one_string_are_refused_in_one_sentence(linear_uniform_csv):
+    """columns="x,y" used to be read letter by letter: "--columns names ','", a message about no option given."""
+    from preflight.errors import InputError
+
+    for key in ("columns", "exclude"):
+        with pytest.raises(InputError, match=rf"^{key} must be a list of column names, not the string 'x,y'$"):
+            preflight.check(linear_uniform_csv, **{key: "x,y"})
