@@ -475,7 +475,9 @@ def build_policy(
     origin: dict[str, str] = {}
     pyproject = os.path.join(project_dir or os.getcwd(), "pyproject.toml")
     if os.path.isfile(pyproject):
-        table = _read_toml(pyproject).get("tool", {}).get("preflight", {})
+        tool = _read_toml(pyproject).get("tool", {})
+        # A "tool" that is not a table holds no [tool.preflight]: the project's file is not ours to judge.
+        table = tool.get("preflight", {}) if isinstance(tool, dict) else {}
         if not isinstance(table, dict):
             raise InputError(f"[tool.preflight] in {pyproject} must be a table")
         for key, value in table.items():

@@ -128,3 +128,13 @@ def test_api_columns_given_as_one_string_are_refused_in_one_sentence(linear_unif
     for key in ("columns", "exclude"):
         with pytest.raises(InputError, match=rf"^{key} must be a list of column names, not the string 'x,y'$"):
             preflight.check(linear_uniform_csv, **{key: "x,y"})
+
+
+def test_a_pyproject_whose_tool_is_not_a_table_is_no_policy(tmp_path, monkeypatch, linear_uniform_csv):
+    """``tool = 5`` in the working folder's pyproject.toml used to stop every run with exit 3 (AttributeError)."""
+    from preflight.policy import Policy, build_policy
+
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "pyproject.toml").write_text("tool = 5\n")
+    policy, origin = build_policy({})
+    assert origin == {} and policy == Policy()
