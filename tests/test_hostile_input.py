@@ -628,3 +628,20 @@ def test_a_policy_file_saved_with_a_byte_order_mark_is_read(tmp_path, data):
     code, _, err = run_main("check", data, "--policy", policy, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
     assert code in (0, 1), err
     assert json.loads((tmp_path / "r.json").read_text())["settings"]["alpha"] == 0.01
+
+
+def test_one_value_near_the_float_limit_raises_no_numpy_warning(tmp_path, data):
+    """One cell of 1e308 among values near 1: its robust z is beyond the float range, an outlier all the same.
+
+    The division used to print numpy's "RuntimeWarning: overflow" and a line of source code on stderr.
+    """
+    import warnings
+
+    data.write_text(table_text(cells={(5, 1): "1e308"}))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        code, _, err = run_main("check", data, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    assert "outliers" in report["variables"][1]["flags"]
+
