@@ -645,3 +645,12 @@ def test_one_value_near_the_float_limit_raises_no_numpy_warning(tmp_path, data):
     report = json.loads((tmp_path / "r.json").read_text())
     assert "outliers" in report["variables"][1]["flags"]
 
+
+def test_two_values_at_the_float_limit_leave_the_hsic_a_usable_bandwidth(tmp_path, data):
+    """+1e308 and -1e308 among values near 1: standardised, the other values differ by about 1e-308, so the
+    median distance that sets the HSIC bandwidth squared to 0 and the run stopped with exit 3
+    (ZeroDivisionError)."""
+    data.write_text(table_text(cells={(3, 0): "1e308", (4, 0): "-1e308"}))
+    code, _, err = run_main("check", data, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    validate_report(json.loads((tmp_path / "r.json").read_text()))
