@@ -59,7 +59,7 @@ def check(
     Report
     """
     if policy is None:
-        policy, _ = build_policy(settings, policy_file=policy_file)
+        policy, _ = build_policy(settings, policy_file=policy_file, overrides_from="the arguments of check()")
     elif settings:
         from preflight.policy import _coerce
 

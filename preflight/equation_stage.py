@@ -91,17 +91,24 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
     A pure function of its arguments (seeded from the column names), so the
     pairs can run in any process in any order.
     """
-    from preflight.equations import EarlyStop, judge_edge
+    from preflight.equations import DegenerateResidual, EarlyStop, judge_edge
 
     i, j = pair
+    regressors = 1 + len((set(parents[i]) | set(parents[j])) - {i, j})
+    if X.shape[0] < regressors + 8:
+        # Too few rows for the pair's conditioning set (a dense hypothesised graph): the battery's findings stand.
+        return ()
     # The refits of each test stop once its decision is settled (the looks at 20 and 50 refits: EarlyStop).
     early_stop = EarlyStop(hsic_floor=policy.dependence_min_hsic, spread_floor=policy.confounding_spread_min_r2,
                            clear_above=min(1.0, 5 * policy.alpha))
-    judgement = judge_edge(X, i, j, parents, alpha=policy.alpha, calibration="bootstrap",
-                           replicates=BOOTSTRAP_REPLICATES, n_features=policy.hsic_features,
-                           exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
-                           seed=derived_seed(policy.seed, "edge in its equations", names[i], names[j]),
-                           early_stop=early_stop)
+    try:
+        judgement = judge_edge(X, i, j, parents, alpha=policy.alpha, calibration="bootstrap",
+                               replicates=BOOTSTRAP_REPLICATES, n_features=policy.hsic_features,
+                               exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
+                               seed=derived_seed(policy.seed, "edge in its equations", names[i], names[j]),
+                               early_stop=early_stop)
+    except DegenerateResidual:
+        return ()  # an exact linear relation leaves nothing to test: the pair keeps the battery's findings
     given = ", ".join(names[c] for c in judgement.conditioning) or "nothing"
     variables = tuple(sorted((names[i], names[j])))
     tagged = []
@@ -185,7 +192,7 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     additive-noise orientation are dropped: they rest on marginal
     regressions that the child's other parents bend.
     """
-    if not findings.adjacent or edge is None:
+    if not findings.adjacent or not edge:
         return findings
     if any(any(departs(list(equations.get(v, [])), policy)) for v in pair):
         return findings

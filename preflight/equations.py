@@ -115,7 +115,23 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
     target = int(target)
     sets: list[tuple[int, ...]] = [() for _ in range(X.shape[1])]
     sets[target] = tuple(int(i) for i in parents)
+
+    def not_computed(why: str) -> tuple:
+        from preflight.checks.normality import NORMALITY_TESTS
+
+        names = (*NORMALITY_TESTS, "ramsey reset (equation)", "additive spline f-test (equation)", "breusch-pagan",
+                 "white")
+        return tuple(CheckResult(name=name, statistic=float("nan"), p_value=None, n=X.shape[0],
+                                 note=f"not computed: {why}") for name in names)
+
+    if sets[target] and X.shape[0] <= len(sets[target]) + 1:
+        # A hypothesised graph can give a variable as many parents as it likes.
+        return not_computed(f"{len(sets[target])} parents on {X.shape[0]} rows leave no residual degrees of freedom")
     equation = fit_equations(X, sets)[target]
+    if equation.parents and np.ptp(equation.residuals) == 0:
+        # An exact fit to the last bit (a duplicated or derived column) leaves no noise to test; the
+        # collinearity screen reports the cause.
+        return not_computed("the residual is zero (exact linear relation)")
     out = list(normality_checks(equation.residuals, seed=seed))
     if not equation.parents:
         return tuple(out)
@@ -134,7 +150,16 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
         f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, fit.rss, fit.rank, n)
         out.append(CheckResult(name=name, statistic=f_stat, p_value=p_value, effect=fit.r_squared - linear.r_squared,
                                effect_name="gain in R-squared", n=n, note=f"{what}; F({df_num}, {df_den})"))
-    out += [breusch_pagan(equation.residuals, P), white_test(equation.residuals, P)]
+    out.append(breusch_pagan(equation.residuals, P))
+    k = P.shape[1]
+    columns = k + k * (k + 1) // 2  # levels, squares and cross-products
+    if n < columns + 2:
+        # Many parents (a hypothesised graph can give any number) on few rows: the rest of the equation stands.
+        out.append(CheckResult(name="white", statistic=float("nan"), p_value=None, n=n,
+                               note=f"not computed: the auxiliary regression on {columns} columns needs at least "
+                                    f"{columns + 2} rows, got {n}"))
+    else:
+        out.append(white_test(equation.residuals, P))
     return tuple(out)
 
 
@@ -176,6 +201,10 @@ class EarlyStop:
 
     def settled(self, effect: float, p_value: float | None, floor: float) -> bool:
         return effect < floor or p_value is None or p_value < self.clear_below or p_value > self.clear_above
+
+
+class DegenerateResidual(InputError):
+    """A residual or a tested column is constant (an exact linear relation): there is nothing to test."""
 
 
 @dataclass(frozen=True)
@@ -339,7 +368,7 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
     m = rows.shape[0]
     standardised = [_standardise(v) for v in (residual[rows], *T[rows].T)]
     if any(v is None for v in standardised):
-        raise InputError("the residual or a tested column is constant: independence is undefined")
+        raise DegenerateResidual("the residual or a tested column is constant: independence is undefined")
     ys, *columns = [v for v in standardised if v is not None]
     # The draw order matches hsic_rff's for one column, so its statistic is the same number.
     sigmas = [_median_bandwidth(c, rng)[0] for c in columns]

@@ -347,6 +347,9 @@ def _read_frame(source, sep: str | None):
 def _chosen_columns(names: list[str], columns: list[str] | None, exclude: list[str] | None,
                     label: str) -> tuple[list[str], list[str] | None]:
     """(the columns to analyse, in order; the columns asked for by name, or None)."""
+    for key, listed in (("columns", columns), ("exclude", exclude)):
+        if isinstance(listed, str):  # the API's lists; a string would be read letter by letter
+            raise InputError(f"{key} must be a list of column names, not the string {listed!r}")
     asked = [c.strip() for c in columns] if columns else None
     for option, listed in (("--columns", asked), ("--exclude", exclude)):
         for name in listed or []:

@@ -270,7 +270,7 @@ def _edge_tests(table: Table, parents, pairs, futures: list | None, progress: Pr
 def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, progress: Progress,
                      exponents=None) -> Structure:
     from preflight import structure
-    from preflight.checks.normality import normality_checks
+    from preflight.checks.normality import NORMALITY_TESTS, normality_checks
 
     p = X.shape[1]
     # Counted in candidate pairs scored, which is what each step costs.
@@ -284,7 +284,14 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
     progress("noise shape", 0, p)
     for j, name in enumerate(names):
         seed = derived_seed(policy.seed, "noise", name)
-        for result in normality_checks(noise[:, j], max_n=policy.shapiro_max_n, seed=seed):
+        if np.ptp(noise[:, j]) == 0:
+            # A column its parents fit to the last bit has no noise to test; the collinearity screen says why.
+            results = tuple(CheckResult(name=test, statistic=float("nan"), p_value=None, n=X.shape[0],
+                                        note="not computed: the noise estimate is zero (exact linear relation)")
+                            for test in NORMALITY_TESTS)
+        else:
+            results = normality_checks(noise[:, j], max_n=policy.shapiro_max_n, seed=seed)
+        for result in results:
             variable_checks[j].append(Tagged("noise normality", "variable", result.identified(
                 scope="variable", family="noise normality", variables=(name,), variant=NOISE_ESTIMATE,
                 name=f"{result.name} (noise of {name})")))
@@ -684,7 +691,8 @@ def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence:
         tagged = evidence.variable_checks[name]
         if structure is not None:
             noise_norm = [t.result for t in tagged if t.family == "noise normality"]
-            if not nongaussian_under(noise_norm, policy):
+            # No noise at all (an exact linear relation) is neither a Gaussian nor a non-Gaussian component.
+            if np.ptp(structure.noise[:, j]) > 0 and not nongaussian_under(noise_norm, policy):
                 gaussian_noises.append(name)
             tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], name, policy))]
         flags = list(screen.variable_flags[name])
@@ -934,6 +942,11 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
     from preflight import structure
     from preflight.checks.normality import shape
 
+    if np.ptp(noise_column) == 0:
+        return CheckResult(name=f"rows needed (noise of {name})", statistic=float("nan"), p_value=None,
+                           n=int(noise_column.shape[0]),
+                           note="not computed: the noise estimate is zero (exact linear relation)").identified(
+            scope="variable", variables=(name,), test="rows-needed", variant=NOISE_ESTIMATE)
     s = shape(noise_column)
     needed = structure.rows_needed(s.skewness, s.excess_kurtosis, alpha=policy.alpha)
     return CheckResult(

@@ -447,7 +447,8 @@ def _read_toml(path: str) -> dict[str, Any]:
         import tomli as tomllib
     try:
         with open(path, "rb") as handle:
-            return tomllib.load(handle)
+            # "utf-8-sig": a byte order mark, as Windows editors write, is not a TOML error.
+            return tomllib.loads(handle.read().decode("utf-8-sig"))
     except FileNotFoundError:
         raise InputError(f"policy file not found: {path}") from None
     except OSError as exc:
@@ -462,17 +463,21 @@ def build_policy(
     overrides: Mapping[str, Any] | None = None,
     policy_file: str | None = None,
     project_dir: str | None = None,
+    overrides_from: str = "the command line",
 ) -> tuple[Policy, dict[str, str]]:
     """Merge defaults, ``[tool.preflight]``, a policy file and overrides.
 
     Returns the policy and, for each key that differs from the default, where
-    its value came from.
+    its value came from.  ``overrides_from`` names the overrides' source in
+    error messages.
     """
     values: dict[str, Any] = {}
     origin: dict[str, str] = {}
     pyproject = os.path.join(project_dir or os.getcwd(), "pyproject.toml")
     if os.path.isfile(pyproject):
-        table = _read_toml(pyproject).get("tool", {}).get("preflight", {})
+        tool = _read_toml(pyproject).get("tool", {})
+        # A "tool" that is not a table holds no [tool.preflight]: the project's file is not ours to judge.
+        table = tool.get("preflight", {}) if isinstance(tool, dict) else {}
         if not isinstance(table, dict):
             raise InputError(f"[tool.preflight] in {pyproject} must be a table")
         for key, value in table.items():
@@ -490,6 +495,6 @@ def build_policy(
     for key, value in (overrides or {}).items():
         if value is None:
             continue
-        values[key] = _coerce(key, value, "the command line")
+        values[key] = _coerce(key, value, overrides_from)
         origin[key] = "command line"
     return Policy(**values), origin

@@ -123,11 +123,14 @@ def robust_z(x: np.ndarray) -> tuple[np.ndarray, str]:
     median = float(np.median(x))
     deviations = np.abs(x - median)
     mad = float(np.median(deviations))
-    if mad > 0:
-        return deviations / (MAD_TO_SD * mad), "1.4826 MAD"
-    mean_ad = float(deviations.mean())
-    # Only a constant column has mean_ad == 0, and constant columns are not screened.
-    return deviations / (MEAN_AD_TO_SD * mean_ad), "1.2533 mean absolute deviation (MAD is 0)"
+    # A value near the float limit among small ones has a robust z beyond the float range: inf, an outlier all
+    # the same, and no numpy warning on the user's terminal.
+    with np.errstate(over="ignore"):
+        if mad > 0:
+            return deviations / (MAD_TO_SD * mad), "1.4826 MAD"
+        mean_ad = float(deviations.mean())
+        # Only a constant column has mean_ad == 0, and constant columns are not screened.
+        return deviations / (MEAN_AD_TO_SD * mean_ad), "1.2533 mean absolute deviation (MAD is 0)"
 
 
 def outlier_check(x: np.ndarray, policy: Policy) -> CheckResult:

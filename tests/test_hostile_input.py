@@ -143,6 +143,29 @@ def _setup(case, tmp_path, data):
     if case == "13-report-not-an-object":
         (tmp_path / "bad.json").write_text("[1, 2]")
         return ["report", str(tmp_path / "bad.json"), "--markdown", str(tmp_path / "r.md")], "not a preflight report"
+    if case == "13-report-pair-names-an-unknown-column":
+        report = _saved_report(tmp_path, data)
+        report["pairs"][0]["x"] = "kiln"
+        (tmp_path / "bad.json").write_text(json.dumps(report))
+        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "pairs[0].x: 'kiln'"
+    if case == "13-report-repeated-column":
+        report = _saved_report(tmp_path, data)
+        report["input"]["columns"] = ["a", "a", "b"]
+        (tmp_path / "bad.json").write_text(json.dumps(report))
+        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "more than once"
+    if case == "13-report-conditioning-not-names":
+        report = _saved_report(tmp_path, data)
+        report["pairs"][0]["conditioning"] = [1]
+        (tmp_path / "bad.json").write_text(json.dumps(report))
+        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "pairs[0].conditioning"
+    if case == "13-report-order-repeats-a-column":
+        report = _saved_report(tmp_path, data)
+        report["structure"]["order"] = ["a", "a", "c"]
+        (tmp_path / "bad.json").write_text(json.dumps(report))
+        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "structure.order"
+    if case == "13-report-nested-too-deeply":
+        (tmp_path / "bad.json").write_text("[" * 100_000 + "]" * 100_000)
+        return ["compare", str(tmp_path / "bad.json"), str(tmp_path / "bad.json")], "nested too deeply"
     if case == "14-binary-policy":
         (tmp_path / "p.toml").write_bytes(bytes(range(256)) * 4)
         return ["check", d, "--policy", str(tmp_path / "p.toml")], "policy file"
@@ -181,7 +204,9 @@ REFUSED = ["1-json-is-input", "1-html-relative-path", "1-markdown-hard-link", "1
            "6-stray-token-with-missing-error", "7-fail-on-typo", "7-empty-graph", "7-comments-only-graph",
            "7-header-only-csv-graph", "11-negative-seed", "11-negative-seed-in-policy-file", "12-folder-missing",
            "12-parent-is-a-file", "13-report-missing-key", "13-report-markup-in-number",
-           "13-report-not-an-object", "14-binary-policy", "14-empty-parquet", "17-empty-json-path",
+           "13-report-not-an-object", "13-report-pair-names-an-unknown-column", "13-report-repeated-column",
+           "13-report-nested-too-deeply", "13-report-conditioning-not-names", "13-report-order-repeats-a-column",
+           "14-binary-policy", "14-empty-parquet", "17-empty-json-path",
            "17-two-outputs-to-stdout", "19-two-rows", "19-duplicate-parquet-names", "19-large-alpha",
            "19-semicolons", "19-semicolons-decimal-commas"]
 
@@ -510,3 +535,122 @@ def test_renderers_escape_markup_in_fields_of_any_type(tmp_path, data):
 
     assert not re.search(r"(?<!\\)<script", render_markdown(Report.from_dict(report)))
     assert "<script>alert" not in render_junit(report)
+
+
+def test_a_column_that_is_an_exact_multiple_of_another_gets_a_report(tmp_path):
+    """b = 2a with one non-zero row in ten: b's equation on a fits exactly, leaving no noise to test.
+
+    The residual is zero to the last bit, which used to reach the normality
+    checks and exit 2 with "x is constant", a message about no column of the table.
+    """
+    rows = 10
+    a = np.zeros(rows)
+    a[0] = 1.0
+    lines = ["a,b,c"] + [f"{v:g},{2 * v:g},{i}" for i, v in enumerate(a)]
+    path = tmp_path / "in.csv"
+    path.write_text("\n".join(lines) + "\n")
+    code, _, err = run_main("check", path, "--min-rows", "10", "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    validate_report(report)
+    equation = [c for v in report["variables"] for c in v["checks"] if "(equation: b on a)" in c["name"]]
+    assert equation and all(c["p_value"] is None and "exact linear relation" in c["note"] for c in equation)
+
+
+def test_a_column_that_is_an_exact_function_of_a_two_valued_one_gets_a_report(tmp_path):
+    """c = 10 b - 2, b two-valued: c's structural noise estimate is zero to the last bit.
+
+    It used to reach the noise-shape checks and exit 2 with "x is constant".
+    """
+    a = np.random.default_rng(30).uniform(size=30)
+    b = (a > np.median(a)).astype(float)
+    c = 10.0 * b - 2
+    path = tmp_path / "in.csv"
+    rows = zip(a.tolist(), b.tolist(), c.tolist())
+    path.write_text("a,b,c\n" + "".join(f"{x!r},{y!r},{z!r}\n" for x, y, z in rows))
+    code, _, err = run_main("check", path, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    validate_report(report)
+    (c_entry,) = [v for v in report["variables"] if v["name"] == "c"]
+    noise = [check for check in c_entry["checks"] if "(noise of c)" in check["name"]]
+    assert noise and all(check["p_value"] is None and "exact linear relation" in check["note"] for check in noise)
+
+
+def test_a_graph_with_more_parents_than_white_can_take_gets_a_report(tmp_path):
+    """Seven parents at 30 rows: White's auxiliary regression on 35 columns cannot run, the rest of the equation can.
+
+    It used to exit 2 with "the auxiliary regression on 35 columns needs at
+    least 37 observations", which names nothing the user gave.
+    """
+    rng = np.random.default_rng(3)
+    X = rng.uniform(size=(30, 8))
+    X[:, 0] = X[:, 1:].sum(axis=1) + rng.uniform(size=30)
+    path = tmp_path / "in.csv"
+    path.write_text("v0,v1,v2,v3,v4,v5,v6,v7\n" + "".join(",".join(f"{v:.6f}" for v in row) + "\n" for row in X))
+    graph = tmp_path / "g.txt"
+    graph.write_text("".join(f"v{j} -> v0\n" for j in range(1, 8)))
+    code, _, err = run_main("check", path, "--graph", graph, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    validate_report(report)
+    checks = {c["name"].split(" (equation")[0]: c
+              for c in report["variables"][0]["checks"] if "(equation: v0" in c["name"]}
+    assert checks["white"]["p_value"] is None and "needs at least 37 rows" in checks["white"]["note"]
+    assert checks["breusch-pagan"]["p_value"] is not None
+
+
+@pytest.mark.parametrize("parents", [28, 29])
+def test_a_graph_with_nearly_as_many_parents_as_rows_gets_a_report(tmp_path, parents):
+    """28 parents at 30 rows leave too few rows for White's test and the edge tests ("28 regressors need at least
+    36 rows"), 29 for the equation itself ("column 0 has 29 parents and only 30 rows"): each exited 2 naming no
+    column of the table."""
+    X = np.random.default_rng(3).uniform(size=(30, 30))
+    path = tmp_path / "in.csv"
+    path.write_text(",".join(f"v{j}" for j in range(30)) + "\n"
+                    + "".join(",".join(f"{v:.6f}" for v in row) + "\n" for row in X))
+    graph = tmp_path / "g.txt"
+    graph.write_text("".join(f"v{j} -> v0\n" for j in range(1, parents + 1)))
+    code, _, err = run_main("check", path, "--graph", graph, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    validate_report(report)
+    equation = [c for c in report["variables"][0]["checks"] if "(equation: v0" in c["name"]]
+    assert equation and all(c["p_value"] is None and c["note"].startswith("not computed") for c in equation) == (
+        parents == 29)
+
+
+def test_a_policy_file_saved_with_a_byte_order_mark_is_read(tmp_path, data):
+    """Editors on Windows save UTF-8 with a byte order mark; it used to read as 'not valid TOML' at line 1, column 1.
+    Tables and graph files accept the mark already."""
+    policy = tmp_path / "p.toml"
+    policy.write_bytes(b"\xef\xbb\xbfalpha = 0.01\n")
+    code, _, err = run_main("check", data, "--policy", policy, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    assert json.loads((tmp_path / "r.json").read_text())["settings"]["alpha"] == 0.01
+
+
+def test_one_value_near_the_float_limit_raises_no_numpy_warning(tmp_path, data):
+    """One cell of 1e308 among values near 1: its robust z is beyond the float range, an outlier all the same.
+
+    The division used to print numpy's "RuntimeWarning: overflow" and a line of source code on stderr.
+    """
+    import warnings
+
+    data.write_text(table_text(cells={(5, 1): "1e308"}))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        code, _, err = run_main("check", data, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    report = json.loads((tmp_path / "r.json").read_text())
+    assert "outliers" in report["variables"][1]["flags"]
+
+
+def test_two_values_at_the_float_limit_leave_the_hsic_a_usable_bandwidth(tmp_path, data):
+    """+1e308 and -1e308 among values near 1: standardised, the other values differ by about 1e-308, so the
+    median distance that sets the HSIC bandwidth squared to 0 and the run stopped with exit 3
+    (ZeroDivisionError)."""
+    data.write_text(table_text(cells={(3, 0): "1e308", (4, 0): "-1e308"}))
+    code, _, err = run_main("check", data, "--json", tmp_path / "r.json", "--jobs", "1", "-q")
+    assert code in (0, 1), err
+    validate_report(json.loads((tmp_path / "r.json").read_text()))

@@ -110,3 +110,31 @@ def test_data_that_is_neither_a_path_nor_a_dataframe_is_refused_in_one_sentence(
         preflight.check(data)
     assert "\n" not in str(caught.value)
     assert ("pandas.DataFrame(data)" in str(caught.value)) == isinstance(data, dict)
+
+
+def test_api_settings_errors_name_the_arguments_not_the_command_line(linear_uniform_csv):
+    from preflight.errors import InputError
+
+    with pytest.raises(InputError, match=r"unknown policy key 'signficance' in the arguments of check\(\)"):
+        preflight.check(linear_uniform_csv, signficance=0.1)
+    with pytest.raises(InputError, match=r"'seed' in the arguments of check\(\) needs a whole number"):
+        preflight.check(linear_uniform_csv, seed=True)
+
+
+def test_api_columns_given_as_one_string_are_refused_in_one_sentence(linear_uniform_csv):
+    """columns="x,y" used to be read letter by letter: "--columns names ','", a message about no option given."""
+    from preflight.errors import InputError
+
+    for key in ("columns", "exclude"):
+        with pytest.raises(InputError, match=rf"^{key} must be a list of column names, not the string 'x,y'$"):
+            preflight.check(linear_uniform_csv, **{key: "x,y"})
+
+
+def test_a_pyproject_whose_tool_is_not_a_table_is_no_policy(tmp_path, monkeypatch, linear_uniform_csv):
+    """``tool = 5`` in the working folder's pyproject.toml used to stop every run with exit 3 (AttributeError)."""
+    from preflight.policy import Policy, build_policy
+
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "pyproject.toml").write_text("tool = 5\n")
+    policy, origin = build_policy({})
+    assert origin == {} and policy == Policy()

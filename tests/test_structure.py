@@ -349,6 +349,20 @@ def test_henze_zirkler_degenerate_inputs():
     assert structure.henze_zirkler(np.column_stack([np.arange(10.0), np.ones(10)])).p_value is None
 
 
+def test_henze_zirkler_leaves_out_a_column_constant_on_its_subsample():
+    """One non-zero value in 60 rows, a subsample of 50 that misses it: the column used to reach the SVD as 0 / 0
+    and stop the run with an internal error (LinAlgError)."""
+    rng = np.random.default_rng(1)
+    X = np.column_stack([np.zeros(60), rng.normal(size=60), rng.normal(size=60)])
+    X[7, 0] = 1.0
+    seeds = [s for s in range(40) if 7 not in np.random.default_rng(s).choice(60, 50, replace=False)]
+    assert seeds, "some subsample must miss row 7"
+    for seed in seeds:
+        result = structure.henze_zirkler(X, seed=seed, max_n=50)
+        assert "1 column(s) constant on the subsample left out" in result.note
+        assert result.statistic == structure.henze_zirkler(X[:, 1:], seed=seed, max_n=50).statistic
+
+
 # --------------------------------------------------------------------------- rows needed
 
 

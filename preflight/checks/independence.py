@@ -168,26 +168,33 @@ def _median_difference(s: np.ndarray, skip: int = 0) -> float:
     return 0.5 * (_kth_difference(s, skip + total // 2) + _kth_difference(s, skip + total // 2 + 1))
 
 
+_TIE_BELOW = 1e-154
+"""Differences of standardised values at or below this count as ties for the bandwidth: a smaller bandwidth
+overflows 1 / (2 sigma^2).  Only a column with values at the float limit among ordinary ones gets there (its
+other values, standardised, differ by about 1e-308)."""
+
+
 def _median_bandwidth(v: np.ndarray, rng: np.random.Generator) -> tuple[float, bool]:
     """Median of |v_i - v_j| (i < j) on at most BANDWIDTH_MAX_POINTS points.
 
     Returns (sigma, used_nonzero_fallback).  The median is exact (the same
     number ``np.median`` gives on all the differences) but found by
-    selection on the sorted points, without the O(m^2) array.
+    selection on the sorted points, without the O(m^2) array.  When it is
+    0 (or below ``_TIE_BELOW``) the ties are left out of the median.
     """
     n = v.shape[0]
     if n > BANDWIDTH_MAX_POINTS:
         v = v[rng.choice(n, BANDWIDTH_MAX_POINTS, replace=False)]
     s = np.sort(v)
     sigma = _median_difference(s)
-    if sigma > 0:
+    if sigma > _TIE_BELOW:
         return sigma, False
-    zeros = _count_differences_at_most(s, 0.0)
-    if zeros == s.shape[0] * (s.shape[0] - 1) // 2:
+    ties = _count_differences_at_most(s, _TIE_BELOW)
+    if ties == s.shape[0] * (s.shape[0] - 1) // 2:
         # _standardise has already rejected constant inputs, but a subsample of a
         # nearly constant column can still be all ties.
         return 1.0, True
-    return _median_difference(s, skip=zeros), True
+    return _median_difference(s, skip=ties), True
 
 
 def _centred_gram(v: np.ndarray, sigma: float, fitted_residual: bool = False):

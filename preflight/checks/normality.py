@@ -30,6 +30,8 @@ ANDERSON_DARLING = "anderson-darling"
 JARQUE_BERA = "jarque-bera"
 DAGOSTINO_PEARSON = "d'agostino-pearson"
 NEGENTROPY = "negentropy"
+NORMALITY_TESTS = (SHAPIRO_WILK, ANDERSON_DARLING, JARQUE_BERA, DAGOSTINO_PEARSON, NEGENTROPY)
+"""The names of :func:`normality_checks`' results, in its order."""
 
 SKEWNESS = "skewness"
 EXCESS_KURTOSIS = "excess kurtosis"

@@ -38,9 +38,9 @@ def henze_zirkler(X, seed: int = 0, max_n: int = HENZE_ZIRKLER_MAX_N) -> CheckRe
     O(block x n) rather than several n x n matrices; values agree with
     ``pingouin.multivariate_normality`` to round-off (tests/test_structure.py).
     Above ``max_n`` rows the test runs on a seeded subsample (the note says
-    so).  Constant columns are left out; with fewer than two varying
-    columns, or a singular covariance, no test is run (NaN statistic,
-    p-value None).  Reference: Henze & Zirkler (1990), "A class of invariant
+    so).  Constant columns, and columns constant on the subsample, are left
+    out; with fewer than two varying columns, or a singular covariance, no
+    test is run (NaN statistic, p-value None).  Reference: Henze & Zirkler (1990), "A class of invariant
     consistent tests for multivariate normality", Commun. Statist. Theory
     Meth. 19(10).
     """
@@ -55,6 +55,11 @@ def henze_zirkler(X, seed: int = 0, max_n: int = HENZE_ZIRKLER_MAX_N) -> CheckRe
         rows = np.sort(np.random.default_rng(seed).choice(n_total, int(max_n), replace=False))
         X = X[rows]
         notes.append(f"seeded subsample of {int(max_n)} of {n_total} rows (seed {seed})")
+        # A nearly constant column (one differing value in thousands) can be constant on the subsample.
+        varying = [j for j in range(X.shape[1]) if np.ptp(X[:, j]) > 0]
+        if len(varying) < X.shape[1]:
+            notes.append(f"{X.shape[1] - len(varying)} column(s) constant on the subsample left out")
+            X = X[:, varying]
     n, p = X.shape
     if p < 2:
         return CheckResult(name="henze-zirkler", statistic=math.nan, p_value=None, n=n,
