@@ -136,33 +136,19 @@ def _setup(case, tmp_path, data):
         (tmp_path / "bad.json").write_text(json.dumps(report))
         return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "conclusion: 'level'"
     if case == "13-report-markup-in-number":
-        report = _saved_report(tmp_path, data)
-        report["variables"][0]["checks"][0]["n"] = "<script>alert(1)</script>"
-        (tmp_path / "bad.json").write_text(json.dumps(report))
-        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "variables[0].checks[0].n"
+        markup = "<script>alert(1)</script>"
+        return _changed_report(tmp_path, data, ["variables", 0, "checks", 0, "n"], markup), "variables[0].checks[0].n"
     if case == "13-report-not-an-object":
         (tmp_path / "bad.json").write_text("[1, 2]")
         return ["report", str(tmp_path / "bad.json"), "--markdown", str(tmp_path / "r.md")], "not a preflight report"
     if case == "13-report-pair-names-an-unknown-column":
-        report = _saved_report(tmp_path, data)
-        report["pairs"][0]["x"] = "kiln"
-        (tmp_path / "bad.json").write_text(json.dumps(report))
-        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "pairs[0].x: 'kiln'"
+        return _changed_report(tmp_path, data, ["pairs", 0, "x"], "kiln"), "pairs[0].x: 'kiln'"
     if case == "13-report-repeated-column":
-        report = _saved_report(tmp_path, data)
-        report["input"]["columns"] = ["a", "a", "b"]
-        (tmp_path / "bad.json").write_text(json.dumps(report))
-        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "more than once"
+        return _changed_report(tmp_path, data, ["input", "columns"], ["a", "a", "b"]), "more than once"
     if case == "13-report-conditioning-not-names":
-        report = _saved_report(tmp_path, data)
-        report["pairs"][0]["conditioning"] = [1]
-        (tmp_path / "bad.json").write_text(json.dumps(report))
-        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "pairs[0].conditioning"
+        return _changed_report(tmp_path, data, ["pairs", 0, "conditioning"], [1]), "pairs[0].conditioning"
     if case == "13-report-order-repeats-a-column":
-        report = _saved_report(tmp_path, data)
-        report["structure"]["order"] = ["a", "a", "c"]
-        (tmp_path / "bad.json").write_text(json.dumps(report))
-        return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")], "structure.order"
+        return _changed_report(tmp_path, data, ["structure", "order"], ["a", "a", "c"]), "structure.order"
     if case == "13-report-nested-too-deeply":
         (tmp_path / "bad.json").write_text("[" * 100_000 + "]" * 100_000)
         return ["compare", str(tmp_path / "bad.json"), str(tmp_path / "bad.json")], "nested too deeply"
@@ -209,6 +195,17 @@ REFUSED = ["1-json-is-input", "1-html-relative-path", "1-markdown-hard-link", "1
            "14-binary-policy", "14-empty-parquet", "17-empty-json-path",
            "17-two-outputs-to-stdout", "19-two-rows", "19-duplicate-parquet-names", "19-large-alpha",
            "19-semicolons", "19-semicolons-decimal-commas"]
+
+
+def _changed_report(tmp_path, data, where: list, value) -> list[str]:
+    """Arguments of ``preflight report`` on a saved report whose entry at ``where`` was set to ``value``."""
+    report = _saved_report(tmp_path, data)
+    target = report
+    for key in where[:-1]:
+        target = target[key]
+    target[where[-1]] = value
+    (tmp_path / "bad.json").write_text(json.dumps(report))
+    return ["report", str(tmp_path / "bad.json"), "--html", str(tmp_path / "r.html")]
 
 
 def _saved_report(tmp_path, data) -> dict:
