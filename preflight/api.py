@@ -68,7 +68,7 @@ def check(
     progress = progress or _no_progress
     loaded = load_table(data, sep=sep, columns=columns, exclude=exclude, missing=missing)
     # A bad graph file fails here, right after the table it names: before any computation.
-    given = None if graph is None else read_graph(graph, loaded.names)
+    given = None if graph is None else read_graph(graph, loaded.names, left_out=loaded.left_out)
     return analyse(loaded, policy, graph=given, progress=progress, keep_samples=keep_samples)
 
 

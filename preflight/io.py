@@ -13,7 +13,7 @@ import numbers
 import os
 import re
 import sys
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -50,6 +50,8 @@ class LoadedData:
     warnings: tuple[str, ...] = ()
     stray_by_column: dict[str, int] = field(default_factory=dict)
     """Cells per column that were not numbers and are counted as missing (see STRAY_MAX_SHARE)."""
+    left_out: dict[str, str] = field(default_factory=dict)
+    """Columns of the source the analysis leaves out, each with why ("excluded", "not selected", "not numeric")."""
 
 
 def _read_source_bytes(source: str) -> bytes:
@@ -314,6 +316,8 @@ def load_table(
         missing_by_column=missing_by_column,
         warnings=tuple(warnings),
         stray_by_column=stray_by_column,
+        left_out={name: ("excluded" if name in (exclude or ()) else "not selected" if name not in chosen
+                         else "not numeric") for name in names if name not in numeric},
     )
 
 
@@ -511,7 +515,7 @@ def _arrow_edges(lines: list[str], label: str) -> list[tuple[int, str, str]]:
     return edges
 
 
-def read_graph(path, names: Sequence[str]) -> GraphFile:
+def read_graph(path, names: Sequence[str], left_out: Mapping[str, str] | None = None) -> GraphFile:
     """Read a user's DAG over the variables ``names``, checked against them.
 
     Two formats: a CSV edge list whose header has the columns ``source`` and
@@ -523,6 +527,9 @@ def read_graph(path, names: Sequence[str]) -> GraphFile:
     file, an unknown variable, a self-loop, a malformed line (with its
     number) or a cycle (with its nodes in order).  ``preflight.check`` and
     the CLI call it right after loading the table, before any computation.
+    ``left_out`` maps columns of the source that the analysis leaves out to
+    why (:attr:`LoadedData.left_out`): a graph naming one is told so, not
+    that the name is unknown.
     """
     from preflight.graph import find_cycle
 
@@ -557,6 +564,9 @@ def read_graph(path, names: Sequence[str]) -> GraphFile:
 
     for line, source, target in edges:
         for name in (source, target):
+            if left_out and name in left_out:
+                raise InputError(f"graph file {label} line {line}: column {name!r} is left out of the analysis "
+                                 f"({left_out[name]}); analyse it or drop its edges from the graph")
             if name not in index:
                 raise InputError(f"graph file {label} line {line}: unknown variable {name!r}; "
                                  f"known variables: {_brief(names)}")

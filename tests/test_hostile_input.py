@@ -379,9 +379,9 @@ def test_a_graph_file_is_read_once(tmp_path, data, monkeypatch):
 
     calls = []
 
-    def counting(path, names):
+    def counting(path, names, **options):
         calls.append(path)
-        return preflight_io.read_graph(path, names)
+        return preflight_io.read_graph(path, names, **options)
 
     monkeypatch.setattr(api, "read_graph", counting)
     good = tmp_path / "good.txt"

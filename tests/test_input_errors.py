@@ -138,3 +138,17 @@ def test_a_pyproject_whose_tool_is_not_a_table_is_no_policy(tmp_path, monkeypatc
     (tmp_path / "pyproject.toml").write_text("tool = 5\n")
     policy, origin = build_policy({})
     assert origin == {} and policy == Policy()
+
+
+@pytest.mark.parametrize("options, why", [(("--exclude", "c"), "excluded"), (("--columns", "a,b"), "not selected"),
+                                          ((), "not numeric")])
+def test_a_graph_naming_a_column_the_analysis_leaves_out_says_why(tmp_path, options, why):
+    # Before: "unknown variable 'c'; known variables: a, b", about a column the file plainly has.
+    rng = np.random.default_rng(0)
+    c = [f"{v:.3f}" for v in rng.normal(size=60)] if options else ["low", "high"] * 30
+    rows = "".join(f"{a:.3f},{b:.3f},{z}\n" for a, b, z in zip(rng.normal(size=60), rng.normal(size=60), c))
+    table = _write(tmp_path, "t.csv", ("a,b,c\n" + rows).encode())
+    graph = _write(tmp_path, "g.txt", b"a -> b\nb -> c\n")
+    code, out, err = run_cli("check", table, "--graph", graph, *options)
+    _one_line_error(code, out, err, f"column 'c' is left out of the analysis ({why})")
+    assert "unknown variable" not in err
