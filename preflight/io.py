@@ -102,7 +102,7 @@ def _separator_hint(header: list[str], sep: str) -> str:
     """A suggestion when a one-field header looks split by another separator."""
     if len(header) != 1:
         return ""
-    for other, shown in ((";", "';'"), ("\t", "tab"), ("|", "'|'")):
+    for other, shown in ((";", "';'"), ("\t", "tab"), ("|", "'|'"), (",", "','")):
         if other != sep and other in header[0]:
             comma = " (with decimal commas, convert them to points first)" if other == ";" else ""
             return f"; the header looks separated by {shown}: try --sep {shown}{comma}"

@@ -182,6 +182,10 @@ def _setup(case, tmp_path, data):
     if case == "19-semicolons-decimal-commas":
         data.write_text(table_text().replace(",", ";").replace(".", ","))
         return ["check", d], "--sep ';'"
+    if case == "19-commas-in-a-tsv":
+        tsv = tmp_path / "table.tsv"
+        tsv.write_text(table_text())
+        return ["check", str(tsv)], "--sep ','"
     raise AssertionError(case)
 
 
@@ -194,7 +198,7 @@ REFUSED = ["1-json-is-input", "1-html-relative-path", "1-markdown-hard-link", "1
            "13-report-nested-too-deeply", "13-report-conditioning-not-names", "13-report-order-repeats-a-column",
            "14-binary-policy", "14-empty-parquet", "17-empty-json-path",
            "17-two-outputs-to-stdout", "19-two-rows", "19-duplicate-parquet-names", "19-large-alpha",
-           "19-semicolons", "19-semicolons-decimal-commas"]
+           "19-semicolons", "19-semicolons-decimal-commas", "19-commas-in-a-tsv"]
 
 
 def _changed_report(tmp_path, data, where: list, value) -> list[str]:
