@@ -21,7 +21,7 @@ import numpy as np
 from preflight.evidence import Tagged, rejects, significant
 from preflight.fit import RegressorDesigns, bspline_basis, ols, residualize, simple_slope, spline_df
 from preflight.policy import Policy
-from preflight.results import GIVEN_A_SPLINE, SPLINE_RESIDUAL, CheckResult
+from preflight.results import GIVEN_A_SPLINE, SPLINE_RESIDUAL, CheckResult, not_computed
 from preflight.seeds import derived_seed
 
 
@@ -208,10 +208,6 @@ def separation_given_spline(x: np.ndarray, y: np.ndarray, x_name: str, y_name: s
             for t in tagged]
 
 
-def _degenerate(name: str, n: int, why: str) -> CheckResult:
-    return CheckResult(name=name, statistic=float("nan"), p_value=None, n=n, note=f"not computed: {why}")
-
-
 def _direction_checks(regressor: np.ndarray, response: np.ndarray, residual: np.ndarray, direction: tuple[str, str],
                       role: str, policy: Policy, seed: int, designs: RegressorDesigns) -> list[Tagged]:
     """Normality, linearity, spread and independence of the residual of ``direction`` = (response, regressor).
@@ -231,7 +227,7 @@ def _direction_checks(regressor: np.ndarray, response: np.ndarray, residual: np.
         # noise to test; the collinearity screen reports the cause.
         why = ("the regressor is constant" if not np.std(regressor) > 0
                else "the residual is zero (exact linear relation)")
-        return [_tag(None, role, _degenerate("battery", n, why), f"battery ({label})", direction)]
+        return [_tag(None, role, not_computed("battery", n, why), f"battery ({label})", direction)]
     out: list[Tagged] = []
     for result in normality_checks(residual, max_n=policy.shapiro_max_n, seed=seed):
         out.append(_tag("noise normality", role, result, f"{result.name} ({label})", direction))

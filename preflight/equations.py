@@ -106,32 +106,35 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
     is adjusted for multiplicity.
     """
     from preflight.checks.linearity import _nested_f, full_rank_columns
-    from preflight.checks.normality import normality_checks
-    from preflight.checks.variance import breusch_pagan, white_test
-    from preflight.fit import bspline_basis, ols, spline_df
-    from preflight.results import CheckResult
+    from preflight.checks.normality import NORMALITY_TESTS, normality_checks
+    from preflight.checks.variance import (
+        BREUSCH_PAGAN,
+        WHITE,
+        auxiliary_rows_needed,
+        breusch_pagan,
+        white_auxiliary_columns,
+        white_test,
+    )
+    from preflight.fit import bspline_basis, exactly_fitted, ols, spline_df
+    from preflight.results import CheckResult, not_computed
 
+    reset, spline = "ramsey reset (equation)", "additive spline f-test (equation)"
     X = as_matrix(X, name="X", min_n=8)
     target = int(target)
     sets: list[tuple[int, ...]] = [() for _ in range(X.shape[1])]
     sets[target] = tuple(int(i) for i in parents)
 
-    def not_computed(why: str) -> tuple:
-        from preflight.checks.normality import NORMALITY_TESTS
-
-        names = (*NORMALITY_TESTS, "ramsey reset (equation)", "additive spline f-test (equation)", "breusch-pagan",
-                 "white")
-        return tuple(CheckResult(name=name, statistic=float("nan"), p_value=None, n=X.shape[0],
-                                 note=f"not computed: {why}") for name in names)
+    def none_computed(why: str) -> tuple:
+        return tuple(not_computed(name, X.shape[0], why)
+                     for name in (*NORMALITY_TESTS, reset, spline, BREUSCH_PAGAN, WHITE))
 
     if sets[target] and X.shape[0] <= len(sets[target]) + 1:
         # A hypothesised graph can give a variable as many parents as it likes.
-        return not_computed(f"{len(sets[target])} parents on {X.shape[0]} rows leave no residual degrees of freedom")
+        return none_computed(f"{len(sets[target])} parents on {X.shape[0]} rows leave no residual degrees of freedom")
     equation = fit_equations(X, sets)[target]
-    if equation.parents and np.ptp(equation.residuals) == 0:
-        # An exact fit to the last bit (a duplicated or derived column) leaves no noise to test; the
-        # collinearity screen reports the cause.
-        return not_computed("the residual is zero (exact linear relation)")
+    if equation.parents and exactly_fitted(equation.residuals):
+        # The collinearity screen reports the cause.
+        return none_computed("the residual is zero (exact linear relation)")
     out = list(normality_checks(equation.residuals, seed=seed))
     if not equation.parents:
         return tuple(out)
@@ -142,22 +145,20 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
     s = (fitted - fitted.mean()) / (spread if spread > 0 else 1.0)
     # Built one at a time: at a million rows a design of several parents' splines is hundreds of MB.
     df = spline_df(n, max_df)
-    larger = [(lambda: np.column_stack([P, s**2, s**3]), "ramsey reset (equation)", "powers 2, 3 of the fitted values"),
+    larger = [(lambda: np.column_stack([P, s**2, s**3]), reset, "powers 2, 3 of the fitted values"),
               (lambda: np.column_stack([bspline_basis(P[:, c], df)[:, 1:] for c in range(P.shape[1])]),
-               "additive spline f-test (equation)", f"cubic B-spline with {df} columns per parent")]
+               spline, f"cubic B-spline with {df} columns per parent")]
     for build, name, what in larger:
         fit = ols(full_rank_columns(build()), y)
         f_stat, p_value, df_num, df_den = _nested_f(linear.rss, linear.rank, fit.rss, fit.rank, n)
         out.append(CheckResult(name=name, statistic=f_stat, p_value=p_value, effect=fit.r_squared - linear.r_squared,
                                effect_name="gain in R-squared", n=n, note=f"{what}; F({df_num}, {df_den})"))
     out.append(breusch_pagan(equation.residuals, P))
-    k = P.shape[1]
-    columns = k + k * (k + 1) // 2  # levels, squares and cross-products
-    if n < columns + 2:
+    columns = white_auxiliary_columns(P.shape[1])
+    if n < auxiliary_rows_needed(columns):
         # Many parents (a hypothesised graph can give any number) on few rows: the rest of the equation stands.
-        out.append(CheckResult(name="white", statistic=float("nan"), p_value=None, n=n,
-                               note=f"not computed: the auxiliary regression on {columns} columns needs at least "
-                                    f"{columns + 2} rows, got {n}"))
+        out.append(not_computed(WHITE, n, f"the auxiliary regression on {columns} columns needs at least "
+                                          f"{auxiliary_rows_needed(columns)} rows, got {n}"))
     else:
         out.append(white_test(equation.residuals, P))
     return tuple(out)

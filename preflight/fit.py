@@ -34,6 +34,12 @@ class LinearFit:
         return self.n - self.rank
 
 
+def exactly_fitted(residual: np.ndarray) -> bool:
+    """Whether a residual is constant: its regressors fit the column to the last bit (a duplicated or derived
+    column), which leaves no noise to test."""
+    return bool(np.ptp(residual) == 0)
+
+
 def add_intercept(X: np.ndarray) -> np.ndarray:
     X = np.asarray(X, dtype=np.float64)
     if X.ndim == 1:

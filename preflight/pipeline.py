@@ -29,10 +29,11 @@ from preflight.battery import (
     with_noise_dependence,
 )
 from preflight.evidence import Tagged, adjust_named_groups, significant
+from preflight.fit import exactly_fitted
 from preflight.io import GraphFile, LoadedData
 from preflight.policy import Policy, level_rank
 from preflight.report.model import CAUTIONS, Report
-from preflight.results import NOISE_ESTIMATE, NOISE_ESTIMATES, CheckResult
+from preflight.results import NOISE_ESTIMATE, NOISE_ESTIMATES, CheckResult, not_computed
 from preflight.rules import RulesOutcome, evaluate, meets
 from preflight.seeds import derived_seed
 from preflight.stages import (
@@ -50,6 +51,9 @@ from preflight.stages import (
     VariableFindings,
     WholeTable,
 )
+
+NO_NOISE = "the noise estimate is zero (exact linear relation)"
+"""Why a variable that its parents fit to the last bit gets no noise checks."""
 
 Progress = Callable[[str, int, int], None]
 
@@ -284,11 +288,9 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
     progress("noise shape", 0, p)
     for j, name in enumerate(names):
         seed = derived_seed(policy.seed, "noise", name)
-        if np.ptp(noise[:, j]) == 0:
-            # A column its parents fit to the last bit has no noise to test; the collinearity screen says why.
-            results = tuple(CheckResult(name=test, statistic=float("nan"), p_value=None, n=X.shape[0],
-                                        note="not computed: the noise estimate is zero (exact linear relation)")
-                            for test in NORMALITY_TESTS)
+        if exactly_fitted(noise[:, j]):
+            # The collinearity screen says why.
+            results = tuple(not_computed(test, X.shape[0], NO_NOISE) for test in NORMALITY_TESTS)
         else:
             results = normality_checks(noise[:, j], max_n=policy.shapiro_max_n, seed=seed)
         for result in results:
@@ -692,7 +694,7 @@ def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence:
         if structure is not None:
             noise_norm = [t.result for t in tagged if t.family == "noise normality"]
             # No noise at all (an exact linear relation) is neither a Gaussian nor a non-Gaussian component.
-            if np.ptp(structure.noise[:, j]) > 0 and not nongaussian_under(noise_norm, policy):
+            if not exactly_fitted(structure.noise[:, j]) and not nongaussian_under(noise_norm, policy):
                 gaussian_noises.append(name)
             tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], name, policy))]
         flags = list(screen.variable_flags[name])
@@ -942,10 +944,8 @@ def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> C
     from preflight import structure
     from preflight.checks.normality import shape
 
-    if np.ptp(noise_column) == 0:
-        return CheckResult(name=f"rows needed (noise of {name})", statistic=float("nan"), p_value=None,
-                           n=int(noise_column.shape[0]),
-                           note="not computed: the noise estimate is zero (exact linear relation)").identified(
+    if exactly_fitted(noise_column):
+        return not_computed(f"rows needed (noise of {name})", int(noise_column.shape[0]), NO_NOISE).identified(
             scope="variable", variables=(name,), test="rows-needed", variant=NOISE_ESTIMATE)
     s = shape(noise_column)
     needed = structure.rows_needed(s.skewness, s.excess_kurtosis, alpha=policy.alpha)

@@ -180,3 +180,8 @@ class CheckResult:
         })
         record.identity = self.identity
         return record
+
+
+def not_computed(name: str, n: int, why: str) -> CheckResult:
+    """A check that could not run on this data: NaN statistic, no p-value, and why in its note."""
+    return CheckResult(name=name, statistic=float("nan"), p_value=None, n=n, note=f"not computed: {why}")

@@ -27,11 +27,21 @@ def _inputs(residuals, regressors) -> tuple[np.ndarray, np.ndarray]:
     return e, Z
 
 
+def auxiliary_rows_needed(columns: int) -> int:
+    """Rows an auxiliary regression on ``columns`` columns needs: one residual degree of freedom beyond the
+    intercept and the columns."""
+    return columns + 2
+
+
+def white_auxiliary_columns(k: int) -> int:
+    """Columns of White's auxiliary design on k regressors before rank reduction: levels, squares, cross-products."""
+    return k + k * (k + 1) // 2
+
+
 def _require_rows(n: int, columns: int) -> None:
-    # One residual degree of freedom beyond the intercept and the columns.
-    if n < columns + 2:
-        raise InputError(f"the auxiliary regression on {columns} columns needs at least {columns + 2} "
-                         f"observations, got {n}")
+    if n < auxiliary_rows_needed(columns):
+        raise InputError(f"the auxiliary regression on {columns} columns needs at least "
+                         f"{auxiliary_rows_needed(columns)} observations, got {n}")
 
 
 def _lagrange_multiplier(squared: np.ndarray, design: np.ndarray) -> tuple[float, float, float, int]:
@@ -84,7 +94,7 @@ def _white_test(residuals, regressors, designs: RegressorDesigns | None) -> Chec
     """:func:`white_test`; with one regressor, ``designs`` (its :class:`RegressorDesigns`) supply the design."""
     e, Z = _inputs(residuals, regressors)
     k = Z.shape[1]
-    _require_rows(e.shape[0], k + k * (k + 1) // 2)  # the columns of white_design(Z)
+    _require_rows(e.shape[0], white_auxiliary_columns(k))
     if designs is not None and k == 1:
         columns = RegressorDesigns.of(Z[:, 0], designs).white_design()
     else:
