@@ -20,7 +20,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from preflight.battery import PairFindings, _material_departure
+from preflight.battery import PairFindings, _material_departure, nongaussian_under
 from preflight.evidence import Tagged, significant
 from preflight.policy import Policy
 from preflight.results import STRUCTURAL_EQUATION, CheckIdentity, CheckResult
@@ -31,6 +31,8 @@ SPREAD_FAMILY = "equation residual spread"
 LINEARITY_FAMILY = "equation linearity"
 VARIANCE_FAMILY = "equation variance"
 PARTIAL_FAMILY = "equation partial correlation"
+NORMALITY_FAMILY = "equation noise normality"
+"""The normality checks of an edge's forward and reverse residuals inside the equations."""
 """The partial correlation of an adjacent pair given the other parents of both, one test per adjacent pair."""
 EQUATION_FAMILIES = (LINEARITY_FAMILY, VARIANCE_FAMILY)
 RESIDUAL_BOOTSTRAP = "residual bootstrap"
@@ -86,7 +88,8 @@ def with_parent_edges(estimated: np.ndarray, parents, children=None) -> np.ndarr
 
 def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Policy) -> tuple[Tagged, ...]:
     """One adjacent pair (i, j) inside its equations: the forward (j on i and the other parents) and reverse
-    residual HSIC, each residual's spread against the partial regressor, and the likelihood ratio.
+    residual HSIC, each residual's spread against the partial regressor and its normality, the likelihood
+    ratio and the partial correlation.
 
     A pure function of its arguments (seeded from the column names), so the
     pairs can run in any process in any order.
@@ -106,15 +109,16 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
                                replicates=BOOTSTRAP_REPLICATES, n_features=policy.hsic_features,
                                exact_max_n=policy.hsic_exact_max_n, max_n=policy.hsic_max_n,
                                seed=derived_seed(policy.seed, "edge in its equations", names[i], names[j]),
-                               early_stop=early_stop)
+                               early_stop=early_stop, normality_max_n=policy.shapiro_max_n)
     except DegenerateResidual:
         return ()  # an exact linear relation leaves nothing to test: the pair keeps the battery's findings
     given = ", ".join(names[c] for c in judgement.conditioning) or "nothing"
     variables = tuple(sorted((names[i], names[j])))
     tagged = []
-    for role, result, spread, response, regressor in (
-            ("forward", judgement.forward, judgement.forward_spread, names[j], names[i]),
-            ("reverse", judgement.backward, judgement.backward_spread, names[i], names[j])):
+    for role, result, spread, shape, response, regressor in (
+            ("forward", judgement.forward, judgement.forward_spread, judgement.forward_normality, names[j], names[i]),
+            ("reverse", judgement.backward, judgement.backward_spread, judgement.backward_normality, names[i],
+             names[j])):
         decision_p = result.smooth_p_value if result.smooth_p_value is not None else result.p_value
         label = f"{response} on {regressor} and its other parents"
         check = CheckResult(
@@ -133,6 +137,10 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
             tagged.append(Tagged(SPREAD_FAMILY, role, spread_check.identified(
                 scope="pair", family=SPREAD_FAMILY, variables=variables, direction=(response, regressor),
                 test=test, variant=STRUCTURAL_EQUATION, name=f"{spread_check.name} in the equation ({label})")))
+        for shape_check in shape:
+            tagged.append(Tagged(NORMALITY_FAMILY, role, shape_check.identified(
+                scope="pair", family=NORMALITY_FAMILY, variables=variables, direction=(response, regressor),
+                variant=STRUCTURAL_EQUATION, name=f"{shape_check.name} in the equation ({label})")))
     ratio = CheckResult(name=f"pairwise likelihood ratio in the equations ({names[i]} -> {names[j]} if > 0)",
                         statistic=judgement.likelihood_ratio, p_value=None, n=judgement.n,
                         note=f"on the partial residuals given {given}")
@@ -185,8 +193,9 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     battery's findings.  Otherwise: oriented i -> j when the residual of j
     on i and the other parents is independent of i's partial residual, the
     reverse is not (adjusted p, decided on the smooth bootstrap p-value) and
-    the likelihood ratio agrees; not when the battery found both
-    directions' residuals Gaussian.  Dependent in both directions:
+    the likelihood ratio agrees; not when both directions' residuals in the
+    equations look Gaussian (``gaussian-noise``, which replaces the
+    battery's: a marginal residual carries the child's other parents).  Dependent in both directions:
     ``confounding-suspected``.  The battery's ``nonlinear``,
     ``heteroscedastic`` and ``confounding-suspected`` flags and its
     additive-noise orientation are dropped: they rest on marginal
@@ -196,10 +205,17 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
         return findings
     if any(any(departs(list(equations.get(v, [])), policy)) for v in pair):
         return findings
-    dependent = {role: _dependent([t for t in edge if t.role == role], policy) for role in ("forward", "reverse")}
+    dependent = {role: _dependent([t for t in edge if t.role == role and t.family in (EDGE_FAMILY, SPREAD_FAMILY)],
+                                  policy)
+                 for role in ("forward", "reverse")}
     (ratio,) = [t for t in edge if t.role == "pair" and t.family is None]
     partial = [t for t in edge if t.family == PARTIAL_FAMILY]
-    gaussian = "gaussian-noise" in findings.flags
+    shapes = {role: [t.result for t in edge if t.family == NORMALITY_FAMILY and t.role == role]
+              for role in ("forward", "reverse")}
+    if shapes["forward"] and shapes["reverse"]:
+        gaussian = not any(nongaussian_under(shapes[role], policy) for role in shapes)
+    else:
+        gaussian = "gaussian-noise" in findings.flags
     lr = float(ratio.result.statistic)
     lingam = "undetermined"
     if not gaussian:
@@ -207,7 +223,8 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
             lingam = "x->y"
         elif not dependent["reverse"] and dependent["forward"] and lr < 0:
             lingam = "y->x"
-    flags = [f for f in findings.flags if f not in ("nonlinear", "heteroscedastic", "confounding-suspected")]
+    flags = (["gaussian-noise"] if gaussian else []) + [
+        f for f in findings.flags if f not in ("gaussian-noise", "nonlinear", "heteroscedastic", "confounding-suspected")]
     powered = has_precedence(ratio.result.n, policy)
     facts = {"adjacent", "anm-undetermined"}
     if lingam == "undetermined":
@@ -222,7 +239,10 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     if partial and not significant(partial[0].result, policy.alpha):
         facts.add("no-partial-correlation")
     judged = tuple(replace(t.result, passed=None if _explained_by(t.role, lingam) else not _counts(t, policy))
-                   for t in edge if t.family not in (None, PARTIAL_FAMILY)) + (ratio.result,)
+                   for t in edge if t.family in (EDGE_FAMILY, SPREAD_FAMILY))
+    # As the battery's: passed when the test finds the residual non-Gaussian.
+    judged += tuple(replace(t.result, passed=None if t.result.p_value is None else significant(t.result, policy.alpha))
+                    for t in edge if t.family == NORMALITY_FAMILY) + (ratio.result,)
     judged += tuple(t.result for t in partial)
     return replace(findings, lingam_orientation=lingam, anm_orientation="undetermined", flags=tuple(flags),
                    facts=frozenset(facts | set(flags)), checks=findings.checks + judged)

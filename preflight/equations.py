@@ -540,6 +540,11 @@ class EdgeJudgement:
     partial_correlation: CheckResult | None = None
     """Fisher z test of the correlation of the partial residuals u_i and u_j (the partial correlation of i
     and j given the other parents; a ``CheckResult``), or None when the rows are too few for it."""
+    forward_normality: tuple = ()
+    """The noise normality checks of the forward residual
+    (:func:`preflight.checks.normality.normality_checks`)."""
+    backward_normality: tuple = ()
+    """The same for the backward residual."""
 
 
 def _rejects(result, alpha: float, min_effect: float) -> bool:
@@ -568,7 +573,8 @@ def _spread_checks(test: ResidualIndependence, residual: np.ndarray, regressor: 
 def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float = 0.05, min_effect: float = 0.0,
                calibration: str = "bootstrap", replicates: int = 200, n_features: int = 40,
                exact_max_n: int = 2000, max_n: int = 20000, seed: int = 0,
-               min_spread_effect: float | None = None, early_stop: EarlyStop | None = None) -> EdgeJudgement:
+               min_spread_effect: float | None = None, early_stop: EarlyStop | None = None,
+               normality_max_n: int = 5000) -> EdgeJudgement:
     """Orient the adjacent pair i - j from their structural equations.
 
     Z = (parents(i) | parents(j)) minus {i, j}: the other parents of either
@@ -587,7 +593,13 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
     correlated at all (H0: the partial correlation of i and j given Z is
     zero; Fisher z with |Z| degrees of freedom spent): an adjacency that the
     skeleton search kept but that shows no partial correlation inside the
-    equations has no support there.
+    equations has no support there.  ``forward_normality`` and
+    ``backward_normality`` test each residual for Gaussian shape (H0: an iid
+    normal sample; Shapiro-Wilk on at most ``normality_max_n`` rows): with
+    i -> j the forward residual estimates j's noise, so when both look
+    Gaussian the linear non-Gaussian model cannot orient the pair.  The
+    marginal residual of j on i alone carries j's other parents too, whose
+    sum can look Gaussian when the noise is not.
 
     References: Hyvärinen and Smith (2013), JMLR 14 (likelihood ratio);
     Shimizu et al. (2006) (identifiability); Sen and Sen (2014)
@@ -595,6 +607,7 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
     """
     from preflight.checks.association import pearson_fisher_z
     from preflight.checks.direction import pairwise_likelihood_ratio
+    from preflight.checks.normality import normality_checks
     from preflight.fit import residualize
 
     X = as_matrix(X, name="X", min_n=8)
@@ -617,8 +630,9 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
     forward = test(X[:, j], X[:, [i, *Z]], u_i, seed)
     backward = test(X[:, i], X[:, [j, *Z]], u_j, seed + 1)
     ratio = pairwise_likelihood_ratio(u_i, u_j).statistic
-    forward_spread = _spread_checks(forward, residualize(X[:, j], X[:, [i, *Z]]), u_i)
-    backward_spread = _spread_checks(backward, residualize(X[:, i], X[:, [j, *Z]]), u_j)
+    forward_residual, backward_residual = residualize(X[:, j], X[:, [i, *Z]]), residualize(X[:, i], X[:, [j, *Z]])
+    forward_spread = _spread_checks(forward, forward_residual, u_i)
+    backward_spread = _spread_checks(backward, backward_residual, u_j)
     spread_floor = 2.0 if min_spread_effect is None else min_spread_effect  # above any R-squared: never counts
     forward_out = _rejects(forward, alpha, min_effect) or any(_rejects(r, alpha, spread_floor) for r in forward_spread)
     backward_out = (_rejects(backward, alpha, min_effect)
@@ -637,4 +651,6 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
     return EdgeJudgement(orientation=orientation, forward=forward, backward=backward,
                          likelihood_ratio=float(ratio), conditioning=Z, n=X.shape[0], reason=reason,
                          forward_spread=forward_spread, backward_spread=backward_spread,
-                         partial_correlation=partial)
+                         partial_correlation=partial,
+                         forward_normality=normality_checks(forward_residual, max_n=normality_max_n, seed=seed),
+                         backward_normality=normality_checks(backward_residual, max_n=normality_max_n, seed=seed + 1))

@@ -118,7 +118,9 @@ _EQUATION_FAMILY = {"ramsey-reset": "equation linearity", "additive-spline-f-tes
                     "breusch-pagan": "equation variance", "white": "equation variance"}
 """Family of each check of a whole structural equation (equation_stage.py)."""
 _IN_EQUATION_FAMILY = {"hsic": "equation residual independence", "white": "equation residual spread",
-                       "breusch-pagan": "equation residual spread"}
+                       "breusch-pagan": "equation residual spread",
+                       **{test: "equation noise normality" for test, family in _DIRECTION_FAMILY.items()
+                          if family == "noise normality"}}
 """Family of each test of one edge inside its equations (equation_stage.edge_task)."""
 
 
