@@ -223,8 +223,8 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
             lingam = "x->y"
         elif not dependent["reverse"] and dependent["forward"] and lr < 0:
             lingam = "y->x"
-    flags = (["gaussian-noise"] if gaussian else []) + [
-        f for f in findings.flags if f not in ("gaussian-noise", "nonlinear", "heteroscedastic", "confounding-suspected")]
+    replaced = ("gaussian-noise", "nonlinear", "heteroscedastic", "confounding-suspected")
+    flags = (["gaussian-noise"] if gaussian else []) + [f for f in findings.flags if f not in replaced]
     powered = has_precedence(ratio.result.n, policy)
     facts = {"adjacent", "anm-undetermined"}
     if lingam == "undetermined":

@@ -153,6 +153,25 @@ def residualize(Y: np.ndarray, Z: np.ndarray | None) -> np.ndarray:
     return out[:, 0] if squeeze else out
 
 
+def leverage(X: np.ndarray) -> np.ndarray:
+    """Hat values h_ii of the least-squares fit on [1, X] (Hoaglin and Welsch 1978).
+
+    h_ii = 1/n + the squared norm of row i of Q, Q an orthonormal basis of
+    the centred columns; it orders the rows as the Mahalanobis distance of
+    their regressor values from the centre does.  Columns repeating a
+    direction add nothing (pivoted QR, :func:`full_rank_columns`).
+    """
+    X = np.asarray(X, dtype=np.float64)
+    if X.ndim == 1:
+        X = X[:, None]
+    n = X.shape[0]
+    columns = full_rank_columns(X)
+    if columns.shape[1] == 0:
+        return np.full(n, 1.0 / n)
+    q, _ = np.linalg.qr(columns - columns.mean(axis=0), mode="reduced")
+    return 1.0 / n + np.einsum("ij,ij->i", q, q)
+
+
 def simple_slope(x: np.ndarray, y: np.ndarray) -> tuple[float, np.ndarray]:
     """Slope of y on x (both centred inside) and the residual of y."""
     xc = x - x.mean()

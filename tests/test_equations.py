@@ -8,9 +8,17 @@ import statsmodels.api as sm
 from scipy import stats
 
 from preflight.checks.independence import hsic_rff
-from preflight.equations import EarlyStop, equation_checks, fit_equations, judge_edge, residual_independence
+from preflight.equations import (
+    EarlyStop,
+    _departure_checks,
+    equation_checks,
+    extreme_rows,
+    fit_equations,
+    judge_edge,
+    residual_independence,
+)
 from preflight.errors import InputError
-from preflight.fit import ols
+from preflight.fit import leverage, ols
 
 
 @pytest.fixture(autouse=True)
@@ -211,6 +219,7 @@ def test_judge_edge_needs_a_material_effect_when_asked():
 
 def test_equation_checks_match_statsmodels_on_a_two_parent_equation():
     from statsmodels.stats.diagnostic import het_breuschpagan, het_white, linear_reset
+    from statsmodels.stats.outliers_influence import OLSInfluence
 
     rng = np.random.default_rng(12)
     n = 500
@@ -218,20 +227,57 @@ def test_equation_checks_match_statsmodels_on_a_two_parent_equation():
     b = 0.5 * a + _arcsine(rng, n)
     c = 0.8 * a - 0.6 * b + 0.3 * a**2 + (0.5 + np.abs(b)) * _arcsine(rng, n)
     X = np.column_stack([a, b, c])
-    checks = {r.name: r for r in equation_checks(X, 2, (0, 1))}
     design = sm.add_constant(np.column_stack([a, b]))
-    fit = sm.OLS(c, design).fit()
-    reset = linear_reset(fit, power=3, use_f=True)
-    assert checks["ramsey reset (equation)"].statistic == pytest.approx(float(reset.fvalue), rel=1e-7)
-    assert checks["ramsey reset (equation)"].p_value == pytest.approx(float(reset.pvalue), rel=1e-6)
-    lm, lm_p, _, _ = het_breuschpagan(fit.resid, design)
-    assert checks["breusch-pagan"].statistic == pytest.approx(lm, rel=1e-7)
-    white_lm, white_p, _, _ = het_white(fit.resid, design)
-    assert checks["white"].statistic == pytest.approx(white_lm, rel=1e-7)
+
+    def reference(rows):
+        fit = sm.OLS(c[rows], design[rows]).fit()
+        reset = linear_reset(fit, power=3, use_f=True)
+        bp = het_breuschpagan(fit.resid, design[rows])
+        white = het_white(fit.resid, design[rows])
+        return fit, {"ramsey reset (equation)": (float(reset.fvalue), float(reset.pvalue)),
+                     "breusch-pagan": bp[:2], "white": white[:2]}
+
+    fit, on_all = reference(np.arange(n))
+    own = {r.name: r for r in _departure_checks(X[:, :2], c, max_df=10)}
+    for name, (statistic, p_value) in on_all.items():
+        assert own[name].statistic == pytest.approx(statistic, rel=1e-7)
+        assert own[name].p_value == pytest.approx(p_value, rel=1e-6)
+    # Each reported check is the weaker of all rows and all rows but the most extreme parent values,
+    # ranked by statsmodels' hat values.
+    hat = OLSInfluence(fit).hat_matrix_diag
+    _, trimmed = reference(np.sort(np.argsort(-hat)[extreme_rows(n):]))
+    checks = {r.name: r for r in equation_checks(X, 2, (0, 1))}
+    for name in on_all:
+        assert checks[name].p_value == pytest.approx(max(on_all[name][1], trimmed[name][1]), rel=1e-6)
     # The curvature in a and the spread in b are there to be found.
     assert checks["additive spline f-test (equation)"].p_value < 0.01
     assert checks["breusch-pagan"].p_value < 0.01
     assert len(equation_checks(X, 0, ())) == 5
+
+
+def test_leverage_matches_statsmodels_hat_values():
+    from statsmodels.stats.outliers_influence import OLSInfluence
+
+    rng = np.random.default_rng(21)
+    Z = np.column_stack([rng.standard_exponential(300), rng.normal(size=300)])
+    Z = np.column_stack([Z, Z[:, 0] - Z[:, 1]])  # a repeated direction adds nothing
+    fit = sm.OLS(rng.normal(size=300), sm.add_constant(Z[:, :2])).fit()
+    assert np.allclose(leverage(Z), OLSInfluence(fit).hat_matrix_diag, atol=1e-12)
+    assert extreme_rows(200) == 2 and extreme_rows(2000) == 5 and extreme_rows(100_000) == 32
+
+
+def test_one_outlying_row_makes_no_departure_in_an_equation():
+    rng = np.random.default_rng(22)
+    n = 2000
+    a = rng.normal(size=n)
+    noise = rng.normal(size=n)
+    a[0], noise[0] = 9.0, 12.0  # one row far out in the parent, with a large noise draw
+    X = np.column_stack([a, 0.7 * a + noise])
+    on_all = {r.name: r for r in _departure_checks(X[:, :1], X[:, 1], max_df=10)}
+    assert all(on_all[name].p_value < 1e-4 for name in ("ramsey reset (equation)", "white"))
+    checks = {r.name: r for r in equation_checks(X, 1, (0,))}
+    assert all(checks[name].p_value > 0.01 for name in on_all)
+    assert "all but the 5 rows of highest leverage" in checks["white"].note
 
 
 def test_residual_independence_does_not_depend_on_units():
