@@ -103,3 +103,32 @@ def test_an_edge_of_a_hypothesised_graph_that_the_equations_do_not_support_is_le
     assert report.data["conclusion"]["level"] == "linear-non-gaussian"
     for key in (("a", "b"), ("a", "c"), ("b", "d")):
         assert pairs[key]["orientation"] == "x->y", pairs[key]
+
+
+def test_gaussian_noise_of_an_edge_is_judged_on_its_residuals_in_the_equations(tmp_path):
+    # x and y each have six uniform parents and a bimodal noise.  A pair regression's residual holds the
+    # other parents' sum, which looks Gaussian to every normality test; inside the equations the residuals
+    # are the bimodal noises, so the edge is not called Gaussian and is oriented (before: gaussian-noise,
+    # undetermined).
+    rng = np.random.default_rng(31)
+    n, k = 2000, 6
+
+    def bimodal():
+        return (rng.choice([-1.0, 1.0], size=n) + 0.5 * rng.normal(size=n)) / np.sqrt(1.25)
+
+    A, B = rng.uniform(-1, 1, size=(n, k)), rng.uniform(-1, 1, size=(n, k))
+    x = A.sum(axis=1) + 0.8 * bimodal()
+    y = 0.8 * x + B.sum(axis=1) + 0.8 * bimodal()
+    frame = pd.DataFrame({**{f"a{i}": A[:, i] for i in range(k)}, **{f"b{i}": B[:, i] for i in range(k)},
+                          "x": x, "y": y})
+    graph = tmp_path / "graph.txt"
+    graph.write_text("\n".join([f"a{i} -> x" for i in range(k)] + [f"b{i} -> y" for i in range(k)] + ["x -> y"]))
+    report = preflight.check(frame, graph=str(graph), jobs=1, keep_samples=False)
+    (pair,) = [p for p in report.data["pairs"] if {p["x"], p["y"]} == {"x", "y"}]
+    marginal = [c for c in pair["checks"] if c["name"] in ("jarque-bera (y on x)", "jarque-bera (x on y)")]
+    assert len(marginal) == 2 and not any(c["passed"] for c in marginal)
+    in_equations = [c for c in pair["checks"] if c["name"].startswith("jarque-bera in the equation")]
+    assert len(in_equations) == 2 and all(c["passed"] for c in in_equations)
+    assert decode(in_equations[0], "pair", ("x", "y")).family == "equation noise normality"
+    assert pair["orientation"] == "x->y" and pair["basis"] == "linear-non-gaussian"
+    assert "gaussian-noise" not in pair["flags"]
