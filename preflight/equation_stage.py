@@ -212,7 +212,7 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     partial = [t for t in edge if t.family == PARTIAL_FAMILY]
     shapes = {role: [t.result for t in edge if t.family == NORMALITY_FAMILY and t.role == role]
               for role in ("forward", "reverse")}
-    if shapes["forward"] and shapes["reverse"]:
+    if all(any(r.p_value is not None for r in shapes[role]) for role in shapes):
         gaussian = not any(nongaussian_under(shapes[role], policy) for role in shapes)
     else:
         gaussian = "gaussian-noise" in findings.flags

@@ -130,7 +130,7 @@ def equation_checks(X, target: int, parents: Sequence[int], max_df: int = 10, se
         # A hypothesised graph can give a variable as many parents as it likes.
         return none_computed(f"{len(sets[target])} parents on {X.shape[0]} rows leave no residual degrees of freedom")
     equation = fit_equations(X, sets)[target]
-    if equation.parents and exactly_fitted(equation.residuals):
+    if equation.parents and exactly_fitted(equation.residuals, X[:, target]):
         # The collinearity screen reports the cause.
         return none_computed("the residual is zero (exact linear relation)")
     out = list(normality_checks(equation.residuals, seed=seed))
@@ -655,7 +655,6 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
     """
     from preflight.checks.association import pearson_fisher_z
     from preflight.checks.direction import pairwise_likelihood_ratio
-    from preflight.checks.normality import normality_checks
     from preflight.fit import residualize
 
     X = as_matrix(X, name="X", min_n=8)
@@ -700,5 +699,17 @@ def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float
                          likelihood_ratio=float(ratio), conditioning=Z, n=X.shape[0], reason=reason,
                          forward_spread=forward_spread, backward_spread=backward_spread,
                          partial_correlation=partial,
-                         forward_normality=normality_checks(forward_residual, max_n=normality_max_n, seed=seed),
-                         backward_normality=normality_checks(backward_residual, max_n=normality_max_n, seed=seed + 1))
+                         forward_normality=_shape_checks(forward_residual, X[:, j], normality_max_n, seed),
+                         backward_normality=_shape_checks(backward_residual, X[:, i], normality_max_n, seed + 1))
+
+
+def _shape_checks(residual: np.ndarray, response: np.ndarray, max_n: int, seed: int) -> tuple:
+    """The normality checks of an edge residual; "not computed" where the regression fits exactly."""
+    from preflight.checks.normality import NORMALITY_TESTS, normality_checks
+    from preflight.fit import exactly_fitted
+    from preflight.results import not_computed
+
+    if exactly_fitted(residual, response):
+        return tuple(not_computed(name, residual.shape[0], "the residual is zero (exact linear relation)")
+                     for name in NORMALITY_TESTS)
+    return normality_checks(residual, max_n=max_n, seed=seed)

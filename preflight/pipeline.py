@@ -288,7 +288,7 @@ def _structural_view(X: np.ndarray, names: tuple[str, ...], policy: Policy, prog
     progress("noise shape", 0, p)
     for j, name in enumerate(names):
         seed = derived_seed(policy.seed, "noise", name)
-        if exactly_fitted(noise[:, j]):
+        if exactly_fitted(noise[:, j], X[:, j]):
             # The collinearity screen says why.
             results = tuple(not_computed(test, X.shape[0], NO_NOISE) for test in NORMALITY_TESTS)
         else:
@@ -694,9 +694,11 @@ def _judge_variables(table: Table, screen: Screen, computed: Computed, evidence:
         if structure is not None:
             noise_norm = [t.result for t in tagged if t.family == "noise normality"]
             # No noise at all (an exact linear relation) is neither a Gaussian nor a non-Gaussian component.
-            if not exactly_fitted(structure.noise[:, j]) and not nongaussian_under(noise_norm, policy):
+            exact = exactly_fitted(structure.noise[:, j], table.values[:, j])
+            if not exact and not nongaussian_under(noise_norm, policy):
                 gaussian_noises.append(name)
-            tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], name, policy))]
+            tagged = tagged + [Tagged(None, "variable", _rows_needed_check(structure.noise[:, j], exact, name,
+                                                                           policy))]
         flags = list(screen.variable_flags[name])
         judged = []
         for t in tagged + evidence.equation_checks.get(j, []):
@@ -940,11 +942,11 @@ def _plotted_fits(batteries: Sequence[PairBattery], entries) -> dict[frozenset[s
     return fits
 
 
-def _rows_needed_check(noise_column: np.ndarray, name: str, policy: Policy) -> CheckResult:
+def _rows_needed_check(noise_column: np.ndarray, exact: bool, name: str, policy: Policy) -> CheckResult:
     from preflight import structure
     from preflight.checks.normality import shape
 
-    if exactly_fitted(noise_column):
+    if exact:
         return not_computed(f"rows needed (noise of {name})", int(noise_column.shape[0]), NO_NOISE).identified(
             scope="variable", variables=(name,), test="rows-needed", variant=NOISE_ESTIMATE)
     s = shape(noise_column)
