@@ -360,7 +360,9 @@ def test_henze_zirkler_leaves_out_a_column_constant_on_its_subsample():
     for seed in seeds:
         result = structure.henze_zirkler(X, seed=seed, max_n=50)
         assert "1 column(s) constant on the subsample left out" in result.note
-        assert result.statistic == structure.henze_zirkler(X[:, 1:], seed=seed, max_n=50).statistic
+        # The same statistic up to rounding (the dropped column changes the order of BLAS sums).
+        assert result.statistic == pytest.approx(structure.henze_zirkler(X[:, 1:], seed=seed, max_n=50).statistic,
+                                                 rel=1e-12)
 
 
 # --------------------------------------------------------------------------- rows needed
