@@ -19,7 +19,15 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from preflight.evidence import Tagged, rejects, significant
-from preflight.fit import RegressorDesigns, bspline_basis, ols, residualize, simple_slope, spline_df
+from preflight.fit import (
+    RegressorDesigns,
+    bspline_basis,
+    exactly_fitted,
+    ols,
+    residualize,
+    simple_slope,
+    spline_df,
+)
 from preflight.policy import Policy
 from preflight.results import GIVEN_A_SPLINE, SPLINE_RESIDUAL, CheckResult, not_computed
 from preflight.seeds import derived_seed
@@ -221,8 +229,7 @@ def _direction_checks(regressor: np.ndarray, response: np.ndarray, residual: np.
 
     label = f"{direction[0]} on {direction[1]}"
     n = regressor.shape[0]
-    spread = float(np.std(response))
-    if not np.std(regressor) > 0 or not np.std(residual) > 1e-10 * max(spread, 1e-300):
+    if not np.std(regressor) > 0 or exactly_fitted(residual, response):
         # An exact linear relation (a duplicated or derived column) leaves no
         # noise to test; the collinearity screen reports the cause.
         why = ("the regressor is constant" if not np.std(regressor) > 0

@@ -31,9 +31,9 @@ SPREAD_FAMILY = "equation residual spread"
 LINEARITY_FAMILY = "equation linearity"
 VARIANCE_FAMILY = "equation variance"
 PARTIAL_FAMILY = "equation partial correlation"
+"""The partial correlation of an adjacent pair given the other parents of both, one test per adjacent pair."""
 NORMALITY_FAMILY = "equation noise normality"
 """The normality checks of an edge's forward and reverse residuals inside the equations."""
-"""The partial correlation of an adjacent pair given the other parents of both, one test per adjacent pair."""
 EQUATION_FAMILIES = (LINEARITY_FAMILY, VARIANCE_FAMILY)
 RESIDUAL_BOOTSTRAP = "residual bootstrap"
 """The null of an HSIC inside an equation: simulated by the residual bootstrap (Sen and Sen 2014)."""
@@ -195,8 +195,8 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     reverse is not (adjusted p, decided on the smooth bootstrap p-value) and
     the likelihood ratio agrees; not when both directions' residuals in the
     equations look Gaussian (``gaussian-noise``, which replaces the
-    battery's: a marginal residual carries the child's other parents).  Dependent in both directions:
-    ``confounding-suspected``.  The battery's ``nonlinear``,
+    battery's: a marginal residual carries the child's other parents).
+    Dependent in both directions: ``confounding-suspected``.  The battery's ``nonlinear``,
     ``heteroscedastic`` and ``confounding-suspected`` flags and its
     additive-noise orientation are dropped: they rest on marginal
     regressions that the child's other parents bend.
