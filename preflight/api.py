@@ -6,8 +6,10 @@ The CLI calls exactly this.
 
 from __future__ import annotations
 
+import contextlib
 import os
-from collections.abc import Callable
+import threading
+from collections.abc import Callable, Iterator
 from dataclasses import replace
 from typing import Any
 
@@ -20,6 +22,63 @@ Progress = Callable[[str, int, int], None]
 
 def _no_progress(stage: str, done: int, total: int) -> None:
     return None
+
+
+_blas_lock = threading.Lock()
+_blas_holders = 0
+_blas_outermost: Any = None
+
+
+def _release_blas_control() -> None:
+    """Let any Python thread set OpenBLAS's thread count again.
+
+    Since threadpoolctl 3.8 only one Python thread at a time may change the
+    limits of a pthreads OpenBLAS (its pool is process-wide); a call from any
+    other thread silently does nothing.  Every change made here is made
+    under ``_blas_lock`` with control released before and after, so a check
+    in a second thread can neither be refused nor lock out the first.
+    Earlier threadpoolctl versions have no such rule and nothing to release.
+    """
+    import threadpoolctl
+
+    clear = getattr(getattr(threadpoolctl, "OpenBLASController", None), "clear_controlling_thread", None)
+    if clear is not None:
+        clear(force=True)
+
+
+@contextlib.contextmanager
+def _single_threaded_blas() -> Iterator[None]:
+    """One BLAS thread while any check in this process runs.
+
+    The float32 feature products of the HSIC round differently on one BLAS
+    thread and on several, so a check must never run on the caller's count.
+    The thread count belongs to the process: two checks in two threads that
+    each restored, on the way out, the count they found would hand the
+    other one the caller's count mid-run.  So the first check in sets the
+    limit, the last one out restores the count the first one found.
+    (An OpenMP-built OpenBLAS keeps a count per thread; each check's thread
+    then sets its own, and only the last one out is restored.)
+    """
+    global _blas_holders, _blas_outermost
+    from threadpoolctl import threadpool_limits
+
+    with _blas_lock:
+        _release_blas_control()
+        limiter = threadpool_limits(limits=1, user_api="blas")
+        _release_blas_control()
+        if _blas_holders == 0:
+            _blas_outermost = limiter
+        _blas_holders += 1
+    try:
+        yield
+    finally:
+        with _blas_lock:
+            _blas_holders -= 1
+            if _blas_holders == 0:
+                _release_blas_control()
+                _blas_outermost.restore_original_limits()
+                _release_blas_control()
+                _blas_outermost = None
 
 
 def check(
@@ -75,8 +134,6 @@ def check(
 def analyse(loaded: LoadedData, policy: Policy, *, graph: GraphFile | str | os.PathLike | None = None,
             progress: Progress = _no_progress, keep_samples: bool = True) -> Report:
     """The analysis of a loaded table; ``graph`` is a :class:`~preflight.io.GraphFile` or the path of one."""
-    from threadpoolctl import threadpool_limits
-
     from preflight import pipeline
 
     if graph is not None and not isinstance(graph, GraphFile):
@@ -86,6 +143,6 @@ def analyse(loaded: LoadedData, policy: Policy, *, graph: GraphFile | str | os.P
     # little on them and, once the pair battery's worker processes share the
     # cores, its spinning threads made a whole check several times slower
     # (benchmarks/bench.py); parallelism comes from the worker processes.
-    # The limit is lifted again when the check returns.
-    with threadpool_limits(limits=1, user_api="blas"):
+    # The limit is lifted again when the last running check returns.
+    with _single_threaded_blas():
         return pipeline.run(loaded, policy, graph=graph, progress=progress, keep_samples=keep_samples)

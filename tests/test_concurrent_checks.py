@@ -90,3 +90,50 @@ def test_random_feature_hsic_from_many_threads_matches_serial():
         thread.join()
     assert not errors, errors
     assert all(value == serial[k] for (_, k), value in results.items())
+
+
+def _blas_thread_counts() -> list[int]:
+    from threadpoolctl import threadpool_info
+
+    return [info["num_threads"] for info in threadpool_info() if info["user_api"] == "blas"]
+
+
+def test_a_check_in_any_thread_runs_on_one_blas_thread_and_hands_back_the_callers_count():
+    """threadpoolctl 3.8 lets only one Python thread at a time change OpenBLAS's count and silently
+    ignores the others; a check in a second thread once ran on the caller's count and its HSIC
+    statistics differed from the serial report in the seventh digit."""
+    from preflight.api import _single_threaded_blas
+
+    before = _blas_thread_counts()
+    inside: dict[str, list[int]] = {}
+    entered, leave = threading.Barrier(3), threading.Barrier(3)
+
+    def hold(name: str) -> None:
+        with _single_threaded_blas():
+            entered.wait()
+            inside[name] = _blas_thread_counts()
+            leave.wait()
+
+    with _single_threaded_blas():  # the main thread takes control first, as a serial check would
+        inside["main"] = _blas_thread_counts()
+    threads = [threading.Thread(target=hold, args=(name,)) for name in ("first", "second")]
+    for thread in threads:
+        thread.start()
+    entered.wait()
+    leave.wait()
+    for thread in threads:
+        thread.join()
+    assert inside == {name: [1] * len(before) for name in ("main", "first", "second")}
+    assert _blas_thread_counts() == before
+    later: list[list[int]] = []
+    thread = threading.Thread(target=lambda: later.append(_run_held()))
+    thread.start()
+    thread.join()
+    assert later == [[1] * len(before)]
+
+
+def _run_held() -> list[int]:
+    from preflight.api import _single_threaded_blas
+
+    with _single_threaded_blas():
+        return _blas_thread_counts()
