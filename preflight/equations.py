@@ -436,19 +436,9 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
                     for s, nx in zip(observed, norms_x))
     basis = _orthonormal_basis(D)
     centred = residual - residual.mean()
-    squares_design = np.column_stack([*columns, *(c * c for c in columns)])
-    squares_basis = _orthonormal_basis(squares_design)
-    spared = extreme_rows(m)
-    # The trimmed run leaves out the rows of highest leverage in the tested columns and caps the
-    # largest residuals: the first depends on the columns alone, the second on the residuals alone,
-    # so under H0 the two stay independent and the same refits calibrate it.
-    leverage = np.einsum("ij,ij->i", squares_basis, squares_basis)
-    kept = np.sort(np.argsort(leverage, kind="stable")[:m - spared])
-    kept_basis = _orthonormal_basis(squares_design[kept])
+    squares_basis = _orthonormal_basis(np.column_stack([*columns, *(c * c for c in columns)]))
     spread_observed = _spread_r2(centred[rows][:, None], squares_basis)[0]
-    capped_observed = _spread_r2(_capped(centred[rows][kept][:, None], spared), kept_basis)[0]
     spread_boot = np.empty(replicates)
-    capped_boot = np.empty(replicates)
     boot = np.empty((k, replicates))
     chunk = max(1, min(replicates, int(4e6 // (m * 2 * n_features))))
 
@@ -461,24 +451,25 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
             boot[:, low:low + b] = _column_statistics(phi_all, _raw_features(
                 _standardised_columns(draws[rows]), omega_y), k, m)
             spread_boot[low:low + b] = _spread_r2(draws[rows], squares_basis)
-            capped_boot[low:low + b] = _spread_r2(_capped(draws[rows][kept], spared), kept_basis)
 
-    first_look = replicates if early_stop is None else early_stop.first_look(
-        max(effects), max(spread_observed, capped_observed), replicates)
+    first_look = replicates if early_stop is None else early_stop.first_look(max(effects), spread_observed, replicates)
     refit(0, first_look)
     stopped = first_look < replicates and early_stop is not None and _settled(
-        early_stop, observed, boot[:, :first_look], max(effects),
-        ((spread_observed, spread_boot[:first_look]), (capped_observed, capped_boot[:first_look])))
+        early_stop, observed, boot[:, :first_look], max(effects), spread_observed, spread_boot[:first_look])
     if stopped:
-        boot, replicates = boot[:, :first_look], first_look
-        spread_boot, capped_boot = spread_boot[:first_look], capped_boot[:first_look]
+        boot, spread_boot, replicates = boot[:, :first_look], spread_boot[:first_look], first_look
     else:
         refit(first_look, replicates)
     joint, joint_boot = _joint(observed, boot)
     column_p = tuple(float((1 + np.count_nonzero(boot[c] >= observed[c])) / (1 + replicates)) for c in range(k))
     smooth = _gamma_tail(joint, joint_boot)
-    spread = _weaker_spread(_spread_change(spread_observed, spread_boot, m),
-                            _spread_change(capped_observed, capped_boot, m), spared, replicates)
+    spread_p = _gamma_tail(spread_observed, spread_boot)
+    spread_counted = float((1 + np.count_nonzero(spread_boot >= spread_observed)) / (1 + replicates))
+    spread = SpreadChange(
+        statistic=spread_observed, p_value=spread_counted if spread_p is None else spread_p,
+        counted_p_value=spread_counted, effect=spread_observed, n=m,
+        note=(f"R-squared of the squared residual on the tested column(s) and their squares (White 1980); "
+              f"null from the same {replicates} residual-bootstrap refits, gamma tail"))
     return ResidualIndependence(
         statistic=joint, p_value=float((1 + np.count_nonzero(joint_boot >= joint)) / (1 + replicates)),
         effect=max(effects), n=m, column_statistics=tuple(float(s) for s in observed),
@@ -490,49 +481,12 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
     )
 
 
-def _capped(residuals: np.ndarray, spared: int) -> np.ndarray:
-    """Each column with its ``spared`` largest absolute values pulled in to the next largest, sign kept.
-
-    The cap is a function of the residuals alone, so a residual independent
-    of the tested columns stays so once capped, and the bootstrap refits are
-    capped the same way.
-    """
-    size = np.abs(residuals)
-    cap = np.partition(size, size.shape[0] - 1 - spared, axis=0)[size.shape[0] - 1 - spared]
-    return np.clip(residuals, -cap, cap)
-
-
-def _spread_change(observed: float, boot: np.ndarray, m: int) -> SpreadChange:
-    smooth = _gamma_tail(observed, boot)
-    counted = float((1 + np.count_nonzero(boot >= observed)) / (1 + boot.shape[0]))
-    return SpreadChange(statistic=observed, p_value=counted if smooth is None else smooth,
-                        counted_p_value=counted, effect=observed, n=m)
-
-
-def _weaker_spread(full: SpreadChange, capped: SpreadChange, spared: int, replicates: int) -> SpreadChange:
-    """The run with the larger p-value: on all rows, or trimmed (the ``spared`` rows of highest leverage
-    left out and the ``spared`` largest residuals capped).
-
-    A change of spread that rests on a handful of rows (one draw far out in
-    a heavy-tailed noise, beside a regressor value far out) is not a change
-    of spread.  The larger of two valid p-values is a
-    valid p-value, so requiring both runs to reject keeps the level.
-    """
-    runs = {"on all rows": full, (f"without the {spared} row(s) of highest leverage and with the {spared} "
-                               f"largest residual(s) capped at the next"): capped}
-    (label, weaker), (other_label, other) = sorted(runs.items(), key=lambda run: -run[1].p_value)
-    return replace(weaker, note=(
-        f"R-squared of the squared residual on the tested column(s) and their squares (White 1980), "
-        f"{label}; null from the same {replicates} residual-bootstrap refits, gamma tail; "
-        f"{other_label}: p = {other.p_value:.3g}"))
-
-
-def _settled(stop: EarlyStop, observed, boot, effect, spreads) -> bool:
-    """Whether neither the joint HSIC nor either run of the spread change (observed, bootstrap draws)
-    can change its decision with more refits."""
+def _settled(stop: EarlyStop, observed, boot, effect, spread_observed, spread_boot) -> bool:
+    """Whether neither the joint HSIC nor the spread change can change its decision with more refits."""
     joint_p = _gamma_tail(*_joint(observed, boot))
+    spread_p = _gamma_tail(spread_observed, spread_boot)
     return (stop.settled(effect, joint_p, stop.hsic_floor)
-            and all(stop.settled(spread, _gamma_tail(spread, draws), stop.spread_floor) for spread, draws in spreads))
+            and stop.settled(spread_observed, spread_p, stop.spread_floor))
 
 
 def _joint(observed: np.ndarray, boot: np.ndarray) -> tuple[float, np.ndarray]:
