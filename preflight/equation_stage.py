@@ -229,6 +229,9 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     facts = {"adjacent", "anm-undetermined"}
     if lingam == "undetermined":
         facts.add("lingam-undetermined")
+        lean = _lean(edge, lr, policy) if powered and not gaussian else None
+        if lean is not None:
+            facts.add(f"equations-lean-{lean}")
     else:
         facts |= {"lingam-oriented", "oriented-in-equations"} if powered else {"lingam-oriented"}
     if dependent["forward"] and dependent["reverse"] and not gaussian:
@@ -256,8 +259,34 @@ def has_precedence(n: int, policy: Policy) -> bool:
 def _counts(test: Tagged, policy: Policy) -> bool:
     """A significant departure with at least its floor: normalised HSIC, or the auxiliary R-squared of a
     spread test (``confounding_spread_min_r2``: a hidden common cause leaves a faint spread change)."""
-    floor = policy.dependence_min_hsic if test.family == EDGE_FAMILY else policy.confounding_spread_min_r2
-    return significant(test.result, policy.alpha) and (test.result.effect or 0.0) >= floor
+    return significant(test.result, policy.alpha) and (test.result.effect or 0.0) >= _floor(test, policy)
+
+
+def _lean(edge: list[Tagged], lr: float, policy: Policy) -> str | None:
+    """The direction the evidence of an edge the equations could not orient points to, if any.
+
+    x -> y when the residual of x on y (the reverse regression) depends on y
+    at the unadjusted level with at least its floor, more clearly than the
+    forward residual does on x, and the likelihood ratio agrees; the mirror
+    for y -> x.  Too weak to orient an edge, enough to doubt an orientation
+    the class compels the other way.
+    """
+    def clearest(role: str) -> float:
+        leaning = [t.result.p_value for t in edge
+                   if t.role == role and t.family in (EDGE_FAMILY, SPREAD_FAMILY) and t.result.p_value is not None
+                   and t.result.p_value < policy.alpha and (t.result.effect or 0.0) >= _floor(t, policy)]
+        return min(leaning, default=1.0)
+
+    forward, reverse = clearest("forward"), clearest("reverse")
+    if lr > 0 and reverse < min(forward, policy.alpha):
+        return "x->y"
+    if lr < 0 and forward < min(reverse, policy.alpha):
+        return "y->x"
+    return None
+
+
+def _floor(test: Tagged, policy: Policy) -> float:
+    return policy.dependence_min_hsic if test.family == EDGE_FAMILY else policy.confounding_spread_min_r2
 
 
 def _dependent(tests: list[Tagged], policy: Policy) -> bool:

@@ -837,6 +837,10 @@ def _conclude(table: Table, screen: Screen, computed: Computed, variables: Varia
         if f.lingam_orientation != "undetermined" and compelled in ("i->j", "j->i"):
             if ("x->y" if compelled == "i->j" else "y->x") != f.lingam_orientation:
                 facts.add("orientation-conflict")
+        elif compelled in ("i->j", "j->i"):
+            against = "y->x" if compelled == "i->j" else "x->y"
+            if f"equations-lean-{against}" in facts:
+                facts.add("class-against-equations-lean")
         pair_facts[(f.x, f.y)] = frozenset(facts)
     if screen.void:
         for (i, j) in table.pairs:

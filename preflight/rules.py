@@ -22,7 +22,8 @@ KINDS = ("limit", "caution")
 PAIR_FINDINGS = ("adjacent", "not-adjacent", "lingam-oriented", "lingam-undetermined", "anm-oriented",
                  "anm-undetermined", "orientation-conflict", "residuals-dependent-both-ways",
                  "noise-estimates-dependent", "no-independent-noise-model", "independent-both-ways",
-                 "oriented-in-equations", "no-partial-correlation")
+                 "oriented-in-equations", "no-partial-correlation", "equations-lean-x->y", "equations-lean-y->x",
+                 "class-against-equations-lean")
 """Facts about a pair besides its flags (``battery.judge_pair``; ``orientation-conflict`` from the pipeline)."""
 GLOBAL_FINDINGS = ("any-nonlinear",)
 """Facts about the table besides its flags: ``any-nonlinear`` when some adjacent pair is ``nonlinear``."""

@@ -132,3 +132,31 @@ def test_gaussian_noise_of_an_edge_is_judged_on_its_residuals_in_the_equations(t
     assert decode(in_equations[0], "pair", ("x", "y")).family == "equation noise normality"
     assert pair["orientation"] == "x->y" and pair["basis"] == "linear-non-gaussian"
     assert "gaussian-noise" not in pair["flags"]
+
+
+def _edge_test(family: str, role: str, p_value: float, effect: float):
+    from preflight.evidence import Tagged
+    from preflight.results import CheckResult
+
+    return Tagged(family, role, CheckResult(name=f"{family} {role}", statistic=effect, p_value=p_value,
+                                            effect=effect, n=1000))
+
+
+@pytest.mark.parametrize(("forward_p", "reverse_p", "lr", "lean"), [
+    (0.01, 0.50, -0.02, "y->x"),   # the forward residual depends on x, the ratio agrees: y -> x
+    (0.50, 0.02, 0.03, "x->y"),
+    (0.01, 0.50, 0.02, None),      # the ratio disagrees
+    (0.08, 0.50, -0.02, None),     # nothing below alpha before adjustment
+    (0.01, 0.004, -0.02, None),    # the other residual depends more clearly
+])
+def test_the_lean_of_an_edge_the_equations_could_not_orient(forward_p, reverse_p, lr, lean):
+    from preflight.equation_stage import EDGE_FAMILY, SPREAD_FAMILY, _lean
+    from preflight.policy import Policy
+
+    policy = Policy()
+    edge = [_edge_test(EDGE_FAMILY, "forward", forward_p, 0.01), _edge_test(SPREAD_FAMILY, "forward", 0.6, 0.001),
+            _edge_test(EDGE_FAMILY, "reverse", reverse_p, 0.01), _edge_test(SPREAD_FAMILY, "reverse", 0.7, 0.001)]
+    assert _lean(edge, lr, policy) == lean
+    # Below its effect floor a small p-value is no lean.
+    faint = [_edge_test(t.family, t.role, t.result.p_value, 0.0005) if t.family == EDGE_FAMILY else t for t in edge]
+    assert _lean(faint, lr, policy) is None

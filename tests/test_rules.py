@@ -99,3 +99,18 @@ def test_an_edge_without_support_in_its_equations_is_not_oriented_even_by_the_cl
     outcome = evaluate(frozenset(), {}, {("a", "b"): faint, ("a", "c"): oriented}, {})
     assert [f.rule.id for f in outcome.fired] == ["direction-too-faint"]
     assert "equivalence-class" not in outcome.edge_ruled_out[("a", "b")]
+
+
+def test_a_compelled_orientation_the_equations_lean_against_is_left_out_and_the_table_keeps_its_rung():
+    oriented = frozenset({"adjacent", "lingam-oriented", "anm-undetermined"})
+    leaning = frozenset({"adjacent", "lingam-undetermined", "anm-undetermined", "independent-both-ways",
+                         "equations-lean-y->x", "class-against-equations-lean"})
+    outcome = evaluate(frozenset(), {}, {("a", "b"): leaning, ("a", "c"): oriented}, {})
+    assert outcome.level == "linear-non-gaussian"
+    assert "class-against-equations-lean" in [f.rule.id for f in outcome.fired]
+    assert "equivalence-class" in outcome.edge_ruled_out[("a", "b")]
+    assert outcome.edge_ruled_out[("a", "c")] == frozenset()
+    # The lean alone, with the class agreeing or silent, rules nothing out.
+    agreeing = leaning - {"class-against-equations-lean"}
+    outcome = evaluate(frozenset(), {}, {("a", "b"): agreeing, ("a", "c"): oriented}, {})
+    assert "equivalence-class" not in outcome.edge_ruled_out[("a", "b")]
