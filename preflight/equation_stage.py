@@ -277,10 +277,10 @@ def _lean(edge: list[Tagged], lr: float, policy: Policy) -> str | None:
                    and t.result.p_value < policy.alpha and (t.result.effect or 0.0) >= _floor(t, policy)]
         return min(leaning, default=1.0)
 
-    forward, reverse = clearest("forward"), clearest("reverse")
-    if lr > 0 and reverse < min(forward, policy.alpha):
+    forward, reverse = clearest("forward"), clearest("reverse")  # 1.0 when nothing falls below alpha
+    if lr > 0 and reverse < forward:
         return "x->y"
-    if lr < 0 and forward < min(reverse, policy.alpha):
+    if lr < 0 and forward < reverse:
         return "y->x"
     return None
 

@@ -125,15 +125,11 @@ def test_a_check_in_any_thread_runs_on_one_blas_thread_and_hands_back_the_caller
         thread.join()
     assert inside == {name: [1] * len(before) for name in ("main", "first", "second")}
     assert _blas_thread_counts() == before
-    later: list[list[int]] = []
-    thread = threading.Thread(target=lambda: later.append(_run_held()))
-    thread.start()
-    thread.join()
-    assert later == [[1] * len(before)]
-
-
-def _run_held() -> list[int]:
-    from preflight.api import _single_threaded_blas
-
-    with _single_threaded_blas():
-        return _blas_thread_counts()
+    # Control was handed back: a check in yet another thread still gets its one thread.
+    later = threading.Thread(target=hold, args=("later",))
+    entered, leave = threading.Barrier(2), threading.Barrier(2)
+    later.start()
+    entered.wait()
+    leave.wait()
+    later.join()
+    assert inside["later"] == [1] * len(before)
