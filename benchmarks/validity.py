@@ -1429,7 +1429,7 @@ def parse_args(argv=None):
     parser.add_argument("--results", type=Path, default=DEFAULT_RESULTS,
                         help="Markdown file whose validity section is replaced (default benchmarks/RESULTS.md)")
     parser.add_argument("--figures", type=Path, default=DEFAULT_FIGURES, help="directory for the PNG figures")
-    parser.add_argument("--no-write", action="store_true", help="print the Markdown instead of writing it")
+    parser.add_argument("--no-write", action="store_true", help="print the Markdown instead of writing it, and draw no figures")
     parser.add_argument("--notes", type=Path, default=None,
                         help="Markdown file of the analyst's reading of the results, placed after the headline")
     return parser.parse_args(argv)
@@ -1526,8 +1526,9 @@ def main(argv=None) -> int:
                           f"({cal_reps} replicates per null, {power_reps} per power point)")
             if saved:
                 saved.write_text(json.dumps({"calibration": calibration, "power": curves, "timing": timing[-1]}))
-        figures += draw_power_curves(curves, args.figures)
-    if records:
+        if not args.no_write:
+            figures += draw_power_curves(curves, args.figures)
+    if records and not args.no_write:
         path = draw_orientation_figure(records, args.figures)
         if path:
             figures.insert(0, path)

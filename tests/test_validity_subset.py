@@ -253,3 +253,11 @@ def test_markdown_gives_the_hidden_pair_and_several_parents_figures_by_n():
     assert "### Several parents per child, wide noise families and weights: by kind and n" in text
     assert (f"| linear-non-gaussian | 80 | 1 | 100.0 % (1/1) | 100.0 % (1/1) | 0.0 % (0/{edges}) | "
             f"0.0 % (0/{edges}) |") in text
+
+
+def test_no_write_leaves_the_figures_directory_alone(tmp_path, capsys):
+    figures = tmp_path / "figures"
+    assert validity.main(["--kinds", "linear-non-gaussian", "--shapes", "pair", "--ns", "200:1",
+                          "--skip-calibration", "--no-write", "--figures", str(figures)]) == 0
+    assert "linear-non-gaussian" in capsys.readouterr().out
+    assert not figures.exists() or not any(figures.iterdir())
