@@ -833,14 +833,15 @@ def _conclude(table: Table, screen: Screen, computed: Computed, variables: Varia
     pair_facts: dict[tuple[str, str], frozenset[str]] = {}
     for f, ij in zip(findings.pairs, table.pairs):
         facts = set(f.facts)
-        compelled = status.get(ij, "undirected")
-        if f.lingam_orientation != "undetermined" and compelled in ("i->j", "j->i"):
-            if ("x->y" if compelled == "i->j" else "y->x") != f.lingam_orientation:
+        # The class's compelled direction in the pair's own x, y terms; None when it compels none.
+        compelled = {"i->j": "x->y", "j->i": "y->x"}.get(status.get(ij, "undirected"))
+        if compelled is None:
+            pass
+        elif f.lingam_orientation != "undetermined":
+            if compelled != f.lingam_orientation:
                 facts.add("orientation-conflict")
-        elif compelled in ("i->j", "j->i"):
-            against = "y->x" if compelled == "i->j" else "x->y"
-            if f"equations-lean-{against}" in facts:
-                facts.add("class-against-equations-lean")
+        elif f"equations-lean-{'y->x' if compelled == 'x->y' else 'x->y'}" in facts:
+            facts.add("class-against-equations-lean")
         pair_facts[(f.x, f.y)] = frozenset(facts)
     if screen.void:
         for (i, j) in table.pairs:
