@@ -230,6 +230,8 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
                                                                                 children))
     noise_pairs = tuple(ij for ij in table.pairs if skeleton.estimated[ij])
     edge_futures = _submit_edge_tasks(pool, parents, noise_pairs, policy)
+    links = equation_stage.bent_links(equations, parents, policy)
+    link_futures = _submit_tasks(pool, _spline_edge_task_in_worker, links, parents, policy)
     # The noise HSICs need nothing the pairs need: with workers they run in
     # the one the whole-table screens left idle while this process shares
     # the association checks.
@@ -246,28 +248,42 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     whole_table = whole.result() if whole is not None else _whole_table_screens(X, policy)
     progress("whole-table screens", 1, 1)
     edges = _edge_tests(table, parents, noise_pairs, edge_futures, progress)
+    spline_edges = _collect(links, link_futures, "edges of bent equations", progress,
+                            lambda link: equation_stage.spline_edge_task(table.values, table.names, parents, link,
+                                                                         policy))
     return Computed(structure=structure, skeleton=skeleton, plan=plan, batteries=tuple(batteries),
                     noise_dependence=noise_dependence, whole_table=whole_table, edge_tests=edges,
-                    equation_checks=equations)
+                    equation_checks=equations, parents=tuple(tuple(ps) for ps in parents),
+                    spline_edge_tests=spline_edges)
 
 
 def _submit_edge_tasks(pool, parents, pairs, policy: Policy) -> list | None:
     """The adjacent pairs' tests inside their equations, queued in the workers to run beside the batteries."""
-    if pool is None or len(pairs) < 2:
+    return _submit_tasks(pool, _edge_task_in_worker, pairs, parents, policy)
+
+
+def _submit_tasks(pool, in_worker, units, parents, policy: Policy) -> list | None:
+    """One future per unit of work (a pair or a link), or None to run them here (no pool, or a single unit)."""
+    if pool is None or len(units) < 2:
         return None
-    task = functools.partial(_edge_task_in_worker, parents=parents, policy=policy)
-    return [pool.submit(task, ij) for ij in pairs]
+    task = functools.partial(in_worker, parents=parents, policy=policy)
+    return [pool.submit(task, unit) for unit in units]
 
 
 def _edge_tests(table: Table, parents, pairs, futures: list | None, progress: Progress) -> dict:
     """Per adjacent pair, its tagged tests inside the equations (:func:`equation_stage.edge_task`), in pair order."""
+    return _collect(pairs, futures, "edges in their equations", progress,
+                    lambda ij: equation_stage.edge_task(table.values, table.names, parents, ij, table.policy))
+
+
+def _collect(units, futures: list | None, stage: str, progress: Progress, run_here) -> dict:
+    """Each unit's result, from its future or computed here, in the order given."""
     out = {}
-    for done, ij in enumerate(pairs):
-        progress("edges in their equations", done, len(pairs))
-        out[ij] = (futures[done].result() if futures is not None
-                   else equation_stage.edge_task(table.values, table.names, parents, ij, table.policy))
-    if pairs:
-        progress("edges in their equations", len(pairs), len(pairs))
+    for done, unit in enumerate(units):
+        progress(stage, done, len(units))
+        out[unit] = futures[done].result() if futures is not None else run_here(unit)
+    if units:
+        progress(stage, len(units), len(units))
     return out
 
 
@@ -443,6 +459,10 @@ def _edge_task_in_worker(pair: tuple[int, int], parents, policy: Policy):
     return equation_stage.edge_task(_WORKER["X"], _WORKER["names"], parents, pair, policy)
 
 
+def _spline_edge_task_in_worker(link: tuple[int, int], parents, policy: Policy):
+    return equation_stage.spline_edge_task(_WORKER["X"], _WORKER["names"], parents, link, policy)
+
+
 def _init_worker(X, names, parent_pid: int):
     from preflight.interruption import bind_worker_to_parent
 
@@ -604,10 +624,13 @@ def _adjust(table: Table, screen: Screen, computed: Computed, batteries: Sequenc
         groups[("edge", ij)] = list(tests)
     for j, tests in computed.equation_checks.items():
         groups[("equation", j)] = list(tests)
+    for link, tests in computed.spline_edge_tests.items():
+        groups[("spline edge", link)] = list(tests)
     adjusted = adjust_named_groups(groups, table.policy.correction)
     return Evidence(
         edge_checks={ij: adjusted[("edge", ij)] for ij in computed.edge_tests},
         equation_checks={j: adjusted[("equation", j)] for j in computed.equation_checks},
+        spline_edge_checks={link: adjusted[("spline edge", link)] for link in computed.spline_edge_tests},
         batteries=tuple(batteries),
         pair_checks={ij: adjusted[("pair", ij)] for ij, _ in zip(table.pairs, batteries)},
         noise_dependence={ij: adjusted[("noise", ij)][0].result for ij in table.pairs
@@ -752,7 +775,18 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
             final.append(replace(f, checks=f.checks + (noise,)))
         else:
             final.append(with_noise_dependence(f, noise, policy))
+    bent = _bent_links_by_pair(evidence)
+    final = [f if ij in separated or ij not in bent else equation_stage.judge_bent_edge(f, bent[ij], policy)
+             for ij, f in zip(table.pairs, final)]
     return Findings(pairs=tuple(final), skeleton=skeleton)
+
+
+def _bent_links_by_pair(evidence: Evidence) -> dict[Pair, list[Tagged]]:
+    """The spline-equation tests of each link (:func:`equation_stage.bent_links`), keyed by its table pair."""
+    out: dict[Pair, list[Tagged]] = {}
+    for (parent, child), tests in evidence.spline_edge_checks.items():
+        out.setdefault((min(parent, child), max(parent, child)), []).extend(tests)
+    return out
 
 
 def _separated_given_splines(table: Table, skeleton: Skeleton, judged: Sequence[PairFindings],

@@ -17,6 +17,8 @@ SCOPES = ("variable", "pair", "global")
 
 STRUCTURAL_EQUATION = "structural equation"
 """Variant of a check computed on a structural equation (a variable on all its parents at once)."""
+SPLINE_EQUATION = "structural equation with splines"
+"""Variant of a check computed on a structural equation with every parent entered as a spline."""
 SPLINE_RESIDUAL = "spline residual"
 """Variant of a check computed on the residual of the regression spline rather than of the straight line."""
 NOISE_ESTIMATE = "noise estimate"

@@ -25,6 +25,7 @@ from preflight.results import (
     GIVEN_A_SPLINE,
     NOISE_ESTIMATE,
     NOISE_ESTIMATES,
+    SPLINE_EQUATION,
     SPLINE_RESIDUAL,
     STRUCTURAL_EQUATION,
     CheckIdentity,
@@ -122,6 +123,8 @@ _IN_EQUATION_FAMILY = {"hsic": "equation residual independence", "white": "equat
                        **{test: "equation noise normality" for test, family in _DIRECTION_FAMILY.items()
                           if family == "noise normality"}}
 """Family of each test of one edge inside its equations (equation_stage.edge_task)."""
+_SPLINE_EQUATION_FAMILY = {"hsic": "equation spline residual independence", "white": "equation spline residual spread"}
+"""Family of each test of a bent equation's edge with splines (equation_stage.spline_edge_task)."""
 
 
 def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
@@ -137,6 +140,11 @@ def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
             test = test_id(name[: -len(suffix)])
             return CheckIdentity(test, _IN_EQUATION_FAMILY.get(test), "pair", pair, (first, second),
                                  STRUCTURAL_EQUATION)
+        suffix = f" in the spline equation ({first} on splines of {second} and its other parents)"
+        if name.endswith(suffix):
+            test = test_id(name[: -len(suffix)])
+            return CheckIdentity(test, _SPLINE_EQUATION_FAMILY.get(test), "pair", pair, (first, second),
+                                 SPLINE_EQUATION)
         marker = f" ({first}, {second}) given a spline of "
         if marker in name:
             return CheckIdentity(test_id(name[: name.index(marker)]), "separation given a spline", "pair", pair,

@@ -18,7 +18,7 @@ from typing import Any
 
 from preflight.report.identity import checks_with_identity, variable_check
 from preflight.report.text import FLAG_MEANING, LEVEL_WORDS, WHAT_STILL_FITS
-from preflight.results import GIVEN_A_SPLINE, SPLINE_RESIDUAL, STRUCTURAL_EQUATION, CheckIdentity
+from preflight.results import GIVEN_A_SPLINE, SPLINE_EQUATION, SPLINE_RESIDUAL, STRUCTURAL_EQUATION, CheckIdentity
 
 CHECK_HEADER = ("check", "statistic", "p", "adjusted p", "effect", "n", "result", "note")
 """Columns of every table of checks."""
@@ -195,6 +195,8 @@ REFERENCES = {
                      "289-300.",
     "breusch1979": "Breusch, T. S. and Pagan, A. R. (1979). A simple test for heteroscedasticity and random "
                    "coefficient variation. Econometrica 47(5), 1287-1294.",
+    "buhlmann2014": "Buehlmann, P., Peters, J. and Ernest, J. (2014). CAM: Causal additive models, "
+                    "high-dimensional order search and penalized regression. Annals of Statistics 42: 2526-2556.",
     "colombo2014": "Colombo, D. and Maathuis, M. H. (2014). Order-independent constraint-based causal structure "
                    "learning. Journal of Machine Learning Research 15, 3741-3782.",
     "dagostino1973": "D'Agostino, R. and Pearson, E. S. (1973). Tests for departure from normality. Empirical "
@@ -333,6 +335,12 @@ METHODS: tuple[Method, ...] = (
            "its null simulated by the residual bootstrap with refitted coefficients (Sen and Sen 2014); the same "
            "bootstrap calibrates White's auxiliary R-squared of the residual's spread (White 1980)",
            ("sen2014", "white1980"), _in_equation),
+    Method("spline-equation", "independence", "for each parent of a structural equation judged nonlinear or of "
+           "changing spread, the same bootstrap-calibrated HSIC and White's R-squared with every parent entered as "
+           "a cubic regression spline, in both directions: an additive-noise model with independent noise in "
+           "neither direction is a sign of a hidden common cause (Hoyer et al. 2009; Buehlmann et al. 2014; "
+           "Sen and Sen 2014)", ("hoyer2009", "buhlmann2014", "sen2014"),
+           lambda identity: identity.variant == SPLINE_EQUATION),
     Method("spline-separation", "independence", "for an edge with a common neighbour in a relation judged "
            "nonlinear, Pearson, Spearman and HSIC between the two variables once both are regressed on a cubic "
            "regression spline of that neighbour (de Boor 1978): a linear partial correlation does not separate "
