@@ -16,6 +16,7 @@ else (:func:`preflight.evidence.adjust_named_groups`), and
 
 from __future__ import annotations
 
+import math
 from dataclasses import replace
 
 import numpy as np
@@ -433,8 +434,13 @@ def _comparable(side: list[Tagged], other: list[Tagged], policy: Policy) -> bool
     below the other side's is the chance or small misfit a causal residual
     shows, and leaves it.
     """
+    def in_floors(test: Tagged) -> float:
+        floor = _floor(test, policy)
+        effect = test.result.effect or 0.0
+        return effect / floor if floor > 0 else (math.inf if effect > 0 else 0.0)  # a zero floor: all is material
+
     def strength(tests: list[Tagged], counted) -> float:
-        return max(((t.result.effect or 0.0) / _floor(t, policy) for t in tests if counted(t)), default=0.0)
+        return max((in_floors(t) for t in tests if counted(t)), default=0.0)
 
     faint = strength(side, lambda t: significant(t.result, policy.alpha))
     return faint > 0 and faint >= FAINT_SHARE * strength(other, lambda t: _counts(t, policy))

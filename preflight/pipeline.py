@@ -253,8 +253,7 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
                                                                          policy))
     return Computed(structure=structure, skeleton=skeleton, plan=plan, batteries=tuple(batteries),
                     noise_dependence=noise_dependence, whole_table=whole_table, edge_tests=edges,
-                    equation_checks=equations, parents=tuple(tuple(ps) for ps in parents),
-                    spline_edge_tests=spline_edges)
+                    equation_checks=equations, spline_edge_tests=spline_edges)
 
 
 def _submit_edge_tasks(pool, parents, pairs, policy: Policy) -> list | None:

@@ -178,9 +178,6 @@ class Computed:
     likelihood ratio on the partial residuals."""
     equation_checks: dict[int, tuple[Tagged, ...]] = field(default_factory=dict)
     """Per variable with parents, the checks of its structural equation on all its parents at once."""
-    parents: tuple[tuple[int, ...], ...] = ()
-    """The parent set of each variable that the equations were fitted on (the structural view's, or the
-    hypothesised graph's)."""
     spline_edge_tests: dict[tuple[int, int], tuple[Tagged, ...]] = field(default_factory=dict)
     """Per (parent, child) link of an equation that bends on its own (:func:`preflight.equation_stage.bent_links`),
     the pair regressed on splines both ways (:func:`preflight.equation_stage.spline_edge_task`)."""

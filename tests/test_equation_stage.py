@@ -196,6 +196,11 @@ def test_a_faint_dependence_on_the_causal_side_withholds_the_orientation(forward
     assert ("confounding-suspected" in judged.flags) == flagged
     faint_notes = [c for c in judged.checks if "too faint to flag" in (c.note or "")]
     assert len(faint_notes) == (1 if orientation == "undetermined" and not flagged else 0)
+    # With zero floors every significant dependence is material: nothing is faint, and nothing divides by zero.
+    unfloored = judge_in_equations(findings, (0, 1), edge, {}, replace(policy, dependence_min_hsic=0.0,
+                                                                       confounding_spread_min_r2=0.0))
+    assert not [c for c in unfloored.checks if "too faint to flag" in (c.note or "")]
+    assert ("confounding-suspected" in unfloored.flags) == (spread_p < 0.05)
 
 
 def test_a_bent_equation_whose_parent_shares_a_hidden_cause_is_flagged_through_its_splines(tmp_path):
