@@ -284,7 +284,7 @@ def judge_bent_edge(findings: PairFindings, tests: list[Tagged], policy: Policy)
     flags = findings.flags + (() if "confounding-suspected" in findings.flags else ("confounding-suspected",))
     withdrawn = {"lingam-oriented", "anm-oriented", "oriented-in-equations"}
     facts = {f for f in findings.facts if f not in withdrawn and not f.startswith("equations-lean-")}
-    facts |= {"confounding-suspected", "no-independent-noise-model-in-equations"}
+    facts |= {"confounding-suspected", "no-independent-noise-model"}
     if findings.adjacent:
         facts |= {"lingam-undetermined", "anm-undetermined"}
     return replace(findings, lingam_orientation="undetermined", anm_orientation="undetermined", flags=flags,
