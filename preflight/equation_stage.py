@@ -309,7 +309,8 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     nonlinear or changing-spread equation means the linear causal order
     behind the parent sets is not trusted there (a saturating curve reads as
     a cause of its own cause and reverses a chain), so such a pair keeps the
-    battery's findings.  Otherwise: oriented i -> j when the residual of j
+    battery's findings (where the bend is that equation's own, the pipeline
+    adds :func:`judge_bent_edge` afterwards).  Otherwise: oriented i -> j when the residual of j
     on i and the other parents is independent of i's partial residual (no
     significant dependence, not even one below its floor that comes close
     to the reverse's: :func:`_comparable`), the reverse is
