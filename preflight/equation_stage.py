@@ -181,10 +181,10 @@ def equation_tests(X: np.ndarray, names, parents, policy: Policy) -> dict[int, t
     return out
 
 
-def bent_links(equations: dict[int, tuple[Tagged, ...]], parents, policy: Policy) -> tuple[tuple[int, int], ...]:
+def bent_links(parents, holding: frozenset[int]) -> tuple[tuple[int, int], ...]:
     """(parent, child) for each parent i of a variable j whose equation departs from a straight line with a
-    constant spread, where the bend is j's alone: i, i's parents and j's other parents all have equations
-    that hold up (:func:`trusted`, adjusted as the evidence layer adjusts them).
+    constant spread (j not in ``holding``, the variables whose equation holds up: :func:`trusted`), where the
+    bend is j's alone: i, i's parents and j's other parents are all in ``holding``.
 
     The spline regressions of :func:`spline_edge_task` condition on those
     parent sets, so they need them right.  Where nonlinear mechanisms run
@@ -195,9 +195,8 @@ def bent_links(equations: dict[int, tuple[Tagged, ...]], parents, policy: Policy
     every bent equation doubled the true edges flagged
     ``confounding-suspected`` (28 to 58 of the 24 tables' edges).
     """
-    holding = trusted(equations, len(parents), policy)
-    return tuple((int(i), j) for j in sorted(equations) if j not in holding for i in parents[j]
-                 if {int(i), *parents[i], *(k for k in parents[j] if k != i)} <= holding)
+    return tuple((int(i), j) for j, ps in enumerate(parents) if j not in holding for i in ps
+                 if {int(i), *parents[i], *(k for k in ps if k != i)} <= holding)
 
 
 def spline_edge_task(X: np.ndarray, names, parents, link: tuple[int, int], policy: Policy) -> tuple[Tagged, ...]:

@@ -164,7 +164,7 @@ def _departure_checks(P: np.ndarray, y: np.ndarray, max_df: int) -> list:
         white_auxiliary_columns,
         white_test,
     )
-    from preflight.fit import bspline_basis, ols, spline_df
+    from preflight.fit import ols, spline_df
     from preflight.results import CheckResult, not_computed
 
     n = P.shape[0]
@@ -175,7 +175,7 @@ def _departure_checks(P: np.ndarray, y: np.ndarray, max_df: int) -> list:
     # Built one at a time: at a million rows a design of several parents' splines is hundreds of MB.
     df = spline_df(n, max_df)
     larger = [(lambda: np.column_stack([P, s**2, s**3]), _RESET, "powers 2, 3 of the fitted values"),
-              (lambda: np.column_stack([bspline_basis(P[:, c], df)[:, 1:] for c in range(P.shape[1])]),
+              (lambda: additive_spline_design(P, range(P.shape[1]), df),
                _SPLINE, f"cubic B-spline with {df} columns per parent")]
     out = []
     for build, name, what in larger:
@@ -605,17 +605,21 @@ def _spread_checks(test: ResidualIndependence, residual: np.ndarray, regressor: 
     else).  From the test's residual bootstrap when it ran one (White's auxiliary R-squared, its null
     simulated with the regressor fixed, which heavy-tailed regressors need: the chi-squared null rejected 4 of
     30 Laplace pairs at 1,000 rows), else Koenker's Breusch-Pagan and White."""
-    from preflight.results import CheckResult
-
     if test.spread is not None:
-        spread = test.spread
-        return (CheckResult(name="white", statistic=spread.statistic, p_value=spread.p_value, effect=spread.effect,
-                            effect_name="auxiliary R-squared", n=spread.n,
-                            note=f"{spread.note}; counted p = {spread.counted_p_value:.4g}"),)
+        return (_bootstrap_white(test.spread),)
     from preflight.checks.variance import breusch_pagan, white_test
 
     column = regressor[:, None]
     return breusch_pagan(residual, column), white_test(residual, column)
+
+
+def _bootstrap_white(spread: SpreadChange) -> CheckResult:
+    """White's auxiliary R-squared with its null from a residual bootstrap, as a ``CheckResult``."""
+    from preflight.results import CheckResult
+
+    return CheckResult(name="white", statistic=spread.statistic, p_value=spread.p_value, effect=spread.effect,
+                       effect_name="auxiliary R-squared", n=spread.n,
+                       note=f"{spread.note}; counted p = {spread.counted_p_value:.4g}")
 
 
 def judge_edge(X, i: int, j: int, parents: Sequence[Sequence[int]], alpha: float = 0.05, min_effect: float = 0.0,
@@ -726,7 +730,7 @@ class SplineEdgeJudgement:
     ``forward``: j on splines of all its parents, the residual tested
     against i; ``backward``: i on splines of j and of i's other parents, the
     residual tested against j.  Each spread tuple holds White's auxiliary
-    R-squared from the same bootstrap (see :func:`_spread_checks`).
+    R-squared from the same bootstrap (:func:`_bootstrap_white`).
     """
 
     forward: ResidualIndependence
@@ -776,7 +780,7 @@ def judge_edge_with_splines(X, i: int, j: int, parents: Sequence[Sequence[int]],
     (2014), Annals of Statistics 42: 2526-2556; Sen and Sen (2014),
     Biometrika 101: 927-942.
     """
-    from preflight.fit import residualize, spline_df
+    from preflight.fit import spline_df
 
     X = as_matrix(X, name="X", min_n=8)
     p = X.shape[1]
@@ -789,11 +793,11 @@ def judge_edge_with_splines(X, i: int, j: int, parents: Sequence[Sequence[int]],
     backward_columns = [j, *(k for k in sets[i] if k != j)]
 
     def test(response: int, columns: list[int], tested: int, test_seed: int):
-        design = additive_spline_design(X, columns, df)
-        result = residual_independence(X[:, response], design, tested=X[:, [tested]], replicates=replicates,
-                                       n_features=n_features, max_n=max_n, seed=test_seed, early_stop=early_stop)
-        spread = _spread_checks(result, residualize(X[:, response], design), X[:, tested])
-        return result, spread
+        result = residual_independence(X[:, response], additive_spline_design(X, columns, df),
+                                       tested=X[:, [tested]], replicates=replicates, n_features=n_features,
+                                       max_n=max_n, seed=test_seed, early_stop=early_stop)
+        assert result.spread is not None  # the residual bootstrap always simulates the spread test
+        return result, (_bootstrap_white(result.spread),)
 
     forward, forward_spread = test(j, forward_columns, i, seed)
     backward, backward_spread = test(i, backward_columns, j, seed + 1)

@@ -223,14 +223,16 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     # A hypothesised graph states the parents; otherwise the structural view's pruned parents stand in.
     parents = equation_stage.graph_parents(graph.matrix(names)) if graph is not None else structure.parents
     equations = equation_stage.equation_tests(X, names, parents, policy)
+    holding = equation_stage.trusted(equations, len(names), policy)
     if graph is None and equation_stage.CANDIDATE_EDGES_FROM_PARENTS:
-        children = (equation_stage.trusted(equations, len(names), policy)
-                    if equation_stage.ONLY_TRUSTED_PARENT_EDGES else None)
+        children = holding if equation_stage.ONLY_TRUSTED_PARENT_EDGES else None
         skeleton = replace(skeleton, estimated=equation_stage.with_parent_edges(skeleton.estimated, parents,
                                                                                 children))
     noise_pairs = tuple(ij for ij in table.pairs if skeleton.estimated[ij])
-    edge_futures = _submit_edge_tasks(pool, parents, noise_pairs, policy)
-    links = equation_stage.bent_links(equations, parents, policy)
+    # The adjacent pairs' tests inside their equations and the bent equations' links, queued in the
+    # workers to run beside the batteries.
+    edge_futures = _submit_tasks(pool, _edge_task_in_worker, noise_pairs, parents, policy)
+    links = equation_stage.bent_links(parents, holding)
     link_futures = _submit_tasks(pool, _spline_edge_task_in_worker, links, parents, policy)
     # The noise HSICs need nothing the pairs need: with workers they run in
     # the one the whole-table screens left idle while this process shares
@@ -247,7 +249,8 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     progress("whole-table screens", 0, 1)
     whole_table = whole.result() if whole is not None else _whole_table_screens(X, policy)
     progress("whole-table screens", 1, 1)
-    edges = _edge_tests(table, parents, noise_pairs, edge_futures, progress)
+    edges = _collect(noise_pairs, edge_futures, "edges in their equations", progress,
+                     lambda ij: equation_stage.edge_task(table.values, table.names, parents, ij, policy))
     spline_edges = _collect(links, link_futures, "edges of bent equations", progress,
                             lambda link: equation_stage.spline_edge_task(table.values, table.names, parents, link,
                                                                          policy))
@@ -256,23 +259,12 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
                     equation_checks=equations, spline_edge_tests=spline_edges)
 
 
-def _submit_edge_tasks(pool, parents, pairs, policy: Policy) -> list | None:
-    """The adjacent pairs' tests inside their equations, queued in the workers to run beside the batteries."""
-    return _submit_tasks(pool, _edge_task_in_worker, pairs, parents, policy)
-
-
 def _submit_tasks(pool, in_worker, units, parents, policy: Policy) -> list | None:
     """One future per unit of work (a pair or a link), or None to run them here (no pool, or a single unit)."""
     if pool is None or len(units) < 2:
         return None
     task = functools.partial(in_worker, parents=parents, policy=policy)
     return [pool.submit(task, unit) for unit in units]
-
-
-def _edge_tests(table: Table, parents, pairs, futures: list | None, progress: Progress) -> dict:
-    """Per adjacent pair, its tagged tests inside the equations (:func:`equation_stage.edge_task`), in pair order."""
-    return _collect(pairs, futures, "edges in their equations", progress,
-                    lambda ij: equation_stage.edge_task(table.values, table.names, parents, ij, table.policy))
 
 
 def _collect(units, futures: list | None, stage: str, progress: Progress, run_here) -> dict:
@@ -868,12 +860,10 @@ def _conclude(table: Table, screen: Screen, computed: Computed, variables: Varia
         facts = set(f.facts)
         # The class's compelled direction in the pair's own x, y terms; None when it compels none.
         compelled = {"i->j": "x->y", "j->i": "y->x"}.get(status.get(ij, "undirected"))
-        if compelled is None:
-            pass
-        elif f.lingam_orientation != "undetermined":
+        if compelled is not None and f.lingam_orientation != "undetermined":
             if compelled != f.lingam_orientation:
                 facts.add("orientation-conflict")
-        elif f"equations-lean-{'y->x' if compelled == 'x->y' else 'x->y'}" in facts:
+        elif compelled is not None and f"equations-lean-{'y->x' if compelled == 'x->y' else 'x->y'}" in facts:
             facts.add("class-against-equations-lean")
         pair_facts[(f.x, f.y)] = frozenset(facts)
     if screen.void:

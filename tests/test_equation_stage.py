@@ -258,7 +258,7 @@ def test_bent_links_are_the_parents_of_an_equation_that_bends_on_its_own():
     # 0 -> 2 <- 1, 2 -> 3 <- 4, 5 -> 4: a link is tested when its child's equation bends while the parent's,
     # the parent's parents' and the child's other parents' equations hold up.  When 4 bends as well, 3's
     # bend is not its own and neither of its links is tested; 4's link from 5 is.
-    from preflight.equation_stage import LINEARITY_FAMILY, VARIANCE_FAMILY, bent_links
+    from preflight.equation_stage import LINEARITY_FAMILY, VARIANCE_FAMILY, bent_links, trusted
     from preflight.policy import Policy
 
     def equation(bends: bool):
@@ -268,6 +268,10 @@ def test_bent_links_are_the_parents_of_an_equation_that_bends_on_its_own():
 
     parents = [(), (), (0, 1), (2, 4), (5,), ()]
     policy = Policy()
-    assert bent_links({2: equation(False), 3: equation(True), 4: equation(False)}, parents, policy) == ((2, 3), (4, 3))
-    assert bent_links({2: equation(True), 3: equation(False), 4: equation(False)}, parents, policy) == ((0, 2), (1, 2))
-    assert bent_links({2: equation(False), 3: equation(True), 4: equation(True)}, parents, policy) == ((5, 4),)
+
+    def links(equations):
+        return bent_links(parents, trusted(equations, len(parents), policy))
+
+    assert links({2: equation(False), 3: equation(True), 4: equation(False)}) == ((2, 3), (4, 3))
+    assert links({2: equation(True), 3: equation(False), 4: equation(False)}) == ((0, 2), (1, 2))
+    assert links({2: equation(False), 3: equation(True), 4: equation(True)}) == ((5, 4),)
