@@ -23,7 +23,7 @@ import numpy as np
 
 from preflight.battery import PairFindings, _material_departure, nongaussian_under
 from preflight.errors import InputError
-from preflight.evidence import Tagged, significant
+from preflight.evidence import Tagged, rejects, significant
 from preflight.policy import Policy
 from preflight.results import SPLINE_EQUATION, STRUCTURAL_EQUATION, CheckIdentity, CheckResult
 from preflight.seeds import derived_seed
@@ -69,9 +69,10 @@ rows).  Withholding on any significant sub-floor dependence instead took 2 of
 8 several-parents tables at 5,000 rows off the top rung."""
 
 BOOTSTRAP_REPLICATES = 200
-"""Residual-bootstrap refits per edge test.  The decision uses the smooth p-value (a gamma matched to the
-bootstrap), which resolves the tail a Holm correction over many edges needs; the counted p-value cannot go
-below 1 / (1 + B)."""
+"""Residual-bootstrap refits per edge test.  The decision uses the counted p-value while a refit reaches the
+observed statistic and a log-normal tail fitted to the refits beyond them
+(:func:`preflight.equations._tail_p_value`), which resolves the tail a Holm correction over many edges needs;
+the counted p-value alone cannot go below 1 / (1 + B)."""
 
 
 def trusted(equations: dict[int, tuple[Tagged, ...]], p: int, policy: Policy) -> frozenset[int]:
@@ -240,11 +241,12 @@ def spline_edge_task(X: np.ndarray, names, parents, link: tuple[int, int], polic
 
 def _bootstrap_hsic(result, name: str, context: str) -> CheckResult:
     """A residual-bootstrap HSIC (:class:`preflight.equations.ResidualIndependence`) as a check, decided on its
-    smooth p-value; the counted one and ``context`` go in the note."""
-    decision_p = result.smooth_p_value if result.smooth_p_value is not None else result.p_value
+    p-value with its tail beyond the largest bootstrap statistic resolved; the counted one and ``context`` go in
+    the note."""
+    decision_p = result.tail_p_value if result.tail_p_value is not None else result.p_value
     return CheckResult(name=name, statistic=result.statistic, p_value=float(decision_p), effect=result.effect,
                        effect_name="normalised HSIC", n=result.n,
-                       note=(f"{result.note}; smooth p-value (gamma matched to the bootstrap), counted "
+                       note=(f"{result.note}; p-value beyond the largest refit from a log-normal fitted to the refits, counted "
                              f"p = {result.p_value:.4g}; {context}"),
                        identity=CheckIdentity("hsic", scope="pair", null=RESIDUAL_BOOTSTRAP))
 
@@ -267,27 +269,53 @@ def judge_bent_edge(findings: PairFindings, tests: list[Tagged], policy: Policy)
     parent a spline, which a curve alone would leave (Hoyer et al. 2009)
     and a hidden common cause need not.  The pair is then flagged
     ``confounding-suspected`` (adjacent or not: the linear order made one a
-    parent of the other) and any orientation withdrawn.  Otherwise the
-    findings stand, with the tests added; a dependence on one side only is
-    what the reverse of a causal direction shows, so it does not count
-    against the pair.
+    parent of the other) and any orientation withdrawn.  Dependent on one
+    side only is what the reverse of a causal direction shows, so it does
+    not count against the pair; but when the other side, the one an
+    orientation would call independent, rejects before the adjustment with
+    at least its floor, or depends below its floor but close to the
+    dependent side (:func:`_comparable`, as inside the linear equations),
+    its independence is not shown either and any orientation is withdrawn
+    without a flag (a wrong orientation costs more than a missing one; the
+    adjustment protects the flag, not the claim of independence).  Otherwise the findings stand, with the tests added.
     """
     if not tests:
         return findings
     dependent = {role: _dependent([t for t in tests if t.role == role], policy) for role in ("forward", "reverse")}
     both = dependent["forward"] and dependent["reverse"]
-    judged = tuple(replace(t.result, passed=None if dependent[t.role] and not both else not _counts(t, policy))
+    quiet = [t for t in tests if not dependent[t.role]]
+    loud = [t for t in tests if dependent[t.role]]
+    doubtful = not both and bool(loud) and (any(_counts_unadjusted(t, policy) for t in quiet)
+                                            or _comparable(quiet, loud, policy))
+    judged = tuple(replace(t.result, passed=None if dependent[t.role] and not both else not _counts(t, policy),
+                           note=_joined(t.result.note, _DOUBTED if doubtful and not dependent[t.role]
+                                        and rejects(t.result.p_value, policy.alpha) else ""))
                    for t in tests)
-    if not both:
+    if not both and not doubtful:
         return replace(findings, checks=findings.checks + judged)
-    flags = findings.flags + (() if "confounding-suspected" in findings.flags else ("confounding-suspected",))
     withdrawn = {"lingam-oriented", "anm-oriented", "oriented-in-equations"}
     facts = {f for f in findings.facts if f not in withdrawn and not f.startswith("equations-lean-")}
-    facts |= {"confounding-suspected", "no-independent-noise-model"}
+    flags = findings.flags
+    if both:
+        flags += () if "confounding-suspected" in flags else ("confounding-suspected",)
+        facts |= {"confounding-suspected", "no-independent-noise-model"}
     if findings.adjacent:
         facts |= {"lingam-undetermined", "anm-undetermined"}
     return replace(findings, lingam_orientation="undetermined", anm_orientation="undetermined", flags=flags,
                    facts=frozenset(facts), checks=findings.checks + judged)
+
+
+_DOUBTED = ("independence on this side is not shown (significant before the adjustment with at least its floor, "
+            "or below its floor but close to the other side's dependence), so no orientation is kept")
+
+
+def _joined(note: str, extra: str) -> str:
+    return note if not extra else (f"{note}; {extra}" if note else extra)
+
+
+def _counts_unadjusted(test: Tagged, policy: Policy) -> bool:
+    """:func:`_counts` on the p-value before the adjustment."""
+    return rejects(test.result.p_value, policy.alpha) and (test.result.effect or 0.0) >= _floor(test, policy)
 
 
 def departs(equation: list[Tagged], policy: Policy) -> tuple[bool, bool]:
@@ -313,7 +341,7 @@ def judge_in_equations(findings: PairFindings, pair: tuple[int, int], edge: list
     on i and the other parents is independent of i's partial residual (no
     significant dependence, not even one below its floor that comes close
     to the reverse's: :func:`_comparable`), the reverse is
-    not (adjusted p, decided on the smooth bootstrap p-value) and
+    not (adjusted p, decided on the bootstrap p-value with its tail resolved) and
     the likelihood ratio agrees; not when both directions' residuals in the
     equations look Gaussian (``gaussian-noise``, which replaces the
     battery's: a marginal residual carries the child's other parents).

@@ -120,3 +120,17 @@ def test_spearman_matches_scipy_spearmanr(seed, n):
     reference = stats.spearmanr(x, y)
     assert result.statistic == pytest.approx(reference.statistic, rel=1e-10)
     assert result.p_value == pytest.approx(reference.pvalue, rel=1e-10, abs=1e-15)
+
+
+def test_bootstrap_tail_beyond_every_draw_matches_scipy_lognorm():
+    # Source: scipy.stats.lognorm (shape s = standard deviation of the log draws, scale = exp of their mean),
+    # the log-normal the residual bootstrap's p-value uses beyond its largest draw, capped at 1 / (1 + B).
+    from preflight.equations import _tail_p_value
+
+    rng = np.random.default_rng(3)
+    draws = rng.chisquare(3, size=200)
+    logs = np.log(draws)
+    for observed in (draws.max() * 1.01, 40.0, 80.0):
+        reference = stats.lognorm.sf(observed, logs.std(), scale=np.exp(logs.mean()))
+        assert _tail_p_value(observed, draws) == pytest.approx(min(1 / 201, reference), rel=1e-9)
+    assert _tail_p_value(80.0, draws) < 1e-4

@@ -252,6 +252,24 @@ def test_bent_edge_judgement_needs_dependence_both_ways():
     assert both.anm_orientation == "undetermined" and "confounding-suspected" in both.flags
     assert "anm-oriented" not in both.facts and {"anm-undetermined", "no-independent-noise-model"} <= both.facts
     assert [c.passed for c in both.checks] == [False, True, False, True]
+    # Dependent one way, and the side the orientation calls independent rejects before the adjustment with
+    # a material effect (adjusted p 0.12, raw 0.02): the orientation is withdrawn, without a flag.
+    doubted_tests = tests(0.02, 1e-6)
+    doubted_tests[0] = Tagged(doubted_tests[0].family, "forward", replace(doubted_tests[0].result, p_adjusted=0.12))
+    doubted = judge_bent_edge(oriented, doubted_tests, policy)
+    assert doubted.anm_orientation == "undetermined" and "confounding-suspected" not in doubted.flags
+    assert "anm-undetermined" in doubted.facts and "no-independent-noise-model" not in doubted.facts
+    assert "independence on this side is not shown" in doubted.checks[0].note
+    # The same raw p-value below the effect floor (normalised HSIC 0.001 < 0.002) leaves the orientation.
+    faint = [Tagged(t.family, t.role, replace(t.result, effect=0.001)) if i == 0 else t
+             for i, t in enumerate(doubted_tests)]
+    assert judge_bent_edge(oriented, faint, policy).anm_orientation == "x->y"
+    # Significant after the adjustment but below its floor, and within a quarter of the other side's
+    # dependence (0.9 floors against 2): withdrawn as well (the faint rule of the linear equations).
+    close = [Tagged(t.family, t.role, replace(t.result, effect=0.0018, p_adjusted=0.003)) if i == 0 else t
+             for i, t in enumerate(doubted_tests)]
+    withheld = judge_bent_edge(oriented, close, policy)
+    assert withheld.anm_orientation == "undetermined" and "confounding-suspected" not in withheld.flags
 
 
 def test_bent_links_are_the_parents_of_an_equation_that_bends_on_its_own():
