@@ -277,7 +277,8 @@ def judge_bent_edge(findings: PairFindings, tests: list[Tagged], policy: Policy)
     dependent side (:func:`_comparable`, as inside the linear equations),
     its independence is not shown either and any orientation is withdrawn
     without a flag (a wrong orientation costs more than a missing one; the
-    adjustment protects the flag, not the claim of independence).  Otherwise the findings stand, with the tests added.
+    adjustment protects the flag, not the claim of independence).
+    Otherwise the findings stand, with the tests added.
     """
     if not tests:
         return findings

@@ -229,8 +229,9 @@ class EarlyStop:
     :func:`_settled`) is below ``clear_below`` (significant after a
     correction over fewer than 10^5 tests at any allowed alpha, with two
     orders of magnitude to spare for the error of a tail fitted to
-    ``first`` draws) or its p-value (:func:`_tail_p_value`) is above ``clear_above``
-    (the default is five times alpha = 0.05; the caller passes its own).
+    ``first`` draws) or its p-value (:func:`_tail_p_value`) is above
+    ``clear_above`` (the default is five times alpha = 0.05; the caller
+    passes its own).
     The remaining refits run only when one of the two is not settled.
     When both observed effects are below their floors before any refit, the
     decision is settled already and only ``negligible`` refits run, for the
@@ -293,8 +294,8 @@ class SpreadChange:
     ``statistic`` (= ``effect``) is the R-squared of the squared residual on
     the tested columns and their squares; ``p_value`` is its bootstrap
     p-value with the tail beyond the largest bootstrap value resolved
-    (:func:`_tail_p_value`; ``counted_p_value`` is the plain share).  H0: the residual's variance does not
-    change with the tested columns.
+    (:func:`_tail_p_value`; ``counted_p_value`` is the plain share).
+    H0: the residual's variance does not change with the tested columns.
     """
 
     statistic: float
@@ -351,8 +352,8 @@ def residual_independence(y, design, tested=None, calibration: str = "bootstrap"
       p = (1 + #{T* >= T}) / (1 + B); ``tail_p_value`` resolves the tail
       beyond every bootstrap statistic by a log-normal fitted to them
       (:func:`_tail_p_value`), for decisions after a correction over many
-      tests, where 1 / (1 + B) is too coarse.  With ``early_stop``, the refits stop after the
-      first batch once the decision they feed is settled (see
+      tests, where 1 / (1 + B) is too coarse.  With ``early_stop``, the
+      refits stop after the first batch once the decision they feed is settled (see
       :class:`EarlyStop`); ``replicates`` then records how many ran.
     * ``"first-order"``: per column,
       ``hsic(..., residual_design=design)``, the gamma null corrected by a
