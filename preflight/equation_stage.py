@@ -246,8 +246,9 @@ def _bootstrap_hsic(result, name: str, context: str) -> CheckResult:
     decision_p = result.tail_p_value if result.tail_p_value is not None else result.p_value
     return CheckResult(name=name, statistic=result.statistic, p_value=float(decision_p), effect=result.effect,
                        effect_name="normalised HSIC", n=result.n,
-                       note=(f"{result.note}; p-value beyond the largest refit from a log-normal fitted to the "
-                             f"refits, counted p = {result.p_value:.4g}; {context}"),
+                       note=(f"{result.note}; p-value counted while a refit reaches the statistic, beyond the "
+                             f"largest from a log-normal fitted to the refits (counted p = {result.p_value:.4g}); "
+                             f"{context}"),
                        identity=CheckIdentity("hsic", scope="pair", null=RESIDUAL_BOOTSTRAP))
 
 
