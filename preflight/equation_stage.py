@@ -441,9 +441,8 @@ def _lean(edge: list[Tagged], lr: float, policy: Policy) -> str | None:
     the class compels the other way.
     """
     def clearest(role: str) -> float:
-        leaning = [t.result.p_value for t in edge
-                   if t.role == role and t.family in (EDGE_FAMILY, SPREAD_FAMILY) and t.result.p_value is not None
-                   and t.result.p_value < policy.alpha and (t.result.effect or 0.0) >= _floor(t, policy)]
+        leaning = [t.result.p_value for t in edge if t.role == role and t.family in (EDGE_FAMILY, SPREAD_FAMILY)
+                   and t.result.p_value is not None and _counts_unadjusted(t, policy)]
         return min(leaning, default=1.0)
 
     forward, reverse = clearest("forward"), clearest("reverse")  # 1.0 when nothing falls below alpha

@@ -466,19 +466,17 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
     else:
         refit(first_look, replicates)
     joint, joint_boot = _joint(observed, boot)
-    column_p = tuple(float((1 + np.count_nonzero(boot[c] >= observed[c])) / (1 + replicates)) for c in range(k))
-    tail = _tail_p_value(joint, joint_boot)
-    spread_counted = float((1 + np.count_nonzero(spread_boot >= spread_observed)) / (1 + replicates))
+    column_p = tuple(_counted_p_value(observed[c], boot[c]) for c in range(k))
     spread = SpreadChange(
         statistic=spread_observed, p_value=_tail_p_value(spread_observed, spread_boot),
-        counted_p_value=spread_counted, effect=spread_observed, n=m,
+        counted_p_value=_counted_p_value(spread_observed, spread_boot), effect=spread_observed, n=m,
         note=(f"R-squared of the squared residual on the tested column(s) and their squares (White 1980); "
               f"null from the same {replicates} residual-bootstrap refits, log-normal tail beyond the largest"))
     return ResidualIndependence(
-        statistic=joint, p_value=float((1 + np.count_nonzero(joint_boot >= joint)) / (1 + replicates)),
+        statistic=joint, p_value=_counted_p_value(joint, joint_boot),
         effect=max(effects), n=m, column_statistics=tuple(float(s) for s in observed),
         column_p_values=column_p, column_effects=effects, calibration="bootstrap", replicates=replicates,
-        tail_p_value=tail, spread=spread,
+        tail_p_value=_tail_p_value(joint, joint_boot), spread=spread,
         note=(f"random-Fourier-feature HSIC ({n_features} frequencies) per tested column on {m} of {n} rows; "
               f"null from {replicates} residual-bootstrap refits on all rows (Sen and Sen 2014)"
               + (", stopped once the decision was settled" if stopped else "")),
@@ -548,17 +546,21 @@ def _tail_p_value(observed: float, draws: np.ndarray) -> float:
     body (2 % at 0.05), which the counted p-value avoids.
     """
     draws = np.asarray(draws, dtype=float)
-    exceed = int(np.count_nonzero(draws >= observed))
-    counted = (1 + exceed) / (1 + draws.shape[0])
-    if exceed or observed <= 0 or draws.min() <= 0:
-        return float(counted)
+    counted = _counted_p_value(observed, draws)
+    if counted > 1 / (1 + draws.shape[0]) or observed <= 0 or draws.min() <= 0:
+        return counted
     logs = np.log(draws)
     spread = float(logs.std())
     if spread <= 0:
-        return float(counted)
+        return counted
     from scipy.special import ndtr
 
     return float(min(counted, ndtr((float(logs.mean()) - math.log(observed)) / spread)))
+
+
+def _counted_p_value(observed: float, draws: np.ndarray) -> float:
+    """(1 + #{T* >= T}) / (1 + B): the Monte Carlo p-value of ``observed`` against ``draws``."""
+    return float((1 + np.count_nonzero(draws >= observed)) / (1 + draws.shape[0]))
 
 
 def _gamma_tail(observed: float, draws: np.ndarray) -> float | None:
