@@ -467,6 +467,7 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
         refit(first_look, replicates)
     joint, joint_boot = _joint(observed, boot)
     column_p = tuple(_counted_p_value(observed[c], boot[c]) for c in range(k))
+    tail = _tail_p_value(joint, joint_boot)  # before the spread's: the tail-model probe records them in this order
     spread = SpreadChange(
         statistic=spread_observed, p_value=_tail_p_value(spread_observed, spread_boot),
         counted_p_value=_counted_p_value(spread_observed, spread_boot), effect=spread_observed, n=m,
@@ -476,7 +477,7 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
         statistic=joint, p_value=_counted_p_value(joint, joint_boot),
         effect=max(effects), n=m, column_statistics=tuple(float(s) for s in observed),
         column_p_values=column_p, column_effects=effects, calibration="bootstrap", replicates=replicates,
-        tail_p_value=_tail_p_value(joint, joint_boot), spread=spread,
+        tail_p_value=tail, spread=spread,
         note=(f"random-Fourier-feature HSIC ({n_features} frequencies) per tested column on {m} of {n} rows; "
               f"null from {replicates} residual-bootstrap refits on all rows (Sen and Sen 2014)"
               + (", stopped once the decision was settled" if stopped else "")),
