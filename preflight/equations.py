@@ -585,26 +585,33 @@ def _spread_r2(residuals: np.ndarray, basis: np.ndarray) -> np.ndarray:
 
 
 def _raw_features(U: np.ndarray, omega: np.ndarray) -> np.ndarray:
-    """Uncentred cosine and sine features of every column of U: (m, b, 2F), float32.
+    """Uncentred, unscaled cosine and sine features of every column of U: (2, m, b, F), float32.
 
     They need no centring: they only meet the centred features of the
-    tested columns in a cross-covariance.
+    tested columns in a cross-covariance.  The cosines and the sines are
+    each written to a contiguous block, where numpy's vectorised float32
+    trigonometry runs about a third faster than into interleaved halves;
+    the 1 / sqrt(F) scale is applied once, to the statistic
+    (:func:`_column_statistics`).
     """
-    f = omega.shape[0]
     angles = np.multiply.outer(U.astype(np.float32), omega.astype(np.float32))
-    out = np.empty(U.shape + (2 * f,), dtype=np.float32)
-    np.cos(angles, out=out[..., :f])
-    np.sin(angles, out=out[..., f:])
-    out *= np.float32(1.0 / math.sqrt(f))
+    out = np.empty((2,) + angles.shape, dtype=np.float32)
+    np.cos(angles, out=out[0])
+    np.sin(angles, out=out[1])
     return out
 
 
 def _column_statistics(phi_all: np.ndarray, features: np.ndarray, k: int, m: int) -> np.ndarray:
-    """m * ||C_xy||_F^2 for each tested column (rows) and each residual (columns): (k, b)."""
-    b, width = features.shape[1], features.shape[2]
-    cross = (phi_all.T @ features.reshape(m, b * width)).astype(np.float64) / m
-    cross = cross.reshape(k, phi_all.shape[1] // k, b, width)
-    return m * np.einsum("kibj,kibj->kb", cross, cross)
+    """m * ||C_xy||_F^2 for each tested column (rows) and each residual (columns): (k, b).
+
+    ``features`` from :func:`_raw_features`; their cosine and sine blocks
+    add their squared cross-covariances, and the scale 1 / F of the
+    squared features is applied here.
+    """
+    _, _, b, f = features.shape
+    cross = np.matmul(phi_all.T, features.reshape(2, m, b * f)).astype(np.float64)
+    cross *= cross
+    return cross.reshape(2, k, phi_all.shape[1] // k, b, f).sum(axis=(0, 2, 4)) / (m * f)
 
 
 # --------------------------------------------------------------------------- one edge inside its equations
