@@ -500,8 +500,31 @@ def startup(repeats: int = 7) -> dict:
         np.savetxt(table, s.data, delimiter=",", header=",".join(s.names), comments="", fmt="%.17g")
         _median_wall(command + ["check", str(table)], 1, ok_codes=(0, 1))  # warm the file cache
         checks = _median_wall(command + ["check", str(table)], repeats, ok_codes=(0, 1))
+        used = _libraries_a_check_imports(table)
+    floors = {"scipy.stats": _median_wall([sys.executable, "-c", "import scipy.stats"], repeats),
+              "all": _median_wall([sys.executable, "-c", "import " + ", ".join(used)], repeats)}
     return {"help": helps, "check": checks, "loaded": loaded, "command": " ".join(Path(c).name for c in command),
-            "load": (load, os.getloadavg()[0])}
+            "load": (load, os.getloadavg()[0]), "floors": floors, "used": used}
+
+
+_LIBRARIES = ("numpy", "scipy.special", "scipy.stats", "scipy.interpolate", "scipy.optimize", "pandas", "pyarrow",
+              "statsmodels.stats.multitest", "sklearn.decomposition", "pingouin", "matplotlib", "click", "tqdm",
+              "networkx")
+
+
+def _libraries_a_check_imports(table: Path) -> list[str]:
+    """The third-party modules (of ``_LIBRARIES``) that ``preflight check`` on ``table`` has imported when it ends.
+
+    Importing them alone in a fresh process is the floor under the check's
+    start-up that no change inside preflight can go below.
+    """
+    probe = (f"import sys; sys.argv = ['preflight', 'check', {str(table)!r}, '--quiet']\n"
+             "from preflight.cli import main\n"
+             "try:\n    main()\nexcept SystemExit:\n    pass\n"
+             f"print(','.join(m for m in {_LIBRARIES!r} if m in sys.modules), file=sys.stderr)")
+    res = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, cwd=ROOT)
+    last = res.stderr.strip().splitlines()[-1] if res.stderr.strip() else ""
+    return [m for m in last.split(",") if m in _LIBRARIES]
 
 
 def startup_lines(result: dict, repeats: int) -> list[str]:
@@ -519,7 +542,13 @@ def startup_lines(result: dict, repeats: int) -> list[str]:
             "`python benchmarks/bench.py --startup-only` reruns this section alone.", "",
             "| command | target (wall) | wall time | CPU time |", "|---|---|---|---|",
             f"| `preflight --help` | 0.3 s | {spread(result['help'])} |",
-            f"| `preflight check` of a 2-column, 2,000-row CSV | 1 s | {spread(result['check'])} |", "",
+            f"| `preflight check` of a 2-column, 2,000-row CSV | 1 s | {spread(result['check'])} |",
+            f"| `python -c \"import scipy.stats\"` (Shapiro-Wilk and the reference distributions) | - | "
+            f"{spread(result['floors']['scipy.stats'])} |",
+            f"| `python -c \"import ...\"` of every library that check imports | - | {spread(result['floors']['all'])} |",
+            "",
+            f"Libraries that check imports: {', '.join(result['used'])}. Importing them in a fresh process is "
+            "a floor under its wall time that no change inside preflight can go below.", "",
             f"Heavy modules loaded by `--help`: {', '.join(result['loaded']) if result['loaded'] else 'none'}."]
 
 
