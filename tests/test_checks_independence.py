@@ -594,3 +594,30 @@ def test_residual_design_must_fit_the_residual():
         hsic(x, y, residual_design=x)
     with pytest.raises(InputError, match="rows"):
         hsic(x, y - np.polyval(np.polyfit(x, y, 1), x), residual_design=x[:150])
+
+
+@pytest.mark.parametrize("n", [3, 40, 95, 400, 1000])
+def test_consecutive_ranks_of_the_differences_from_one_search(n):
+    # The median of an even number of differences needs two neighbouring ranks; one bisection returns both,
+    # equal to sorting every difference, on continuous, tied and two-valued columns.
+    from preflight.checks.independence import _kth_differences
+
+    rng = np.random.default_rng(n)
+    for column in (rng.standard_normal(n), np.round(rng.standard_normal(n), 1), rng.integers(0, 2, n) * 0.3):
+        s = np.sort(column)
+        ordered = np.sort((s[None, :] - s[:, None])[np.triu_indices(n, k=1)])
+        total = ordered.shape[0]
+        for k in sorted({1, max(1, total // 2), max(1, total - 1)}):
+            count = min(2, total - k + 1)
+            assert _kth_differences(s, k, count) == tuple(ordered[k - 1:k - 1 + count])
+
+
+def test_neighbouring_ranks_far_apart_are_found_one_at_a_time():
+    # 100 zeros and 100 tens: 9,900 zero differences, then 10,000 of ten.  Ranks 9,900 and 9,901 straddle
+    # every midpoint of the bisection, which then searches each rank alone.
+    from preflight.checks.independence import _kth_differences, _median_bandwidth
+
+    s = np.sort(np.r_[np.zeros(100), np.full(100, 10.0)])
+    assert _kth_differences(s, 9900, 2) == (0.0, 10.0)
+    assert _kth_differences(s, 9899, 3) == (0.0, 0.0, 10.0)
+    assert _median_bandwidth(s, np.random.default_rng(0)) == (10.0, False)  # median of 19,900: rank 9,950

@@ -128,32 +128,42 @@ def _kth_difference(s: np.ndarray, k: int) -> float:
     to sorting all of them, without forming them: O(m log m) per step
     instead of O(m^2) memory.
     """
+    return _kth_differences(s, k, 1)[0]
+
+
+def _kth_differences(s: np.ndarray, k: int, count: int) -> tuple[float, ...]:
+    """The k-th to (k + count - 1)-th smallest differences of sorted s, from one bisection (see
+    :func:`_kth_difference`): the bracket is narrowed only while it holds all of them."""
     m = s.shape[0]
+    last = k + count - 1
     lo, hi = -1.0, float(s[-1] - s[0])
-    below, above = 0, m * (m - 1) // 2  # count(<= lo) < k <= count(<= hi)
+    below, above = 0, m * (m - 1) // 2  # count(<= lo) < k and last <= count(<= hi)
     for _ in range(200):
         if above - below <= _ENUMERATE_AT:
-            return _enumerate_kth(s, lo, hi, k - below)
+            return _enumerate_ranks(s, lo, hi, range(k - below, last - below + 1))
         mid = 0.5 * (lo + hi)
         if not lo < mid < hi:
             break
-        count = _count_differences_at_most(s, mid)
-        if count >= k:
-            hi, above = mid, count
-        else:
-            lo, below = mid, count
-    return _smallest_difference_above(s, lo)
+        at_most = _count_differences_at_most(s, mid)
+        if at_most >= last:
+            hi, above = mid, at_most
+        elif at_most < k:
+            lo, below = mid, at_most
+        else:  # the ranks straddle mid: the rest is one search each
+            return tuple(_kth_differences(s, rank, 1)[0] for rank in range(k, last + 1))
+    # lo and hi are adjacent floats: every difference in (lo, hi] is the same number.
+    return (_smallest_difference_above(s, lo),) * count
 
 
-def _enumerate_kth(s: np.ndarray, lo: float, hi: float, rank: int) -> float:
-    """The rank-th smallest (1-based) difference s_j - s_i, i < j, lying in (lo, hi]."""
+def _enumerate_ranks(s: np.ndarray, lo: float, hi: float, ranks) -> tuple[float, ...]:
+    """The rank-th smallest (1-based) differences s_j - s_i, i < j, lying in (lo, hi], for each rank."""
     m = s.shape[0]
     first = np.maximum(_ends_at_most(s, lo), np.arange(1, m + 1))
     widths = np.maximum(_ends_at_most(s, hi) - first, 0)
     rows = np.repeat(np.arange(m), widths)
     offsets = np.arange(int(widths.sum())) - np.repeat(np.cumsum(widths) - widths, widths)
     candidates = np.sort(s[np.repeat(first, widths) + offsets] - s[rows])
-    return float(candidates[rank - 1])
+    return tuple(float(candidates[rank - 1]) for rank in ranks)
 
 
 _ENUMERATE_AT = 4096
@@ -165,7 +175,8 @@ def _median_difference(s: np.ndarray, skip: int = 0) -> float:
     total = s.shape[0] * (s.shape[0] - 1) // 2 - skip
     if total % 2:
         return _kth_difference(s, skip + total // 2 + 1)
-    return 0.5 * (_kth_difference(s, skip + total // 2) + _kth_difference(s, skip + total // 2 + 1))
+    lower, upper = _kth_differences(s, skip + total // 2, 2)
+    return 0.5 * (lower + upper)
 
 
 _TIE_BELOW = 1e-154
