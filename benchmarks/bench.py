@@ -487,20 +487,15 @@ def startup(repeats: int = 7) -> dict:
     command = _preflight_command()
     load = os.getloadavg()[0]
     helps = _median_wall(command + ["--help"], repeats)
-    probe = ("import sys; sys.argv = ['preflight', '--help']\n"
-             "from preflight.cli import main\n"
-             "try:\n    main()\nexcept SystemExit:\n    pass\n"
-             "heavy = ('numpy', 'scipy', 'pandas', 'statsmodels', 'sklearn', 'matplotlib', 'pingouin', 'tqdm')\n"
-             "print(','.join(m for m in heavy if m in sys.modules), file=sys.stderr)")
-    res = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, cwd=ROOT)
-    loaded = [m for m in res.stderr.strip().splitlines()[-1].split(",") if m] if res.stderr.strip() else []
+    loaded = _modules_loaded_by(["--help"], ("numpy", "scipy", "pandas", "statsmodels", "sklearn", "matplotlib",
+                                             "pingouin", "tqdm"))
     s = scenarios.simulate("linear-non-gaussian", "pair", p=2, n=2000, seed=SEED)
     with tempfile.TemporaryDirectory() as folder:
         table = Path(folder) / "pair.csv"
         np.savetxt(table, s.data, delimiter=",", header=",".join(s.names), comments="", fmt="%.17g")
         _median_wall(command + ["check", str(table)], 1, ok_codes=(0, 1))  # warm the file cache
         checks = _median_wall(command + ["check", str(table)], repeats, ok_codes=(0, 1))
-        used = _libraries_a_check_imports(table)
+        used = _modules_loaded_by(["check", str(table), "--quiet"], _LIBRARIES)
     floors = {"scipy.stats": _median_wall([sys.executable, "-c", "import scipy.stats"], repeats),
               "all": _median_wall([sys.executable, "-c", "import " + ", ".join(used)], repeats)}
     return {"help": helps, "check": checks, "loaded": loaded, "command": " ".join(Path(c).name for c in command),
@@ -512,19 +507,16 @@ _LIBRARIES = ("numpy", "scipy.special", "scipy.stats", "scipy.interpolate", "sci
               "networkx")
 
 
-def _libraries_a_check_imports(table: Path) -> list[str]:
-    """The third-party modules (of ``_LIBRARIES``) that ``preflight check`` on ``table`` has imported when it ends.
-
-    Importing them alone in a fresh process is the floor under the check's
-    start-up that no change inside preflight can go below.
-    """
-    probe = (f"import sys; sys.argv = ['preflight', 'check', {str(table)!r}, '--quiet']\n"
+def _modules_loaded_by(arguments: list[str], candidates: tuple[str, ...]) -> list[str]:
+    """The modules of ``candidates`` that ``preflight ARGUMENTS``, run in a fresh interpreter, has imported
+    when it ends."""
+    probe = (f"import sys; sys.argv = ['preflight', *{arguments!r}]\n"
              "from preflight.cli import main\n"
              "try:\n    main()\nexcept SystemExit:\n    pass\n"
-             f"print(','.join(m for m in {_LIBRARIES!r} if m in sys.modules), file=sys.stderr)")
+             f"print(','.join(m for m in {candidates!r} if m in sys.modules), file=sys.stderr)")
     res = subprocess.run([sys.executable, "-c", probe], capture_output=True, text=True, cwd=ROOT)
     last = res.stderr.strip().splitlines()[-1] if res.stderr.strip() else ""
-    return [m for m in last.split(",") if m in _LIBRARIES]
+    return [m for m in last.split(",") if m in candidates]
 
 
 def startup_lines(result: dict, repeats: int) -> list[str]:

@@ -589,8 +589,8 @@ def _raw_features(U: np.ndarray, omega: np.ndarray) -> np.ndarray:
 
     They need no centring: they only meet the centred features of the
     tested columns in a cross-covariance.  The cosines and the sines are
-    each written to a contiguous block, where numpy's vectorised float32
-    trigonometry runs about a third faster than into interleaved halves;
+    each written to a contiguous block: numpy's vectorised float32
+    trigonometry takes about a third longer into interleaved halves;
     the 1 / sqrt(F) scale is applied once, to the statistic
     (:func:`_column_statistics`).
     """

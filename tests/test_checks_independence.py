@@ -612,9 +612,9 @@ def test_consecutive_ranks_of_the_differences_from_one_search(n):
             assert _kth_differences(s, k, count) == tuple(ordered[k - 1:k - 1 + count])
 
 
-def test_neighbouring_ranks_far_apart_are_found_one_at_a_time():
+def test_neighbouring_ranks_far_apart_are_found_on_each_side_of_a_midpoint():
     # 100 zeros and 100 tens: 9,900 zero differences, then 10,000 of ten.  Ranks 9,900 and 9,901 straddle
-    # every midpoint of the bisection, which then searches each rank alone.
+    # the bisection's midpoint, and each side's search goes on from its half of the bracket.
     from preflight.checks.independence import _kth_differences, _median_bandwidth
 
     s = np.sort(np.r_[np.zeros(100), np.full(100, 10.0)])

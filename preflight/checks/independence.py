@@ -131,13 +131,15 @@ def _kth_difference(s: np.ndarray, k: int) -> float:
     return _kth_differences(s, k, 1)[0]
 
 
-def _kth_differences(s: np.ndarray, k: int, count: int) -> tuple[float, ...]:
+def _kth_differences(s: np.ndarray, k: int, count: int,
+                     bracket: tuple[float, float, int, int] | None = None) -> tuple[float, ...]:
     """The k-th to (k + count - 1)-th smallest differences of sorted s, from one bisection (see
-    :func:`_kth_difference`): the bracket is narrowed only while it holds all of them."""
+    :func:`_kth_difference`): the bracket is narrowed only while it holds all of them; where a midpoint
+    splits them, each side goes on from its half.  ``bracket`` = (lo, hi, count(<= lo), count(<= hi))."""
     m = s.shape[0]
     last = k + count - 1
-    lo, hi = -1.0, float(s[-1] - s[0])
-    below, above = 0, m * (m - 1) // 2  # count(<= lo) < k and last <= count(<= hi)
+    lo, hi, below, above = bracket or (-1.0, float(s[-1] - s[0]), 0, m * (m - 1) // 2)
+    # invariant: count(<= lo) = below < k and last <= above = count(<= hi)
     for _ in range(200):
         if above - below <= _ENUMERATE_AT:
             return _enumerate_ranks(s, lo, hi, range(k - below, last - below + 1))
@@ -149,8 +151,9 @@ def _kth_differences(s: np.ndarray, k: int, count: int) -> tuple[float, ...]:
             hi, above = mid, at_most
         elif at_most < k:
             lo, below = mid, at_most
-        else:  # the ranks straddle mid: the rest is one search each
-            return tuple(_kth_differences(s, rank, 1)[0] for rank in range(k, last + 1))
+        else:  # ranks k..at_most lie in (lo, mid], the rest in (mid, hi]
+            return (_kth_differences(s, k, at_most - k + 1, (lo, mid, below, at_most))
+                    + _kth_differences(s, at_most + 1, last - at_most, (mid, hi, at_most, above)))
     # lo and hi are adjacent floats: every difference in (lo, hi] is the same number.
     return (_smallest_difference_above(s, lo),) * count
 
