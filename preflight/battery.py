@@ -309,6 +309,19 @@ def additive_noise_checks(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str
     return out
 
 
+BRACKET_FAMILY = "hidden-cause moments"
+"""Family of the third-moment slope bracket: one test per pair whose straight lines bend."""
+
+
+def _slope_bracket_check(xr: np.ndarray, yr: np.ndarray, x_name: str, y_name: str) -> Tagged:
+    """Geary's third-moment slope against the bracket of the pair's least-squares slopes (partialled columns)."""
+    from preflight.checks.confounding import third_moment_slope_bracket
+
+    result = third_moment_slope_bracket(xr, yr)
+    return _tag(BRACKET_FAMILY, "pair", result, f"third-moment slope bracket ({x_name}, {y_name})",
+                variables=(x_name, y_name), test="third-moment-slope-bracket")
+
+
 def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: np.ndarray | None,
                      conditioning: tuple[str, ...], adjacent: bool, policy: Policy,
                      association: SharedAssociation | None = None, plot_rows: np.ndarray | None = None) -> PairBattery:
@@ -347,6 +360,7 @@ def run_pair_battery(x: np.ndarray, y: np.ndarray, x_name: str, y_name: str, Z: 
         bends = bool(linear_p) and rejects(min(linear_p), policy.alpha)
         if bends:
             checks += additive_noise_checks(x, y, x_name, y_name, policy, seed, Z)
+            checks.append(_slope_bracket_check(xr, yr, x_name, y_name))
         # Only a direction whose raw linearity tests reject can be judged
         # nonlinear, so only there is the spread of the spline residual needed.
         for regressor, response, direction, role in ((xr, yr, (y_name, x_name), "forward"),
@@ -542,6 +556,16 @@ def _judge_adjacent(battery: PairBattery, checks: list[Tagged], policy: Policy,
         # hidden common cause need not.
         flags.append("confounding-suspected")
         facts.add("no-independent-noise-model")
+    elif nonlinear and _material_departure(_of(checks, BRACKET_FAMILY, "pair"), alpha,
+                                           policy.hidden_cause_min_bracket_depth):
+        # Two noisy measures of one skewed hidden cause bend each other's
+        # regression, and at a few thousand rows a spline may leave a residual
+        # that looks independent one way; their third-moment slope sits
+        # strictly between the two least-squares slopes, where a straight
+        # line never puts it.  Any additive-noise orientation is withdrawn.
+        flags.append("confounding-suspected")
+        facts.add("moment-slope-inside-bracket")
+        anm = "undetermined"
     facts.add("lingam-oriented" if lingam != "undetermined" else "lingam-undetermined")
     facts.add("anm-oriented" if anm != "undetermined" else "anm-undetermined")
     judged = _judged_checks(checks, policy, favoured, spread_role, nonlinear)

@@ -110,6 +110,7 @@ BOUNDS: dict[str, Bounds] = {
     "heteroscedastic_min_r2": _SHARE,
     "confounding_spread_min_r2": _SHARE,
     "dependence_min_hsic": _SHARE,
+    "hidden_cause_min_bracket_depth": Bounds(0.0, 0.5, high_why="the depth is at most 0.5, at the bracket's middle"),
     "equation_precedence_min_rows": Bounds(1),
     "hsic_exact_max_n": Bounds(1, 5000, high_why=_WORK),
     "hsic_max_n": Bounds(6, 100_000, low_why="HSIC needs at least 6 rows", high_why=_WORK),
@@ -256,6 +257,19 @@ class Policy:
     A hidden common cause of two variables at 2,000 rows gave 0.002 to 0.008
     in the less dependent direction, and the spread tests
     (``confounding_spread_min_r2``) count as dependence as well."""
+
+    hidden_cause_min_bracket_depth: float = 0.1
+    """Depth inside the bracket of a pair's least-squares slopes at or above which a significant
+    third-moment slope (:func:`preflight.checks.confounding.third_moment_slope_bracket`) counts as the
+    trace of a hidden common cause on a pair judged nonlinear.
+
+    Depth is the distance of Geary's slope from the nearer end of the
+    bracket, as a share of its width (0 at either end, 0.5 in the middle).
+    Two variables that each measure one skewed hidden cause with noise put
+    it at 0.3 to 0.7 of the way across (20 combinations of hidden-cause and
+    noise families at 200,000 rows), a straight line puts it at an end, so
+    0.1 asks for a slope clearly inside while keeping the hidden pairs
+    (tables in the contributor guide)."""
 
     equation_precedence_min_rows: int = 1000
     """From this many rows an edge judged inside structural equations that hold up takes precedence: its

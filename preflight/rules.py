@@ -21,7 +21,8 @@ KINDS = ("limit", "caution")
 
 PAIR_FINDINGS = ("adjacent", "not-adjacent", "lingam-oriented", "lingam-undetermined", "anm-oriented",
                  "anm-undetermined", "orientation-conflict", "residuals-dependent-both-ways",
-                 "noise-estimates-dependent", "no-independent-noise-model", "independent-both-ways",
+                 "noise-estimates-dependent", "no-independent-noise-model", "moment-slope-inside-bracket",
+                 "independent-both-ways",
                  "oriented-in-equations", "no-partial-correlation", "equations-lean-x->y", "equations-lean-y->x",
                  "class-against-equations-lean")
 """Facts about a pair besides its flags (``battery.judge_pair``; ``orientation-conflict`` from the pipeline)."""

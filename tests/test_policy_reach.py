@@ -63,8 +63,15 @@ def _hidden_cause(n: int = 1000) -> pd.DataFrame:
     return pd.DataFrame({"a": h + 0.8 * rng.uniform(-1, 1, n), "b": 0.5 * h + 0.6 * rng.uniform(-1, 1, n)})
 
 
+def _skewed_hidden_cause() -> pd.DataFrame:
+    """Two noisy measures of one skewed hidden cause that a spline reads as a curve one way (2,000 rows)."""
+    from preflight.scenarios import simulate, to_frame
+
+    return to_frame(simulate("hidden-cause-non-adjacent", "pair", 2, 2000, "exponential", 2074554286))
+
+
 TABLES = {"chain": _chain, "gaussian": _gaussian, "curved": _curved, "spreading": _spreading,
-          "hidden cause": _hidden_cause}
+          "hidden cause": _hidden_cause, "skewed hidden cause": _skewed_hidden_cause}
 
 
 @functools.cache
@@ -228,6 +235,7 @@ PROBES = {
     "heteroscedastic_min_r2": (0.9, _full("spreading", lambda r: r.data["pairs"][0]["flags"])),
     "confounding_spread_min_r2": (0.05, _full("hidden cause", lambda r: r.data["pairs"][0]["flags"])),
     "dependence_min_hsic": (0.9, _edge_dependence_counts),
+    "hidden_cause_min_bracket_depth": (0.5, _full("skewed hidden cause", lambda r: r.data["pairs"][0]["flags"])),
     "equation_precedence_min_rows": (5000, _equations_take_precedence_at_2000_rows),
     "hsic_exact_max_n": (100, _ica(UNIFORM_SOURCES, _dependence_p)),
     "hsic_max_n": (300, _ica(UNIFORM_SOURCES, _dependence_p)),

@@ -6,6 +6,9 @@
 * :func:`spectral_confounding` -- strength of confounding of one regression,
   from how its coefficient vector sits in the eigenbasis of the predictors'
   covariance (after Janzing & Schölkopf 2018).
+* :func:`third_moment_slope_bracket` -- whether Geary's (1942) third-moment
+  slope of a pair lies strictly between its two least-squares slopes, as it
+  does when both variables measure one skewed hidden cause with noise.
 """
 
 from __future__ import annotations
@@ -14,6 +17,7 @@ import math
 
 import numpy as np
 
+from preflight.checks._distributions import norm_sf
 from preflight.checks._validate import as_matrix, as_vector, same_length
 from preflight.errors import InputError
 from preflight.results import CheckResult
@@ -163,3 +167,120 @@ def _spectral_inputs(X, target, predictors) -> tuple[np.ndarray, np.ndarray]:
     if n <= d + 1:
         raise InputError(f"spectral confounding needs more rows than predictors + 1 ({d + 1}), got {n}")
     return X[:, predictors], X[:, target]
+
+
+_BRACKET = "third-moment slope bracket"
+_BRACKET_EFFECT = "depth inside the bracket"
+
+
+def _bracket_conditions(moments: np.ndarray) -> np.ndarray:
+    """(m_y, m_x, k_xx, k_yy) from the raw moments (E x, E y, E x^2, E xy, E y^2, E x^2 y, E x y^2) along axis 0.
+
+    m_y = E[x y r] with r the residual of y on x, m_x = E[x y s] with s the
+    residual of x on y, k_xx = E[x^2 y], k_yy = E[x y^2], every expectation about
+    the means and each divided by the powers of the two standard deviations
+    that make it free of units, so that the delta method also carries the
+    estimated means and spreads.
+    """
+    mx, my, sxx, sxy, syy, sxxy, sxyy = moments
+    cov = sxy - mx * my
+    var_x = sxx - mx * mx
+    var_y = syy - my * my
+    k_xx = sxxy - my * sxx - 2.0 * mx * sxy + 2.0 * mx * mx * my
+    k_yy = sxyy - mx * syy - 2.0 * my * sxy + 2.0 * my * my * mx
+    scale_xx = var_x * np.sqrt(var_y)
+    scale_yy = np.sqrt(var_x) * var_y
+    return np.array([(k_yy - cov / var_x * k_xx) / scale_yy, (k_xx - cov / var_y * k_yy) / scale_xx,
+                     k_xx / scale_xx, k_yy / scale_yy])
+
+
+def _bracket_moments(xs: np.ndarray, ys: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(raw moments, (m_y, m_x, k, l), delta-method variances of m_y and m_x) of standardised columns."""
+    n = xs.shape[0]
+    rows = np.stack([xs, ys, xs * xs, xs * ys, ys * ys, xs * xs * ys, xs * ys * ys])
+    moments = rows.mean(axis=1)
+    step = 1e-6  # central differences in each raw moment: the delta method's gradient
+    offsets = step * np.eye(7)
+    gradient = (_bracket_conditions(moments[:, None] + offsets)[:2]
+                - _bracket_conditions(moments[:, None] - offsets)[:2]) / (2.0 * step)
+    centred = rows - moments[:, None]
+    covariance = centred @ centred.T / n
+    variances = np.einsum("ij,jk,ik->i", gradient, covariance, gradient) / n
+    return moments, _bracket_conditions(moments), variances
+
+
+def third_moment_slope_bracket(x, y) -> CheckResult:
+    """Whether Geary's third-moment slope of (x, y) lies strictly inside the bracket of its least-squares slopes.
+
+    Null hypothesis: a straight line with noise independent of its regressor
+    links the two, in one direction or the other, and nothing else does.
+    Then one of two third-order moment conditions holds exactly:
+    E[x y r] = 0 with r the residual of y on x (x -> y), or E[x y s] = 0
+    with s the residual of x on y (y -> x), all about the means.
+
+    Why it bears on hidden causes.  If x = a h + u and y = b h + v with h,
+    u, v independent and h skewed, Geary's (1942) slope E[x y^2] / E[x^2 y]
+    (centred) is b / a (Reiersøl 1950: the slope is identified when h is
+    not Gaussian), while the least-squares slope of y on x is attenuated
+    towards 0 and the reciprocal of the slope of x on y is inflated (the
+    bounds of Frisch 1934): b / a lies strictly between them.  A straight
+    line x -> y puts Geary's slope on the first end, y -> x on the second.
+    With the signs of y chosen so the covariance is positive, Geary's slope
+    is strictly inside exactly when the two moment conditions have the same
+    sign (both are E[x^2 y] times its distance from one end).
+
+    Test: intersection-union (Berger 1982).  Each condition gets a Wald z
+    with a delta-method standard error from the sample covariance of the
+    seven raw moments it is built from (every mean estimated, so the fitted
+    slopes are accounted for); the p-value is the larger of the two
+    two-sided p-values when the signs agree, 1 when they do not.  Under the
+    null one condition is exactly zero, so the level is at most alpha.
+
+    Statistic: where Geary's slope sits in the bracket on a log scale, 0 at
+    the slope of y on x, 1 at the reciprocal slope of x on y (outside
+    [0, 1] when it is outside the bracket; NaN when it has the other sign,
+    E[x^2 y] is zero or the two are exactly collinear).  The log scale makes
+    the reading free of which variable is called x.  Effect: its depth
+    inside, min(position, 1 - position), 0 outside.
+
+    Not evidence of a hidden cause on its own: a curved mechanism can put
+    the slope inside too (a hinge does; see the contributor guide), and a
+    symmetric hidden cause leaves the third moments at zero, so the test
+    has no power there.  The pair battery reads it only where a pair is
+    already judged nonlinear, to tell such a curve from a hidden cause.
+    """
+    xv = as_vector(x, name="x", min_n=8)
+    yv = as_vector(y, name="y", min_n=8)
+    n = same_length(xv, yv, names=("x", "y"))
+    sd_x, sd_y = float(xv.std()), float(yv.std())
+    if sd_x == 0 or sd_y == 0:
+        return CheckResult(name=_BRACKET, statistic=math.nan, p_value=None, effect=None,
+                           effect_name=_BRACKET_EFFECT, n=n, note="a constant variable: no slopes to compare")
+    xs = (xv - xv.mean()) / sd_x
+    ys = (yv - yv.mean()) / sd_y
+    if float(np.mean(xs * ys)) < 0:
+        ys = -ys  # so both least-squares slopes are positive and the bracket runs from the smaller up
+    cov = float(np.mean(xs * ys))
+    if cov <= 1e-12:
+        return CheckResult(name=_BRACKET, statistic=math.nan, p_value=None, effect=None,
+                           effect_name=_BRACKET_EFFECT, n=n, note="uncorrelated: the least-squares slopes are zero")
+    moments, conditions, variances = _bracket_moments(xs, ys)
+    if np.any(variances <= 0) or not np.all(np.isfinite(variances)):
+        return CheckResult(name=_BRACKET, statistic=math.nan, p_value=None, effect=None,
+                           effect_name=_BRACKET_EFFECT, n=n, note="degenerate moments: no standard error")
+    m_y, m_x, k_xx, k_yy = conditions
+    z_y, z_x = float(m_y) / math.sqrt(variances[0]), float(m_x) / math.sqrt(variances[1])
+    inside = (z_y > 0) == (z_x > 0) and z_y != 0 and z_x != 0
+    p_value = float(max(2.0 * norm_sf(abs(z_y)), 2.0 * norm_sf(abs(z_x)))) if inside else 1.0
+    # On standardised columns the bracket runs from cov to 1 / cov; on a log scale the position of a
+    # slope g is the same whichever variable is called x (swapping them maps g to 1 / g and the
+    # position p to 1 - p).
+    geary = float(k_yy) / float(k_xx) if k_xx != 0 else math.nan
+    position = math.log(geary / cov) / (-2.0 * math.log(cov)) if geary > 0 and cov < 1.0 else math.nan
+    depth = max(0.0, min(position, 1.0 - position)) if math.isfinite(position) else 0.0
+    return CheckResult(
+        name=_BRACKET, statistic=position, p_value=p_value, effect=depth, effect_name=_BRACKET_EFFECT, n=n,
+        note=(f"Geary slope at {position:.3g} of the way (log scale) from the slope of y on x to the reciprocal "
+              f"slope of x on y; moment conditions z = {z_y:.3g} (x -> y) and {z_x:.3g} (y -> x); "
+              f"intersection-union test with delta-method standard errors"),
+    )

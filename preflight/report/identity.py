@@ -153,6 +153,8 @@ def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
             return CheckIdentity("hsic", "noise dependence", "pair", pair, variant=NOISE_ESTIMATES)
         if name == f"pairwise likelihood ratio ({first} -> {second} if > 0)":
             return CheckIdentity("pairwise-likelihood-ratio", None, "pair", pair)
+        if name == f"third-moment slope bracket ({first}, {second})":
+            return CheckIdentity("third-moment-slope-bracket", "hidden-cause moments", "pair", pair)
         if name.endswith(f" ({first}, {second})"):
             return CheckIdentity(test_id(name[: -len(f" ({first}, {second})")]), "association", "pair", pair)
     for response, regressor in ((a, b), (b, a)):

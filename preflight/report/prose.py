@@ -212,6 +212,14 @@ REFERENCES = {
                  "normality. Communications in Statistics - Theory and Methods 19(10), 3595-3617.",
     "holm1979": "Holm, S. (1979). A simple sequentially rejective multiple test procedure. Scandinavian Journal "
                 "of Statistics 6(2), 65-70.",
+    "geary1942": "Geary, R. C. (1942). Inherent relations between random variables. Proceedings of the Royal "
+                 "Irish Academy, Section A 47, 63-76.",
+    "reiersol1950": "Reiers\u00f8l, O. (1950). Identifiability of a linear relation between variables which are "
+                    "subject to error. Econometrica 18(4), 375-389.",
+    "frisch1934": "Frisch, R. (1934). Statistical Confluence Analysis by Means of Complete Regression Systems. "
+                  "Oslo: University Institute of Economics.",
+    "berger1982": "Berger, R. L. (1982). Multiparameter hypothesis testing and acceptance sampling. "
+                  "Technometrics 24(4), 295-300.",
     "hoyer2009": "Hoyer, P. O., Janzing, D., Mooij, J. M., Peters, J. and Schoelkopf, B. (2009). Nonlinear causal "
                  "discovery with additive noise models. Advances in Neural Information Processing Systems 21.",
     "hyvarinen1998": "Hyv\u00e4rinen, A. (1998). New approximations of differential entropy for independent component "
@@ -357,6 +365,11 @@ METHODS: tuple[Method, ...] = (
     Method("additive-noise", "direction", "an additive-noise check: HSIC between each regressor and the residual "
            "of a regression spline, in both directions (Hoyer et al. 2009; Peters et al. 2014)",
            ("hoyer2009", "peters2014"), _spline_hsic),
+    Method("slope-bracket", "direction", "for a pair judged nonlinear, Geary's third-moment slope against the "
+           "bracket of its two least-squares slopes: two noisy measures of one skewed hidden cause put it strictly "
+           "inside (Geary 1942; Reiers\u00f8l 1950; Frisch 1934), tested as an intersection-union test of the two "
+           "moment conditions a straight line would satisfy (Berger 1982)",
+           ("geary1942", "reiersol1950", "frisch1934", "berger1982"), _tests("third-moment-slope-bracket")),
     Method("henze-zirkler", "whole", "the Henze-Zirkler test of multivariate normality (Henze and Zirkler 1990)",
            ("henze1990",), _tests("henze-zirkler")),
     Method("fastica", "whole", "FastICA unmixing with a count of Gaussian-looking components "
