@@ -280,7 +280,9 @@ def third_moment_slope_bracket(x, y) -> CheckResult:
     depth = max(0.0, min(position, 1.0 - position)) if math.isfinite(position) else 0.0
     return CheckResult(
         name=_BRACKET, statistic=position, p_value=p_value, effect=depth, effect_name=_BRACKET_EFFECT, n=n,
-        note=(f"Geary slope at {position:.3g} of the way (log scale) from the slope of y on x to the reciprocal "
-              f"slope of x on y; moment conditions z = {z_y:.3g} (x -> y) and {z_x:.3g} (y -> x); "
-              f"intersection-union test with delta-method standard errors"),
+        note=((f"Geary slope at {position:.3g} of the way (log scale) from the slope of y on x to the reciprocal "
+               f"slope of x on y" if math.isfinite(position) else
+               "Geary slope undefined (no third cross-moment) or of the other sign than the least-squares slopes")
+              + f"; moment conditions z = {z_y:.3g} (x -> y) and {z_x:.3g} (y -> x); "
+              "intersection-union test with delta-method standard errors"),
     )
