@@ -264,12 +264,12 @@ class Policy:
     trace of a hidden common cause on a pair judged nonlinear.
 
     Depth is the distance of Geary's slope from the nearer end of the
-    bracket, as a share of its width (0 at either end, 0.5 in the middle).
-    Two variables that each measure one skewed hidden cause with noise put
-    it at 0.3 to 0.7 of the way across (20 combinations of hidden-cause and
-    noise families at 200,000 rows), a straight line puts it at an end, so
-    0.1 asks for a slope clearly inside while keeping the hidden pairs
-    (tables in the contributor guide)."""
+    bracket, as a share of its width on a log scale (0 at either end, 0.5
+    in the middle).  Two variables that each measure one skewed hidden
+    cause with noise put it at 0.3 to 0.7 of the way across (20
+    combinations of hidden-cause and noise families at 200,000 rows), a
+    straight line puts it at an end, so 0.1 asks for a slope clearly inside
+    while keeping the hidden pairs (measurements in the contributor guide)."""
 
     equation_precedence_min_rows: int = 1000
     """From this many rows an edge judged inside structural equations that hold up takes precedence: its
