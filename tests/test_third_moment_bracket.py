@@ -40,7 +40,7 @@ def test_false_alarm_rate_under_straight_lines_is_at_most_nominal(n):
             pair = (x, y) if trials % 2 else (y, x)
             alarms += third_moment_slope_bracket(*pair).p_value < 0.05
             trials += 1
-    # 84 trials: 9 or more alarms would have probability below 0.3 % at a true rate of 5 %.
+    # 72 trials: 9 or more alarms would have probability below 1 % at a true rate of 5 % (scipy.stats.binom.sf).
     assert alarms <= 8, (alarms, trials)
 
 
