@@ -173,6 +173,11 @@ _BRACKET = "third-moment slope bracket"
 _BRACKET_EFFECT = "depth inside the bracket"
 
 
+def _no_bracket(n: int, why: str) -> CheckResult:
+    return CheckResult(name=_BRACKET, statistic=math.nan, p_value=None, effect=None, effect_name=_BRACKET_EFFECT,
+                       n=n, note=why)
+
+
 def _bracket_conditions(moments: np.ndarray) -> np.ndarray:
     """(m_y, m_x, k_xx, k_yy) from the raw moments (E x, E y, E x^2, E xy, E y^2, E x^2 y, E x y^2) along axis 0.
 
@@ -195,7 +200,7 @@ def _bracket_conditions(moments: np.ndarray) -> np.ndarray:
 
 
 def _bracket_moments(xs: np.ndarray, ys: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(raw moments, (m_y, m_x, k, l), delta-method variances of m_y and m_x) of standardised columns."""
+    """(raw moments, (m_y, m_x, k_xx, k_yy), delta-method variances of m_y and m_x) of standardised columns."""
     n = xs.shape[0]
     rows = np.stack([xs, ys, xs * xs, xs * ys, ys * ys, xs * xs * ys, xs * ys * ys])
     moments = rows.mean(axis=1)
@@ -254,20 +259,17 @@ def third_moment_slope_bracket(x, y) -> CheckResult:
     n = same_length(xv, yv, names=("x", "y"))
     sd_x, sd_y = float(xv.std()), float(yv.std())
     if sd_x == 0 or sd_y == 0:
-        return CheckResult(name=_BRACKET, statistic=math.nan, p_value=None, effect=None,
-                           effect_name=_BRACKET_EFFECT, n=n, note="a constant variable: no slopes to compare")
+        return _no_bracket(n, "a constant variable: no slopes to compare")
     xs = (xv - xv.mean()) / sd_x
     ys = (yv - yv.mean()) / sd_y
     if float(np.mean(xs * ys)) < 0:
         ys = -ys  # so both least-squares slopes are positive and the bracket runs from the smaller up
     cov = float(np.mean(xs * ys))
     if cov <= 1e-12:
-        return CheckResult(name=_BRACKET, statistic=math.nan, p_value=None, effect=None,
-                           effect_name=_BRACKET_EFFECT, n=n, note="uncorrelated: the least-squares slopes are zero")
+        return _no_bracket(n, "uncorrelated: the least-squares slopes are zero")
     moments, conditions, variances = _bracket_moments(xs, ys)
     if np.any(variances <= 0) or not np.all(np.isfinite(variances)):
-        return CheckResult(name=_BRACKET, statistic=math.nan, p_value=None, effect=None,
-                           effect_name=_BRACKET_EFFECT, n=n, note="degenerate moments: no standard error")
+        return _no_bracket(n, "degenerate moments: no standard error")
     m_y, m_x, k_xx, k_yy = conditions
     z_y, z_x = float(m_y) / math.sqrt(variances[0]), float(m_x) / math.sqrt(variances[1])
     inside = (z_y > 0) == (z_x > 0) and z_y != 0 and z_x != 0
