@@ -6,7 +6,9 @@ formula; Reiersøl (1950) and the bounds of Frisch (1934) for where a
 measurement-error slope sits (a simulated errors-in-variables model with a
 known slope is the ground truth); the delta-method standard errors against
 a pairs bootstrap of the same statistics (a large simulation, common
-practice for checking a delta-method variance).
+practice for checking a delta-method variance).  The cross-skewness check
+(``checks.confounding.cross_skewness``) against scipy's one-sample t test
+and normal tail, and a population value worked out by hand.
 """
 
 from __future__ import annotations
@@ -79,3 +81,27 @@ def test_delta_method_standard_errors_match_a_pairs_bootstrap(model):
         draws.append(_bracket_moments(*standardised(x[rows], y[rows]))[1][:2])
     bootstrap_sd = np.std(draws, axis=0)
     np.testing.assert_allclose(np.sqrt(variances), bootstrap_sd, rtol=0.12)
+
+
+def test_cross_skewness_is_two_one_sample_t_tests_in_scipy():
+    # Source: scipy.stats.ttest_1samp and scipy.stats.norm.  Each of the check's two z values is the one-sample
+    # t statistic of w = (x^2 - 1) y (then of x (y^2 - 1)) on standardised columns, with the standard deviation
+    # taken over n rather than n - 1; the p-value is Bonferroni's over the two two-sided normal p-values.
+    from scipy import stats
+
+    from preflight.checks.confounding import cross_skewness
+
+    rng = np.random.default_rng(8)
+    n = 1500
+    h = rng.gamma(2.0, 1.0, n)
+    x, y = h + rng.normal(size=n), 0.5 * h + rng.uniform(-2, 2, n)
+    xs, ys = (x - x.mean()) / x.std(), (y - y.mean()) / y.std()
+    t_values = [stats.ttest_1samp((a * a - 1.0) * b, 0.0).statistic for a, b in ((xs, ys), (ys, xs))]
+    z = max(abs(t) for t in t_values) * np.sqrt(n / (n - 1))
+    result = cross_skewness(x, y)
+    assert result.statistic == pytest.approx(z, rel=1e-10)
+    assert result.p_value == pytest.approx(min(1.0, 4 * stats.norm.sf(z)), rel=1e-8, abs=1e-300)
+    # The population value, worked out by hand from the model (gamma(2, 1): variance 2, third central moment 4):
+    # E[x^2 y] about the means = 0.5 * 4 = 2, over var(x) sd(y) = 3 * sqrt(0.5 + 16 / 12), is 0.492 (and
+    # E[x y^2] gives 0.315); the effect is the larger.
+    assert result.effect == pytest.approx(0.492, abs=0.12)
