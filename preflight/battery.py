@@ -14,6 +14,7 @@ all pairs.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -464,6 +465,53 @@ def with_noise_dependence(findings: PairFindings, noise_dependence: CheckResult,
         return replace(findings, flags=findings.flags + ("confounding-suspected",), checks=judged,
                        facts=findings.facts | {"confounding-suspected", "noise-estimates-dependent"})
     return replace(findings, checks=judged)
+
+
+def with_distant_noise_dependence(findings: PairFindings, tests: Sequence[Tagged], misspecified: set[str],
+                                  policy: Policy) -> PairFindings:
+    """A non-adjacent pair's findings with the dependence of its noise estimates judged and added.
+
+    The pair is flagged ``confounding-suspected`` when the HSIC between its
+    noise estimates is significant after the correction across all
+    non-adjacent pairs with at least ``dependence_min_hsic``, and the
+    residual of each estimate on the other depends on its regressor with at
+    least that floor, both ways (an intersection-union test, Berger 1982,
+    corrected across the same pairs: no model with independent noise links
+    the two in either direction), and their third-order cross-moments are
+    not zero at ``alpha`` (a skewed common component, not a shared change of
+    spread).  Not where either variable sits in a pair judged nonlinear:
+    its linear noise estimate is then not a noise.  (Not withheld where a
+    variable's own equation departs: a hidden cause of a variable and one of
+    its estimated parents makes that equation bend or change spread.)
+    """
+    hsic_test, *follow_up = tests
+
+    def material(test: Tagged) -> bool:
+        return significant(test.result, policy.alpha) and (test.result.effect or 0.0) >= policy.dependence_min_hsic
+
+    usable = not {findings.x, findings.y} & misspecified
+    dependent = material(hsic_test)
+    directions, shape = follow_up[:2], follow_up[2:]
+    both_ways = len(directions) == 2 and all(material(t) for t in directions)
+    skewed = bool(shape) and significant(shape[0].result, policy.alpha)
+    judged = [replace(hsic_test.result, passed=not dependent)]
+    judged += [replace(t.result, passed=not material(t)) for t in directions]
+    judged += [replace(t.result, passed=not skewed) for t in shape]
+    why_not = ("" if not dependent or not follow_up else
+               "the residual is independent one way, as an edge the skeleton missed would leave it"
+               if not both_ways else
+               "no skewed common component: a shared change of spread leaves such a dependence"
+               if not skewed else "")
+    if not usable:
+        judged = [replace(r, note=f"{r.note}; not used as a confounding signal: a structural equation at this pair "
+                                  "is nonlinear, so its linear noise estimate is not a noise") for r in judged]
+    elif why_not:
+        judged[0] = replace(judged[0], note=f"{judged[0].note}; {why_not}, so not a confounding signal")
+    checks = findings.checks + tuple(judged)
+    if usable and dependent and both_ways and skewed and "confounding-suspected" not in findings.flags:
+        return replace(findings, flags=findings.flags + ("confounding-suspected",), checks=checks,
+                       facts=findings.facts | {"confounding-suspected", "noise-estimates-dependent"})
+    return replace(findings, checks=checks)
 
 
 def _orientations(battery: PairBattery, checks: list[Tagged], gaussian: dict[str, bool],

@@ -137,7 +137,7 @@ def edge_task(X: np.ndarray, names, parents, pair: tuple[int, int], policy: Poli
             ("reverse", judgement.backward, judgement.backward_spread, judgement.backward_normality, names[i],
              names[j])):
         label = f"{response} on {regressor} and its other parents"
-        check = _bootstrap_hsic(result, f"hsic in the equation ({label})", f"other parents partialled out: {given}")
+        check = bootstrap_hsic(result, f"hsic in the equation ({label})", f"other parents partialled out: {given}")
         tagged.append(Tagged(EDGE_FAMILY, role, check.identified(
             scope="pair", family=EDGE_FAMILY, variables=variables, direction=(response, regressor),
             variant=STRUCTURAL_EQUATION)))
@@ -227,7 +227,7 @@ def spline_edge_task(X: np.ndarray, names, parents, link: tuple[int, int], polic
             (judgement.backward, judgement.backward_spread, names[parent], names[child], parent)):
         role = "forward" if responding == max(parent, child) else "reverse"
         label = f"{response} on splines of {regressor} and its other parents"
-        check = _bootstrap_hsic(result, f"hsic in the spline equation ({label})",
+        check = bootstrap_hsic(result, f"hsic in the spline equation ({label})",
                                 f"splines with {judgement.df} columns per regressor")
         tagged.append(Tagged(SPLINE_EDGE_FAMILY, role, check.identified(
             scope="pair", family=SPLINE_EDGE_FAMILY, variables=variables, direction=(response, regressor),
@@ -239,7 +239,7 @@ def spline_edge_task(X: np.ndarray, names, parents, link: tuple[int, int], polic
     return tuple(tagged)
 
 
-def _bootstrap_hsic(result, name: str, context: str) -> CheckResult:
+def bootstrap_hsic(result, name: str, context: str) -> CheckResult:
     """A residual-bootstrap HSIC (:class:`preflight.equations.ResidualIndependence`) as a check, decided on its
     p-value with its tail beyond the largest bootstrap statistic resolved; the counted one and ``context`` go in
     the note."""

@@ -181,6 +181,9 @@ class Computed:
     spline_edge_tests: dict[tuple[int, int], tuple[Tagged, ...]] = field(default_factory=dict)
     """Per (parent, child) link of an equation that bends on its own (:func:`preflight.equation_stage.bent_links`),
     the pair regressed on splines both ways (:func:`preflight.equation_stage.spline_edge_task`)."""
+    distant_noise: dict[Pair, tuple[Tagged, ...]] = field(default_factory=dict)
+    """Per pair the skeleton left non-adjacent, the HSIC between its noise estimates and, where material, the
+    two direction tests (:func:`preflight.pipeline._distant_noise_tests`)."""
 
 
 @dataclass(frozen=True)
@@ -205,6 +208,8 @@ class Evidence:
     """Per variable with parents, ``Computed.equation_checks`` adjusted."""
     spline_edge_checks: dict[tuple[int, int], list[Tagged]] = field(default_factory=dict)
     """Per (parent, child) link, ``Computed.spline_edge_tests`` adjusted."""
+    distant_noise: dict[Pair, list[Tagged]] = field(default_factory=dict)
+    """Per non-adjacent pair, ``Computed.distant_noise`` adjusted."""
 
 
 @dataclass(frozen=True)

@@ -151,6 +151,14 @@ def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
                                  variant=GIVEN_A_SPLINE)
         if name == f"noise dependence (hsic) ({first}, {second})":
             return CheckIdentity("hsic", "noise dependence", "pair", pair, variant=NOISE_ESTIMATES)
+        if name == f"noise dependence of non-adjacent variables (hsic) ({first}, {second})":
+            return CheckIdentity("hsic", "non-adjacent noise dependence", "pair", pair, variant=NOISE_ESTIMATES)
+        if name == f"third-order cross-moments of noise estimates ({first}, {second})":
+            return CheckIdentity("third-order-cross-moments", "non-adjacent noise dependence", "pair", pair,
+                                 variant=NOISE_ESTIMATES)
+        if name == f"hsic between noise estimates ({first} on {second})":
+            return CheckIdentity("hsic", "non-adjacent noise dependence", "pair", pair, (first, second),
+                                 NOISE_ESTIMATES)
         if name == f"pairwise likelihood ratio ({first} -> {second} if > 0)":
             return CheckIdentity("pairwise-likelihood-ratio", None, "pair", pair)
         if name == f"third-moment slope bracket ({first}, {second})":

@@ -218,6 +218,14 @@ REFERENCES = {
                     "subject to error. Econometrica 18(4), 375-389.",
     "frisch1934": "Frisch, R. (1934). Statistical Confluence Analysis by Means of Complete Regression Systems. "
                   "Oslo: University Institute of Economics.",
+    "hoyer2008": "Hoyer, P. O., Shimizu, S., Kerminen, A. J. and Palviainen, M. (2008). Estimation of causal "
+                 "effects using linear non-Gaussian causal models with hidden variables. International Journal of "
+                 "Approximate Reasoning 49(2), 362-378.",
+    "cai2023": "Cai, R., Huang, Z., Chen, W., Hao, Z. and Zhang, K. (2023). Causal discovery with latent "
+               "confounders based on higher-order cumulants. Proceedings of the 40th International Conference on "
+               "Machine Learning, PMLR 202.",
+    "poczos2012": "P\u00f3czos, B., Ghahramani, Z. and Schneider, J. (2012). Copula-based kernel dependency "
+                  "measures. Proceedings of the 29th International Conference on Machine Learning.",
     "berger1982": "Berger, R. L. (1982). Multiparameter hypothesis testing and acceptance sampling. "
                   "Technometrics 24(4), 295-300.",
     "hoyer2009": "Hoyer, P. O., Janzing, D., Mooij, J. M., Peters, J. and Schoelkopf, B. (2009). Nonlinear causal "
@@ -370,6 +378,14 @@ METHODS: tuple[Method, ...] = (
            "inside (Geary 1942; Reiers\u00f8l 1950; Frisch 1934), tested as an intersection-union test of the two "
            "moment conditions a straight line would satisfy (Berger 1982)",
            ("geary1942", "reiersol1950", "frisch1934", "berger1982"), _tests("third-moment-slope-bracket")),
+    Method("distant-noise", "independence", "for each pair the skeleton left non-adjacent, HSIC between the "
+           "ranks of the two noise estimates (P\u00f3czos et al. 2012), corrected across those pairs; where it is "
+           "material, the residual of each estimate regressed on the other tested for independence both ways "
+           "with the residual bootstrap (Sen and Sen 2014), as an intersection-union test (Berger 1982), and the "
+           "estimates' third-order cross-moments: dependence both ways with a skewed common component is a sign "
+           "of a hidden common cause (Hoyer et al. 2008; Cai et al. 2023)",
+           ("poczos2012", "sen2014", "berger1982", "hoyer2008", "cai2023"),
+           lambda identity: identity.family == "non-adjacent noise dependence"),
     Method("henze-zirkler", "whole", "the Henze-Zirkler test of multivariate normality (Henze and Zirkler 1990)",
            ("henze1990",), _tests("henze-zirkler")),
     Method("fastica", "whole", "FastICA unmixing with a count of Gaussian-looking components "
