@@ -17,7 +17,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from preflight.checks.confounding import third_moment_slope_bracket
+from preflight.checks.confounding import cross_skewness, third_moment_slope_bracket
 from preflight.errors import InputError
 from preflight.scenarios import WIDE_NOISE_FAMILIES, _noise, simulate
 
@@ -85,15 +85,20 @@ def test_shift_rescale_swap_and_sign_change_nothing(seed, shift, scale, flip):
         assert other.effect == pytest.approx(base.effect, rel=1e-6, abs=1e-9)
 
 
-def test_input_is_validated_up_front():
+@pytest.mark.parametrize("check", [third_moment_slope_bracket, cross_skewness])
+def test_input_is_validated_up_front(check):
+    # The two third-moment checks of a pair share their input rules (the cross-moments: test_distant_noise.py).
     with pytest.raises(InputError):
-        third_moment_slope_bracket([1.0, 2.0, math.nan] * 4, np.arange(12.0))
+        check([1.0, 2.0, math.nan] * 4, np.arange(12.0))
     with pytest.raises(InputError):
-        third_moment_slope_bracket(np.arange(5.0), np.arange(5.0))
+        check(np.arange(5.0), np.arange(5.0))
     with pytest.raises(InputError):
-        third_moment_slope_bracket(np.arange(20.0), np.arange(21.0))
-    constant = third_moment_slope_bracket(np.ones(50), np.arange(50.0))
+        check(np.arange(20.0), np.arange(21.0))
+    constant = check(np.ones(50), np.arange(50.0))
     assert constant.p_value is None and constant.n == 50
+
+
+def test_an_uncorrelated_pair_is_not_read_as_inside_the_bracket():
     rng = np.random.default_rng(0)
     symmetric = rng.uniform(-1, 1, 400)
     uncorrelated = third_moment_slope_bracket(symmetric, symmetric**2 - np.mean(symmetric**2))
