@@ -89,13 +89,13 @@ def test_shift_rescale_swap_and_sign_change_nothing(seed, shift, scale):
 def _judged(noise: np.ndarray):
     """The non-adjacent pair (0, 1) of a three-column noise matrix judged as the pipeline does."""
     from preflight.battery import PairFindings, with_distant_noise_dependence
-    from preflight.pipeline import _column_ranks, _distant_noise_tests, _noise_dependence_results
+    from preflight.pipeline import _distant_noise_tests, _distant_screen_results
     from preflight.policy import Policy
 
     policy = Policy(seed=3)
     names = ("a", "b", "c")
     pairs = ((0, 1), (0, 2), (1, 2))
-    results = _noise_dependence_results(_column_ranks(noise), names, pairs, policy)
+    results = _distant_screen_results(noise, names, pairs, policy)
     tests = _distant_noise_tests(noise, names, pairs, results, policy)
     blank = PairFindings(x="a", y="b", adjacent=False, lingam_orientation="undetermined",
                          anm_orientation="undetermined", flags=(), facts=frozenset(), checks=())

@@ -379,7 +379,8 @@ METHODS: tuple[Method, ...] = (
            "moment conditions a straight line would satisfy (Berger 1982)",
            ("geary1942", "reiersol1950", "frisch1934", "berger1982"), _tests("third-moment-slope-bracket")),
     Method("distant-noise", "independence", "for each pair the skeleton left non-adjacent, HSIC between the "
-           "ranks of the two noise estimates (P\u00f3czos et al. 2012), corrected across those pairs; where it is "
+           "ranks of the two noise estimates (P\u00f3czos et al. 2012) on random Fourier features, corrected across "
+           "those pairs; where it is "
            "material, the residual of each estimate regressed on the other tested for independence both ways "
            "with the residual bootstrap (Sen and Sen 2014), as an intersection-union test (Berger 1982), and the "
            "estimates' third-order cross-moments: dependence both ways with a skewed common component is a sign "
