@@ -372,8 +372,8 @@ def _analyse_table(table: Table, graph: GraphFile | None, progress: Progress, po
     noise_future = (pool.submit(_noise_dependence_task, structure.noise, noise_pairs, distant_pairs, policy)
                     if pool is not None and tested_pairs else None)
     plan = _plan(table, structure, skeleton, progress)
-    if tested_pairs:
-        progress("noise dependence", 0, len(tested_pairs))
+    if noise_pairs:
+        progress("noise dependence", 0, len(noise_pairs))  # the non-adjacent screen is a tenth of it, untracked
     if noise_future is not None:
         noise_results, distant_results = noise_future.result()
     else:
