@@ -467,6 +467,11 @@ def with_noise_dependence(findings: PairFindings, noise_dependence: CheckResult,
     return replace(findings, checks=judged)
 
 
+NOT_A_NOISE = ("not used as a confounding signal: a structural equation at this pair is nonlinear, so its linear "
+               "noise estimate is not a noise")
+"""Why a noise-dependence check at a pair judged nonlinear decides nothing."""
+
+
 def with_distant_noise_dependence(findings: PairFindings, tests: Sequence[Tagged], misspecified: set[str],
                                   policy: Policy) -> PairFindings:
     """A non-adjacent pair's findings with the dependence of its noise estimates judged and added.
@@ -503,8 +508,7 @@ def with_distant_noise_dependence(findings: PairFindings, tests: Sequence[Tagged
                "no skewed common component: a shared change of spread leaves such a dependence"
                if not skewed else "")
     if not usable:
-        judged = [replace(r, note=f"{r.note}; not used as a confounding signal: a structural equation at this pair "
-                                  "is nonlinear, so its linear noise estimate is not a noise") for r in judged]
+        judged = [replace(r, note=f"{r.note}; {NOT_A_NOISE}") for r in judged]
     elif why_not:
         judged[0] = replace(judged[0], note=f"{judged[0].note}; {why_not}, so not a confounding signal")
     checks = findings.checks + tuple(judged)

@@ -18,6 +18,7 @@ import numpy as np
 from preflight import equation_stage
 from preflight._version import __version__
 from preflight.battery import (
+    NOT_A_NOISE,
     PairBattery,
     PairFindings,
     PlotFits,
@@ -29,7 +30,7 @@ from preflight.battery import (
     with_distant_noise_dependence,
     with_noise_dependence,
 )
-from preflight.evidence import Tagged, adjust_named_groups, significant
+from preflight.evidence import Tagged, adjust_named_groups, adjust_p_values, significant
 from preflight.fit import exactly_fitted
 from preflight.io import GraphFile, LoadedData
 from preflight.policy import Policy, level_rank
@@ -169,14 +170,8 @@ def _distant_noise_tests(noise: np.ndarray, names, pairs, results: list[CheckRes
     not.  The follow-up tests run only where the family's correction leaves
     the HSIC material, which keeps them to a few pairs.
     """
-    from preflight.evidence import adjust_p_values
-
-    tagged = {}
-    for (i, j), result in zip(pairs, results):
-        variables = tuple(sorted((names[i], names[j])))
-        tagged[(i, j)] = Tagged(DISTANT_NOISE_FAMILY, "pair", result.identified(
-            scope="pair", family=DISTANT_NOISE_FAMILY, variables=variables, test="hsic", variant=NOISE_ESTIMATES,
-            name=f"noise dependence of non-adjacent variables (hsic) ({names[i]}, {names[j]})"))
+    tagged = {ij: _noise_hsic(result, names, ij, DISTANT_NOISE_FAMILY, "noise dependence of non-adjacent variables")
+              for ij, result in zip(pairs, results)}
     finite = [ij for ij, r in zip(pairs, results) if r.p_value is not None and np.isfinite(r.p_value)]
     adjusted = dict(zip(finite, adjust_p_values([cast(float, tagged[ij].result.p_value) for ij in finite],
                                                 policy.correction))) if finite else {}
@@ -231,8 +226,6 @@ def _with_joint_adjustment(tests: dict[Pair, tuple[Tagged, ...]], family_size: i
     of all the non-adjacent ones, so it bears the same correction as the HSIC
     that selected it.
     """
-    from preflight.evidence import adjust_p_values
-
     tested = [ij for ij, t in tests.items() if len(t) == 4]
     if not tested:
         return tests
@@ -246,13 +239,19 @@ def _with_joint_adjustment(tests: dict[Pair, tuple[Tagged, ...]], family_size: i
     return out
 
 
+def _noise_hsic(result: CheckResult, names, pair: Pair, family: str, label: str) -> Tagged:
+    """An HSIC between the noise estimates of a pair, identified and named ``label (hsic) (x, y)``."""
+    i, j = pair
+    return Tagged(family, "pair", result.identified(
+        scope="pair", family=family, variables=tuple(sorted((names[i], names[j]))), test="hsic",
+        variant=NOISE_ESTIMATES, name=f"{label} (hsic) ({names[i]}, {names[j]})"))
+
+
 def _tag_noise_dependence(results: list[CheckResult], names, pairs, progress: Progress) -> dict:
     if pairs:
         progress("noise dependence", len(pairs), len(pairs))
-    return {(i, j): Tagged("noise dependence", "pair", result.identified(
-                scope="pair", family="noise dependence", variables=tuple(sorted((names[i], names[j]))), test="hsic",
-                variant=NOISE_ESTIMATES, name=f"noise dependence (hsic) ({names[i]}, {names[j]})"))
-            for (i, j), result in zip(pairs, results)}
+    return {ij: _noise_hsic(result, names, ij, "noise dependence", "noise dependence")
+            for ij, result in zip(pairs, results)}
 
 
 # ---------------------------------------------------------------- table and screen
@@ -900,8 +899,7 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
         if noise is None:
             final.append(f)
         elif f.x in misspecified or f.y in misspecified:
-            noise = replace(noise, note="not used as a confounding signal: a structural equation at this pair is "
-                                        "nonlinear, so its linear noise estimate is not a noise")
+            noise = replace(noise, note=NOT_A_NOISE)
             final.append(replace(f, checks=f.checks + (noise,)))
         else:
             final.append(with_noise_dependence(f, noise, policy))

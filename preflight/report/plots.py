@@ -371,21 +371,18 @@ _MARGIN = 12.0
 
 
 def _text_width(text: str, size: float) -> float:
-    import matplotlib
     from matplotlib.font_manager import FontProperties
-    from matplotlib.textpath import TextPath, text_to_path
+    from matplotlib.path import Path
+    from matplotlib.textpath import text_to_path
 
     if not text:
         return 0.0
-    prop = FontProperties(family="DejaVu Sans")
-    # A text of invisible characters only (a soft hyphen, a zero-width space) has no outline, and
-    # TextPath fails on an empty outline (matplotlib 3.10), so such a text is measured as empty.
-    vertices, _ = text_to_path.get_text_path(prop, text, ismath=False)
+    # The outline TextPath builds (no math parsing), scaled as it scales it; a text of invisible characters
+    # only (a soft hyphen, a zero-width space) has none, where TextPath fails (matplotlib 3.10): width 0.
+    vertices, codes = text_to_path.get_text_path(FontProperties(family="DejaVu Sans"), text, ismath=False)
     if len(vertices) == 0:
         return 0.0
-    with matplotlib.rc_context({"text.parse_math": False}):
-        path = TextPath((0, 0), text, size=size, prop=prop)
-    return float(path.get_extents().width)
+    return float(Path(np.asarray(vertices) * (size / text_to_path.FONT_SCALE), codes).get_extents().width)
 
 
 def graph_layout(names: Sequence[str], order: Sequence[str],
