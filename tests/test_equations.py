@@ -141,12 +141,26 @@ def test_early_stop_keeps_the_decision_and_runs_fewer_refits():
     forward = residual_independence(independent, x, replicates=200, seed=1, early_stop=stop)
     assert forward.effect < 0.002 and forward.replicates == stop.negligible
     assert "settled" in forward.note
-    # The anti-causal direction: a clear dependence, settled after the first look.
+    # The anti-causal direction: a clear dependence, settled at the early look.
     backward = residual_independence(x, independent, replicates=200, seed=1, early_stop=stop)
     full = residual_independence(x, independent, replicates=200, seed=1)
-    assert backward.replicates == stop.first and full.replicates == 200
+    assert backward.replicates == stop.early < stop.first and full.replicates == 200
     assert backward.tail_p_value < stop.clear_below and full.tail_p_value < 1e-6
     assert backward.column_statistics == full.column_statistics  # the observed statistic does not depend on B
+
+
+def test_early_look_settles_only_a_clear_dependence():
+    # With no floors, an independent residual can only be settled by a p-value above clear_above, which the
+    # early look does not trust: read from 20 draws, a p-value of 0.05 shows above 0.25 too often.
+    stop = EarlyStop(hsic_floor=0.0, spread_floor=0.0)
+    rng = np.random.default_rng(15)
+    x = _skewed(rng, 1500)
+    looks = []
+    for seed in range(6):
+        result = residual_independence(0.8 * x + _skewed(rng, 1500), x, replicates=200, seed=seed, early_stop=stop)
+        looks.append(result.replicates)
+        assert result.replicates >= stop.first
+    assert stop.first in looks  # most are settled at the look of 50 (p above clear_above)
 
 
 def test_early_stop_runs_every_refit_when_the_answer_is_close():
