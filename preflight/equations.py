@@ -242,8 +242,8 @@ class EarlyStop:
     (four more orders of magnitude than ``clear_below``, for the larger
     error of a gamma matched to fewer draws).  A p-value above
     ``clear_above`` waits for the look at ``first``: read from 20 draws, a
-    true p-value of 0.05 would show above 0.25 in about 1.6 % of tests
-    (binomial tail), from 50 in less than 1e-4.  Most anti-causal tests are
+    true p-value of 0.05 would show above 0.25 in 0.26 % of tests
+    (binomial tail: 5 or more of 20 draws reach it), from 50 in 5e-6.  Most anti-causal tests are
     clear after 20 refits, which is where the look pays.
     """
 
@@ -492,7 +492,8 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
     for look in looks:
         refit(done, look)
         done = look
-        if _settled(early_stop, observed, boot[:, :done], max(effects), spread_observed, spread_boot[:done]):
+        if early_stop is not None and _settled(early_stop, observed, boot[:, :done], max(effects),
+                                               spread_observed, spread_boot[:done]):
             boot, spread_boot, replicates, stopped = boot[:, :done], spread_boot[:done], done, True
             break
     if not stopped:
