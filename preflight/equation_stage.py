@@ -56,7 +56,7 @@ order, whose parent sets are not edges.
 With every parent edge, the kiln demo's reversed chain adds gas_flow - wall_temp (oriented) and
 gas_flow - glaze_gloss."""
 
-FAINT_SHARE = 0.25
+FAINT_SHARE = 0.15
 """How close a significant sub-floor dependence on one side of an edge must come to the other side's
 material one (in multiples of each test's floor) to withhold the orientation (:func:`_comparable`).
 
@@ -66,7 +66,12 @@ that was oriented (seed 130 of the forks in ``tests/test_acceptance.py``,
 significant sub-floor dependence on their causal side sat at 0.005 to 0.03
 of the reverse (several-parents tables, 3 edges at 2,000 rows and 3 at 5,000
 rows).  Withholding on any significant sub-floor dependence instead took 2 of
-8 several-parents tables at 5,000 rows off the top rung."""
+8 several-parents tables at 5,000 rows off the top rung.  Lowered from 0.25:
+a hidden cause of two adjacent variables (several-parents, 5,000 rows, seed
+1966467594) was oriented on a spline side at 0.18 of the other; at 0.15, of
+240 validity tables compared seed for seed (several parents at 1,000, 2,000
+and 5,000 rows, the default grid at 1,000) two changed: that orientation
+withheld, and one correct orientation lost in another hidden-cause table."""
 
 BOOTSTRAP_REPLICATES = 200
 """Residual-bootstrap refits per edge test.  The decision uses the counted p-value while a refit reaches the
