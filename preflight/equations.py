@@ -466,9 +466,9 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
     chunk = max(1, min(replicates, int(4e6 // (m * 2 * n_features))))
     looks = () if early_stop is None else tuple(look for look in early_stop.looks(
         max(effects), spread_observed, replicates) if look < replicates)
-    # The refits are drawn in blocks of ``chunk``, restarted at the last look, and a look inside a block uses
-    # its first columns: the draws, and so every result that goes past the looks, do not depend on where
-    # the looks are.
+    # The refits are drawn in blocks of ``chunk``, restarted at the last look (at ``first`` refits, as before
+    # the early look), and a look inside a block uses its first columns: the early look changes no draw,
+    # so a test that goes past it reports what it reported without it.
     segment = looks[-1] if looks else replicates
     blocks = [*range(0, segment, chunk), *range(segment, replicates, chunk), replicates]
     drawn: dict[int, np.ndarray] = {}

@@ -163,6 +163,22 @@ def test_early_look_settles_only_a_clear_dependence():
     assert stop.first in looks  # most are settled at the look of 50 (p above clear_above)
 
 
+@pytest.mark.parametrize("n", [800, 3000])
+def test_the_early_look_leaves_every_later_draw_as_it_was(n):
+    # A look inside a block of refits uses its first columns, so a test that goes past the look at 20
+    # reports the very numbers it reported when the first look was at 50.
+    never = {"hsic_floor": 0.0, "spread_floor": 0.0, "clear_below": 0.0, "early_clear_below": 0.0,
+             "clear_above": 1.0}
+    rng = np.random.default_rng(16)
+    x = _skewed(rng, n)
+    y = 0.5 * x + _arcsine(rng, n)
+    looked = residual_independence(y, x, replicates=120, seed=4, early_stop=EarlyStop(early=20, **never))
+    before = residual_independence(y, x, replicates=120, seed=4, early_stop=EarlyStop(early=50, **never))
+    assert looked.replicates == before.replicates == 120
+    assert (looked.p_value, looked.tail_p_value, looked.spread.p_value) == (
+        before.p_value, before.tail_p_value, before.spread.p_value)
+
+
 def test_early_stop_runs_every_refit_when_the_answer_is_close():
     # An effect above its floor with a p-value in the undecided band cannot stop early.
     stop = EarlyStop(first=50, hsic_floor=0.0, spread_floor=0.0, clear_below=0.0, clear_above=1.0)
