@@ -492,7 +492,7 @@ def with_distant_noise_dependence(findings: PairFindings, tests: Sequence[Tagged
     hsic_test, *follow_up = tests
 
     def material(test: Tagged) -> bool:
-        return significant(test.result, policy.alpha) and (test.result.effect or 0.0) >= policy.dependence_min_hsic
+        return _material_departure([test.result], policy.alpha, policy.dependence_min_hsic)
 
     usable = not {findings.x, findings.y} & misspecified
     dependent = material(hsic_test)

@@ -259,16 +259,14 @@ class EarlyStop:
     def looks(self, hsic_effect: float, spread_effect: float, replicates: int) -> tuple[int, ...]:
         """The numbers of refits after which to decide whether to go on (each below ``replicates``)."""
         negligible = hsic_effect < self.hsic_floor and spread_effect < self.spread_floor
-        return tuple(sorted({min(replicates, look)
-                             for look in ((self.negligible,) if negligible else (self.early, self.first))}))
+        return tuple(sorted({look for look in ((self.negligible,) if negligible else (self.early, self.first))
+                             if look < replicates}))
 
-    def settled(self, effect: float, p_value: float, far_tail: float | None, floor: float,
-                refits: int | None = None) -> bool:
-        """``p_value`` from :func:`_tail_p_value`; ``far_tail`` from a gamma matched to the same draws.
-
-        ``refits`` below ``first`` (the early look) settles only clear dependences (see the class).
+    def settled(self, effect: float, p_value: float, far_tail: float | None, floor: float, refits: int) -> bool:
+        """``p_value`` from :func:`_tail_p_value`; ``far_tail`` from a gamma matched to the same draws, after
+        ``refits`` of them; below ``first`` (the early look) only clear dependences are settled (see the class).
         """
-        if refits is not None and refits < self.first:
+        if refits < self.first:
             return effect < floor or (far_tail if far_tail is not None else p_value) < self.early_clear_below
         return (effect < floor or p_value > self.clear_above
                 or (far_tail if far_tail is not None else p_value) < self.clear_below)
@@ -464,8 +462,7 @@ def _bootstrap_calibrated(residual, D, T, replicates, n_features, max_n, seed,
     spread_boot = np.empty(replicates)
     boot = np.empty((k, replicates))
     chunk = max(1, min(replicates, int(4e6 // (m * 2 * n_features))))
-    looks = () if early_stop is None else tuple(look for look in early_stop.looks(
-        max(effects), spread_observed, replicates) if look < replicates)
+    looks = () if early_stop is None else early_stop.looks(max(effects), spread_observed, replicates)
     # The refits are drawn in blocks of ``chunk``, restarted at the last look (at ``first`` refits, as before
     # the early look), and a look inside a block uses its first columns: the early look changes no draw,
     # so a test that goes past it reports what it reported without it.
