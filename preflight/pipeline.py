@@ -24,6 +24,7 @@ from preflight.battery import (
     PlotFits,
     SharedAssociation,
     judge_pair,
+    noise_estimates_flag,
     nongaussian_under,
     run_pair_battery,
     separation_given_spline,
@@ -882,10 +883,13 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
     judged = [judge_pair(replace(battery, adjacent=False), evidence.pair_checks[ij], policy)
               if ij in skeleton.dropped else f
               for ij, battery, f in zip(table.pairs, evidence.batteries, evidence.judged)]
-    if computed.structure is not None:
-        judged = [equation_stage.judge_in_equations(f, ij, evidence.edge_checks.get(ij), evidence.equation_checks,
-                                                    policy)
-                  if ij not in skeleton.dropped else f for ij, f in zip(table.pairs, judged)]
+    in_equations = {ij: computed.structure is not None and ij not in skeleton.dropped
+                    and equation_stage.judged_in_equations(f, ij, evidence.edge_checks.get(ij),
+                                                           evidence.equation_checks, policy)
+                    for ij, f in zip(table.pairs, judged)}
+    judged = [equation_stage.judge_in_equations(f, ij, evidence.edge_checks.get(ij), evidence.equation_checks,
+                                                policy) if in_equations[ij] else f
+              for ij, f in zip(table.pairs, judged)]
     separation, separated = _separated_given_splines(table, skeleton, judged, evidence)
     if separation:
         skeleton = skeleton.without(separated)
@@ -908,7 +912,38 @@ def _judge_pairs(table: Table, computed: Computed, evidence: Evidence) -> Findin
     bent = _bent_links_by_pair(evidence)
     final = [f if ij in separated or ij not in bent else equation_stage.judge_bent_edge(f, bent[ij], policy)
              for ij, f in zip(table.pairs, final)]
+    final = _judged_with_neighbours(table, skeleton, final, in_equations, evidence.noise_dependence,
+                                    misspecified)
     return Findings(pairs=tuple(final), skeleton=skeleton)
+
+
+def _judged_with_neighbours(table: Table, skeleton: Skeleton, judged: list[PairFindings],
+                            in_equations: dict[Pair, bool], noise_dependence: dict[Pair, CheckResult],
+                            misspecified: set[str]) -> list[PairFindings]:
+    """Each pair flagged ``confounding-suspected`` on regressions of one variable on the other alone (the
+    battery's, or a bent equation's splines), judged again with each side's other skeleton neighbours as
+    splines (:func:`equation_stage.fits_with_neighbours`).  Where the flag is withdrawn (and with it any
+    orientation the battery made beside it), a material dependence of the pair's structural noise estimates
+    raises it again (:func:`noise_estimates_flag`)."""
+    pending = [ij for ij, f in zip(table.pairs, judged)
+               if skeleton.adjacent(ij) and equation_stage.rests_on_marginal_regressions(f, in_equations[ij])]
+    if not pending:
+        return judged
+    p = len(table.names)
+    neighbours = [[k for k in range(p) if k != v and skeleton.adjacent((min(v, k), max(v, k)))] for v in range(p)]
+    out = list(judged)
+    position = {ij: k for k, ij in enumerate(table.pairs)}
+    for ij in pending:
+        tests = equation_stage.neighbour_edge_task(table.values, table.names, neighbours, ij, table.policy)
+        findings = equation_stage.fits_with_neighbours(out[position[ij]], tests, table.policy)
+        noise = noise_dependence.get(ij)
+        if ("confounding-suspected" not in findings.flags and noise is not None
+                and not {findings.x, findings.y} & misspecified
+                and noise_estimates_flag(findings, noise, table.policy)):
+            findings = replace(findings, flags=findings.flags + ("confounding-suspected",),
+                               facts=findings.facts | {"confounding-suspected", "noise-estimates-dependent"})
+        out[position[ij]] = findings
+    return out
 
 
 def _bent_links_by_pair(evidence: Evidence) -> dict[Pair, list[Tagged]]:
@@ -995,10 +1030,14 @@ def _conclude(table: Table, screen: Screen, computed: Computed, variables: Varia
     # estimated, before edges without association were dropped (see Skeleton).
     status = graphs.edge_status(findings.skeleton.cpdag) if names else {}
     pair_facts: dict[tuple[str, str], frozenset[str]] = {}
+    curved = {name for f in findings.pairs if f.adjacent and "nonlinear" in f.flags for name in (f.x, f.y)}
     for f, ij in zip(findings.pairs, table.pairs):
         facts = set(f.facts)
         # The class's compelled direction in the pair's own x, y terms; None when it compels none.
         compelled = {"i->j": "x->y", "j->i": "y->x"}.get(status.get(ij, "undirected"))
+        if (compelled is not None and f.adjacent and {f.x, f.y} & curved
+                and f.lingam_orientation == f.anm_orientation == "undetermined"):
+            facts.add("beside-nonlinear")  # only where the class would give the edge its direction
         if compelled is not None and f.lingam_orientation != "undetermined":
             if compelled != f.lingam_orientation:
                 facts.add("orientation-conflict")

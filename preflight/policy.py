@@ -241,7 +241,8 @@ class Policy:
     one shrinks like 1/n."""
 
     dependence_min_hsic: float = 0.002
-    """Normalised HSIC at or above which a significant dependence of an equation's residual counts.
+    """Normalised HSIC at or above which a significant dependence of an equation's residual, or of two
+    structural noise estimates, counts.
 
     Normalised HSIC (Gaussian kernels, median bandwidths) is free of n and
     grows roughly like the squared correlation: Gaussian pairs at 4,000 rows

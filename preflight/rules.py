@@ -24,8 +24,9 @@ PAIR_FINDINGS = ("adjacent", "not-adjacent", "lingam-oriented", "lingam-undeterm
                  "noise-estimates-dependent", "no-independent-noise-model", "moment-slope-inside-bracket",
                  "independent-both-ways",
                  "oriented-in-equations", "no-partial-correlation", "equations-lean-x->y", "equations-lean-y->x",
-                 "class-against-equations-lean")
-"""Facts about a pair besides its flags (``battery.judge_pair``; ``orientation-conflict`` from the pipeline)."""
+                 "class-against-equations-lean", "beside-nonlinear")
+"""Facts about a pair besides its flags (``battery.judge_pair``; ``orientation-conflict`` and
+``beside-nonlinear`` from the pipeline)."""
 GLOBAL_FINDINGS = ("any-nonlinear",)
 """Facts about the table besides its flags: ``any-nonlinear`` when some adjacent pair is ``nonlinear``."""
 FACTS: dict[str, tuple[str, ...]] = {

@@ -293,3 +293,102 @@ def test_bent_links_are_the_parents_of_an_equation_that_bends_on_its_own():
     assert links({2: equation(False), 3: equation(True), 4: equation(False)}) == ((2, 3), (4, 3))
     assert links({2: equation(True), 3: equation(False), 4: equation(False)}) == ((0, 2), (1, 2))
     assert links({2: equation(False), 3: equation(True), 4: equation(True)}) == ((5, 4),)
+
+
+def _neighbour_tests(forward_effects, reverse_effects, forward_p=1e-9):
+    """HSIC and White tests of both sides of a pair's regressions with neighbours, with the given effects
+    (p-values 1e-9, the forward ones ``forward_p``)."""
+    from preflight.evidence import Tagged
+    from preflight.results import NEIGHBOURS_AS_SPLINES, CheckIdentity, CheckResult
+
+    made = []
+    for role, (hsic_effect, white_effect) in (("forward", forward_effects), ("reverse", reverse_effects)):
+        for test, effect in (("hsic", hsic_effect), ("white", white_effect)):
+            result = CheckResult(name=f"{test} with neighbours as splines", statistic=1.0,
+                                 p_value=forward_p if role == "forward" else 1e-9,
+                                 effect=effect, n=1000,
+                                 identity=CheckIdentity(test, None, "pair", ("x", "y"), None, NEIGHBOURS_AS_SPLINES))
+            made.append(Tagged(None, role, result))
+    return tuple(made)
+
+
+def test_a_flag_from_marginal_regressions_is_withdrawn_only_when_one_side_fits_with_its_neighbours():
+    from dataclasses import replace
+
+    from preflight.battery import PairFindings
+    from preflight.equation_stage import fits_with_neighbours, rests_on_marginal_regressions
+    from preflight.policy import Policy
+
+    policy = Policy()
+    flagged = PairFindings("x", "y", True, "undetermined", "undetermined", ("nonlinear", "confounding-suspected"),
+                           frozenset({"adjacent", "nonlinear", "confounding-suspected", "no-independent-noise-model",
+                                      "residuals-dependent-both-ways", "lingam-undetermined"}), ())
+    assert rests_on_marginal_regressions(flagged, in_equations=False)
+    assert not rests_on_marginal_regressions(flagged, in_equations=True)
+    for other_evidence in ("noise-estimates-dependent", "moment-slope-inside-bracket"):
+        assert not rests_on_marginal_regressions(replace(flagged, facts=flagged.facts | {other_evidence}), False)
+
+    # One side below both floors (HSIC 0.0015 < 0.002, White 0.004 < 0.005), significant but far below the
+    # other side's material dependence (0.8 floors against 15): withdrawn.
+    fits = fits_with_neighbours(flagged, _neighbour_tests((0.0015, 0.004), (0.03, 0.02)), policy)
+    assert "confounding-suspected" not in fits.flags and "nonlinear" in fits.flags
+    assert not {"confounding-suspected", "no-independent-noise-model", "residuals-dependent-both-ways"} & fits.facts
+    assert fits.lingam_orientation == fits.anm_orientation == "undetermined"  # it never orients
+    # ... and an orientation the battery made beside its two-way dependence goes with the flag.
+    oriented = replace(flagged, lingam_orientation="x->y", facts=flagged.facts - {"lingam-undetermined"}
+                       | {"lingam-oriented"})
+    unoriented = fits_with_neighbours(oriented, _neighbour_tests((0.0015, 0.004), (0.03, 0.02)), policy)
+    assert unoriented.lingam_orientation == "undetermined" and "lingam-oriented" not in unoriented.facts
+    assert "lingam-undetermined" in unoriented.facts
+    assert [c.passed for c in fits.checks] == [True, True, False, False]
+    assert "omitted neighbours" in fits.checks[0].note
+    # A material effect on each side (the spread on one, the HSIC on the other): the flag stands.
+    for forward in ((0.0015, 0.006), (0.0021, 0.001)):
+        kept = fits_with_neighbours(flagged, _neighbour_tests(forward, (0.03, 0.02)), policy)
+        assert kept.flags == flagged.flags and kept.facts == flagged.facts and len(kept.checks) == 4
+    # Significant below the floors but close to the other side (0.8 floors against 2.2, above FAINT_SHARE):
+    # independence is not shown, the flag stands; the same effects without significance fit.
+    close = fits_with_neighbours(flagged, _neighbour_tests((0.0015, 0.004), (0.0044, 0.001)), policy)
+    assert "confounding-suspected" in close.flags
+    quiet = fits_with_neighbours(flagged, _neighbour_tests((0.0015, 0.004), (0.0044, 0.001), forward_p=0.3), policy)
+    assert "confounding-suspected" not in quiet.flags
+    # No tests (too few rows, or no other neighbour): the findings stand as they were.
+    assert fits_with_neighbours(flagged, (), policy) == flagged
+
+
+def test_omitted_neighbours_of_a_bent_table_are_not_read_as_a_hidden_cause():
+    # Nonlinear mechanisms (tanh) in a random DAG of 8 variables, 1,000 rows, seed from the validity
+    # study: the marginal spline regressions of true edges depend both ways; with each side's other
+    # neighbours as splines, one side fits at one of them (v0 - v4) and that flag goes.  A hidden common
+    # cause of a collider table (5,000 rows) keeps its flag: its residuals depend on the regressor both
+    # ways with the neighbours too.
+    from preflight.results import NEIGHBOURS_AS_SPLINES
+    from preflight.scenarios import simulate, to_frame
+
+    bent = simulate("nonlinear", "random", 8, 1000, "gaussian", 612474667)
+    report = preflight.check(to_frame(bent), seed=612474667, keep_samples=False).to_dict()
+    position = {name: k for k, name in enumerate(bent.names)}
+
+    def true_edge(pair):
+        i, j = position[pair["x"]], position[pair["y"]]
+        return bool(bent.dag[i, j] or bent.dag[j, i])
+
+    withdrawn = 0
+    for pair in report["pairs"]:
+        tests = [c for c in pair["checks"] if " with neighbours as splines (" in c["name"]]
+        if not tests:
+            continue
+        assert {decode(c, "pair", (pair["x"], pair["y"])).variant for c in tests} == {NEIGHBOURS_AS_SPLINES}
+        sides = {response: all(c["passed"] for c in tests if f"({response} on splines" in c["name"])
+                 for response in (pair["x"], pair["y"])}
+        assert ("confounding-suspected" in pair["flags"]) == (not any(sides.values())), pair["flags"]
+        withdrawn += int(any(sides.values()) and true_edge(pair))
+    assert withdrawn >= 1
+
+    confounded = simulate("hidden-confounder", "collider", 5, 5000, "laplace", 1870272279)
+    report = preflight.check(to_frame(confounded), seed=1870272279, keep_samples=False).to_dict()
+    ((a, b),) = confounded.hidden
+    hidden_pair = [pair for pair in report["pairs"] if {pair["x"], pair["y"]} == {confounded.names[a],
+                                                                                confounded.names[b]}][0]
+    assert "confounding-suspected" in hidden_pair["flags"]
+    assert any(" with neighbours as splines (" in c["name"] and c["passed"] is False for c in hidden_pair["checks"])

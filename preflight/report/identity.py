@@ -23,6 +23,7 @@ from typing import Any
 
 from preflight.results import (
     GIVEN_A_SPLINE,
+    NEIGHBOURS_AS_SPLINES,
     NOISE_ESTIMATE,
     NOISE_ESTIMATES,
     SPLINE_EQUATION,
@@ -145,6 +146,10 @@ def _decode_pair(name: str, a: str, b: str) -> CheckIdentity:
             test = test_id(name[: -len(suffix)])
             return CheckIdentity(test, _SPLINE_EQUATION_FAMILY.get(test), "pair", pair, (first, second),
                                  SPLINE_EQUATION)
+        suffix = f" with neighbours as splines ({first} on splines of {second} and its other neighbours)"
+        if name.endswith(suffix):
+            return CheckIdentity(test_id(name[: -len(suffix)]), None, "pair", pair, (first, second),
+                                 NEIGHBOURS_AS_SPLINES)
         marker = f" ({first}, {second}) given a spline of "
         if marker in name:
             return CheckIdentity(test_id(name[: name.index(marker)]), "separation given a spline", "pair", pair,
