@@ -114,3 +114,33 @@ def test_a_compelled_orientation_the_equations_lean_against_is_left_out_and_the_
     agreeing = leaning - {"class-against-equations-lean"}
     outcome = evaluate(frozenset(), {}, {("a", "b"): agreeing, ("a", "c"): oriented}, {})
     assert "equivalence-class" not in outcome.edge_ruled_out[("a", "b")]
+
+
+def test_the_class_gives_no_direction_beside_a_curve_at_a_discrete_variable_or_with_autocorrelated_rows():
+    undirected = frozenset({"adjacent", "lingam-undetermined", "anm-undetermined"})
+    beside = undirected | {"beside-nonlinear"}
+    outcome = evaluate(frozenset(), {}, {("a", "b"): beside, ("a", "c"): undirected}, {})
+    assert "class-beside-a-curve" in [f.rule.id for f in outcome.fired]
+    assert "equivalence-class" in outcome.edge_ruled_out[("a", "b")]
+    assert "equivalence-class" not in outcome.edge_ruled_out[("a", "c")]
+    assert outcome.level != "latent-equivalence-class"  # the table keeps its rung
+    pairs = {("a", "b"): undirected, ("b", "c"): undirected, ("c", "d"): undirected}
+    discrete = evaluate(frozenset(), {"a": frozenset({"discrete"})}, pairs, {})
+    assert "equivalence-class" in discrete.edge_ruled_out[("a", "b")]  # touching the discrete variable only
+    assert "equivalence-class" not in discrete.edge_ruled_out[("c", "d")]
+    autocorrelated = evaluate(frozenset(), {"a": frozenset({"autocorrelated"})}, pairs, {})
+    assert all("equivalence-class" in autocorrelated.edge_ruled_out[pair] for pair in pairs)  # every edge
+
+
+def test_autocorrelated_rows_leave_every_edge_without_a_direction_from_the_class():
+    import preflight
+    from preflight.scenarios import simulate, to_frame
+
+    # A collider of 5 variables with AR(1) noise (validity study, 1,000 rows): its class compels directions.
+    scenario = simulate("autocorrelated", "collider", 5, 1000, "laplace", 752772110)
+    report = preflight.check(to_frame(scenario), seed=752772110, keep_samples=False).to_dict()
+    assert "rows-not-independent" in report["conclusion"]["rules_fired"]
+    # The table reaches the class (without the rule it took 2 directions from it, both for absent edges).
+    assert report["conclusion"]["level"] == "equivalence-class"
+    assert [p for p in report["pairs"] if p["adjacent"]]
+    assert not [p for p in report["pairs"] if p["orientation"] != "undetermined"]
